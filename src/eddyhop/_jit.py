@@ -1,0 +1,59 @@
+"""One place that fixes how every kernel of the package is compiled.
+
+Kernels are compiled lazily (never at import) with ``cache=True`` so that a second process —
+a test, a joblib or Dask worker, the next ``eddyhop run`` — loads machine code from disk instead
+of compiling again.  Numba checks only the timestamp of the file that defines a cached function,
+not of the modules it calls, so an edited flow module could silently reuse a stale kernel.  We
+therefore key the cache directory by a hash of the package's own source files: any edit to the
+package gives a fresh cache.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import functools
+import hashlib
+import os
+from pathlib import Path
+
+import numba
+from numba.core import config as _numba_config
+
+_PACKAGE_DIR = Path(__file__).resolve().parent
+
+
+@functools.lru_cache(maxsize=1)
+def kernel_cache_dir() -> str:
+    """Directory for compiled kernels, unique to this exact version of the package sources."""
+    digest = hashlib.sha256()
+    for path in sorted(_PACKAGE_DIR.rglob("*.py")):
+        digest.update(path.relative_to(_PACKAGE_DIR).as_posix().encode())
+        digest.update(path.read_bytes())
+    root = os.environ.get("EDDYHOP_CACHE_DIR") or os.path.join(
+        os.environ.get("XDG_CACHE_HOME") or os.path.join(Path.home(), ".cache"), "eddyhop"
+    )
+    return os.path.join(root, f"numba-{numba.__version__}-{digest.hexdigest()[:16]}")
+
+
+@contextlib.contextmanager
+def _cache_dir_for_decoration():
+    # Numba reads config.CACHE_DIR when a dispatcher is decorated; setting it only around our
+    # own decorations leaves the caching of other libraries in the same process untouched.
+    previous = _numba_config.CACHE_DIR
+    _numba_config.CACHE_DIR = kernel_cache_dir()
+    try:
+        yield
+    finally:
+        _numba_config.CACHE_DIR = previous
+
+
+def jit(function=None, **options):
+    """``numba.njit`` with the package's fixed options (cache, numpy error model, nogil)."""
+    settings = {"cache": True, "error_model": "numpy", "nogil": True, "fastmath": False}
+    settings.update(options)
+
+    def decorate(func):
+        with _cache_dir_for_decoration():
+            return numba.njit(**settings)(func)
+
+    return decorate if function is None else decorate(function)

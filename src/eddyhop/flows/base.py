@@ -1,0 +1,148 @@
+"""What every flow family declares: parameters, geometry and its compiled field functions.
+
+Conventions shared by all families (state them again in each family's docstring):
+
+* Incompressible 2-D flows from a stream function ψ(x, y, t): ``u = ∂ψ/∂y``, ``v = -∂ψ/∂x``.
+* ``U`` is the velocity scale (length/time) and ``k`` the wavenumber (1/length).  One eddy (cell)
+  of the cellular pattern has side ``π/k``; the spatial period is ``2π/k``.
+* Compiled functions take scalars ``(x, y, t, p)`` where ``p`` is the float64 parameter vector
+  returned by :meth:`FlowFamily.pack`; this vector is the only thing kernels know of a flow.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from ..errors import StudyError
+
+
+@dataclass(frozen=True)
+class Parameter:
+    """One numeric parameter of a flow family, with its allowed closed/open range."""
+
+    name: str
+    description: str
+    units: str  # "velocity", "wavenumber", "length", "frequency", "1"
+    default: float | None = None  # None means required
+    low: float = -math.inf
+    high: float = math.inf
+    low_open: bool = False
+    high_open: bool = False
+
+    def allowed(self) -> str:
+        left = "(" if self.low_open else "["
+        right = ")" if self.high_open else "]"
+        return f"{left}{self.low:g}, {self.high:g}{right}"
+
+    def check(self, value: Any, where: str) -> float:
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise StudyError(f"{where}.{self.name}: expected a number, got {value!r}")
+        value = float(value)
+        too_low = value <= self.low if self.low_open else value < self.low
+        too_high = value >= self.high if self.high_open else value > self.high
+        if math.isnan(value) or too_low or too_high:
+            raise StudyError(
+                f"{where}.{self.name} = {value:g} is outside the allowed range {self.allowed()}"
+            )
+        return value
+
+
+VELOCITY = Parameter("U", "velocity scale (max speed of the cellular part)", "velocity",
+                     default=1.0, low=0.0)
+WAVENUMBER = Parameter("k", "wavenumber; one eddy has side pi/k", "wavenumber",
+                       default=1.0, low=0.0, low_open=True)
+
+
+@dataclass(frozen=True)
+class FlowFamily:
+    """Description of a flow family; subclasses add geometry and the compiled field functions.
+
+    ``code`` is the integer the compiled dispatcher switches on (see ``flows/compiled.py``).
+    """
+
+    name: str
+    code: int
+    summary: str
+    parameters: tuple[Parameter, ...] = (VELOCITY, WAVENUMBER)
+    steady: bool = True
+    # Names of the scalar numba functions in the family module (psi, velocity, gradient).
+    extra: dict = field(default_factory=dict)
+
+    # ---- parameters -------------------------------------------------------------------------
+    def validate(self, values: dict, where: str = "flow") -> dict:
+        """Return a complete, checked parameter dict; unknown keys and bad values raise."""
+        known = {p.name for p in self.parameters}
+        unknown = sorted(set(values) - known)
+        if unknown:
+            raise StudyError(
+                f"{where}: unknown parameter(s) {', '.join(unknown)} for flow family "
+                f"'{self.name}'; allowed: {', '.join(sorted(known)) or 'none'}"
+            )
+        checked = {}
+        for p in self.parameters:
+            if p.name in values:
+                checked[p.name] = p.check(values[p.name], where)
+            elif p.default is None:
+                raise StudyError(f"{where}.{p.name} is required for flow family '{self.name}'")
+            else:
+                checked[p.name] = float(p.default)
+        return checked
+
+    def pack(self, values: dict) -> np.ndarray:
+        """Parameter vector handed to the compiled functions (order of ``parameters``)."""
+        return np.array([float(values[p.name]) for p in self.parameters], dtype=np.float64)
+
+    # ---- scales and geometry ----------------------------------------------------------------
+    def velocity_scale(self, values: dict) -> float:
+        return float(values["U"])
+
+    def wavenumber(self, values: dict) -> float:
+        return float(values["k"])
+
+    def eddy_size(self, values: dict) -> float:
+        """Side of one eddy (cell), π/k: the unit in which cell hopping is counted."""
+        return math.pi / self.wavenumber(values)
+
+    def period(self, values: dict) -> tuple[float | None, float | None]:
+        """Spatial period (Lx, Ly) of the velocity field; ``None`` along an unbounded direction."""
+        length = 2.0 * math.pi / self.wavenumber(values)
+        return (length, length)
+
+    def time_period(self, values: dict) -> float | None:
+        """Period of a time-periodic flow, ``None`` for steady flows."""
+        return None
+
+    def stagnation_points(self, values: dict) -> dict[str, np.ndarray]:
+        """Stagnation points in one period cell ``[0, Lx) × [0, Ly)`` known in closed form.
+
+        Returns ``{"elliptic": (n, 2) array, "hyperbolic": (m, 2) array}``; empty arrays where
+        the family has none or none is known in closed form.
+        """
+        empty = np.zeros((0, 2))
+        return {"elliptic": empty, "hyperbolic": empty}
+
+    def separatrix_levels(self, values: dict) -> tuple[float, ...]:
+        """Values of ψ on the separatrices (empty if the family has none)."""
+        return ()
+
+    def psi_range(self, values: dict) -> tuple[float, float]:
+        """(min, max) of ψ over one period cell; numerical for families without a formula."""
+        from .compiled import evaluate_psi
+
+        lx, ly = self.period(values)
+        lx = lx or 2 * math.pi / self.wavenumber(values)
+        ly = ly or 2 * math.pi / self.wavenumber(values)
+        gx, gy = np.meshgrid(np.linspace(0, lx, 257), np.linspace(0, ly, 257))
+        values_psi = evaluate_psi(self, values, gx.ravel(), gy.ravel(), 0.0)
+        return float(values_psi.min()), float(values_psi.max())
+
+    def describe(self) -> str:
+        lines = [f"{self.name}: {self.summary}"]
+        for p in self.parameters:
+            default = "required" if p.default is None else f"default {p.default:g}"
+            lines.append(f"    {p.name:<6} {p.description} ({default}; allowed {p.allowed()})")
+        return "\n".join(lines)

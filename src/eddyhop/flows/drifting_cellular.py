@@ -1,0 +1,63 @@
+"""Cellular flow with a uniform mean drift (V_x, V_y) superposed.
+
+ψ = (U/k) sin kx sin ky + V_x y − V_y x,  u = U sin kx cos ky + V_x,  v = −U cos kx sin ky + V_y.
+The drift may point in any direction, so an irrational ratio V_y/V_x is possible.  The velocity is
+2π/k-periodic; ψ itself is not (its linear part), so ``psi_range`` refers to the cellular part.
+"""
+
+from __future__ import annotations
+
+import math
+
+from .._jit import jit
+from .base import VELOCITY, WAVENUMBER, FlowFamily, Parameter
+
+
+@jit
+def psi(x, y, t, p):
+    return p[0] / p[1] * math.sin(p[1] * x) * math.sin(p[1] * y) + p[2] * y - p[3] * x
+
+
+@jit
+def velocity(x, y, t, p):
+    k = p[1]
+    sx = math.sin(k * x)
+    cx = math.cos(k * x)
+    sy = math.sin(k * y)
+    cy = math.cos(k * y)
+    return p[0] * sx * cy + p[2], -p[0] * cx * sy + p[3]
+
+
+@jit
+def gradient(x, y, t, p):
+    k = p[1]
+    uk = p[0] * k
+    sx = math.sin(k * x)
+    cx = math.cos(k * x)
+    sy = math.sin(k * y)
+    cy = math.cos(k * y)
+    return uk * cx * cy, -uk * sx * sy, uk * sx * sy, -uk * cx * cy
+
+
+class DriftingCellular(FlowFamily):
+    def psi_range(self, values):
+        amplitude = values["U"] / values["k"]
+        return (-amplitude, amplitude)
+
+    def separatrix_levels(self, values):
+        # Without drift the separatrix is psi = 0; a drift reconnects it, and no closed form
+        # level exists, so the cellular part's level is the useful reference.
+        return (0.0,) if values["drift_x"] == 0.0 and values["drift_y"] == 0.0 else ()
+
+
+FAMILY = DriftingCellular(
+    name="drifting_cellular",
+    code=3,
+    summary="cellular flow plus a uniform drift (drift_x, drift_y) in any direction",
+    parameters=(
+        VELOCITY,
+        WAVENUMBER,
+        Parameter("drift_x", "mean drift velocity along x", "velocity", default=0.0),
+        Parameter("drift_y", "mean drift velocity along y", "velocity", default=0.0),
+    ),
+)

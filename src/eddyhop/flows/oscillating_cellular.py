@@ -1,0 +1,71 @@
+"""Time-periodic cellular flow: the eddy pattern oscillates laterally.
+
+ψ = (U/k) sin(k (x + B sin ωt)) sin(ky): the cells move rigidly along x with displacement
+−B sin ωt (amplitude ``B``, angular frequency ``ω``), which opens chaotic lobes across the
+separatrices.  Spatial period 2π/k; time period 2π/ω.
+"""
+
+from __future__ import annotations
+
+import math
+
+from .._jit import jit
+from .base import VELOCITY, WAVENUMBER, FlowFamily, Parameter
+
+
+@jit
+def psi(x, y, t, p):
+    k = p[1]
+    return p[0] / k * math.sin(k * (x + p[2] * math.sin(p[3] * t))) * math.sin(k * y)
+
+
+@jit
+def velocity(x, y, t, p):
+    k = p[1]
+    phase = k * (x + p[2] * math.sin(p[3] * t))
+    sx = math.sin(phase)
+    cx = math.cos(phase)
+    sy = math.sin(k * y)
+    cy = math.cos(k * y)
+    return p[0] * sx * cy, -p[0] * cx * sy
+
+
+@jit
+def gradient(x, y, t, p):
+    k = p[1]
+    uk = p[0] * k
+    phase = k * (x + p[2] * math.sin(p[3] * t))
+    sx = math.sin(phase)
+    cx = math.cos(phase)
+    sy = math.sin(k * y)
+    cy = math.cos(k * y)
+    return uk * cx * cy, -uk * sx * sy, uk * sx * sy, -uk * cx * cy
+
+
+class OscillatingCellular(FlowFamily):
+    def time_period(self, values):
+        omega = values["omega"]
+        return None if omega == 0.0 else 2.0 * math.pi / omega
+
+    def separatrix_levels(self, values):
+        return (0.0,)
+
+    def psi_range(self, values):
+        amplitude = values["U"] / values["k"]
+        return (-amplitude, amplitude)
+
+
+FAMILY = OscillatingCellular(
+    name="oscillating_cellular",
+    code=4,
+    summary="cellular flow whose cells oscillate along x, psi = (U/k) sin(k(x + B sin wt)) sin ky",
+    steady=False,
+    parameters=(
+        VELOCITY,
+        WAVENUMBER,
+        Parameter("B", "lateral oscillation amplitude of the cells", "length", default=0.0,
+                  low=0.0),
+        Parameter("omega", "angular frequency of the oscillation", "frequency", default=1.0,
+                  low=0.0),
+    ),
+)
