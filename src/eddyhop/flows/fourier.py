@@ -15,7 +15,7 @@ import numpy as np
 
 from .._jit import jit
 from ..errors import StudyError
-from .base import VELOCITY, WAVENUMBER, FlowFamily
+from .base import FlowFamily
 
 _HEADER = 3  # U, k, number of modes; then 4 numbers per mode
 

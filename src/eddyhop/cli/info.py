@@ -1,0 +1,34 @@
+"""``eddyhop info``: summary of a result file."""
+
+from __future__ import annotations
+
+import click
+
+from .common import friendly_errors
+
+
+@click.command("info")
+@click.argument("result", type=click.Path(dir_okay=False))
+@click.option("--attrs", "show_attrs", is_flag=True, help="Also list every global attribute.")
+@friendly_errors
+def command(result, show_attrs):
+    """Summarise a RESULT netCDF file: dimensions, variables with units, provenance."""
+    from ..io import open_result
+    from .summary import print_summary
+
+    ds = open_result(result)
+    click.echo(f"{result}: eddyhop {ds.attrs.get('eddyhop_version', '?')} "
+               f"({ds.attrs.get('eddyhop_kind', '?')})")
+    click.echo("  dimensions: " + ", ".join(f"{k}={v}" for k, v in ds.sizes.items()))
+    if "time" in ds.coords and "msd" in ds:
+        print_summary(ds)
+    click.echo("  variables:")
+    for name, var in ds.data_vars.items():
+        units = var.attrs.get("units", "")
+        click.echo(f"    {name:<24} {str(var.dims):<28} [{units}] "
+                   f"{var.attrs.get('long_name', '')}")
+    if show_attrs:
+        click.echo("  attributes:")
+        for key, value in ds.attrs.items():
+            text = str(value).replace("\n", " ")
+            click.echo(f"    {key} = {text[:160]}{'…' if len(text) > 160 else ''}")

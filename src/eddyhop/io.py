@@ -1,0 +1,142 @@
+"""CF-style attributes, provenance and atomic netCDF writes.
+
+Attributes are flat strings and numbers (netCDF rejects nested dicts).  Provenance attached to
+every output: package version, the study file's own text, the resolved parameters, seed,
+integrator, dt, κ, the Péclet number and its convention.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import datetime as _dt
+import json
+import os
+import sys
+import tempfile
+from pathlib import Path
+
+from . import __version__
+from .errors import EddyhopError
+
+CONVENTIONS = "CF-1.10"
+
+
+def units_for(length_unit: str, time_unit: str):
+    """Function mapping symbolic units ("L2", "T-1", "L2 T-1", "Lq", "1") to unit strings."""
+
+    def power(unit, exponent):
+        if unit == "1":
+            return ""
+        return unit if exponent == 1 else f"{unit}{exponent}"
+
+    def units(symbol: str) -> str:
+        if symbol == "1":
+            return "1"
+        if symbol == "Lq":
+            return "1" if length_unit == "1" else f"{length_unit}^order"
+        parts = []
+        for token in symbol.split():
+            base, exponent = token[0], int(token[1:] or 1)
+            parts.append(power(length_unit if base == "L" else time_unit, exponent))
+        text = " ".join(p for p in parts if p)
+        return text or "1"
+
+    return units
+
+
+def _flat(prefix: str, values: dict) -> dict:
+    out = {}
+    for key, value in values.items():
+        name = f"{prefix}_{key}"
+        if isinstance(value, bool):
+            out[name] = int(value)
+        elif isinstance(value, (int, float, str)):
+            out[name] = value
+        elif value is None:
+            out[name] = "none"
+        else:
+            out[name] = json.dumps(value)
+    return out
+
+
+def provenance_attrs(study, kind: str, extra: dict | None = None) -> dict:
+    """Global attributes: CF header plus full provenance of ``study``."""
+    from .noise import PECLET_DEFINITIONS
+
+    now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+    command = " ".join([Path(sys.argv[0]).name, *sys.argv[1:]]) if sys.argv else "python"
+    family = study.flow.model
+    attrs = {
+        "Conventions": CONVENTIONS,
+        "title": study.title,
+        "summary": study.description or study.title,
+        "history": f"{now} created by eddyhop {__version__} ({kind}): {command}",
+        "source": f"eddyhop {__version__} {kind} ensemble of tracers advected by a "
+                  f"'{family.name}' flow with molecular diffusion",
+        "comment": "Research estimate from a model flow. Not a validated engineering "
+                   "correlation: for heat or mass transfer in real equipment use validated "
+                   "methods and the applicable codes.",
+        "eddyhop_version": __version__,
+        "eddyhop_kind": kind,
+        "flow_family": family.name,
+        "integrator": study.run.integrator,
+        "dt": study.run.dt,
+        "seed": study.run.seed,
+        "kappa": study.noise.kappa,
+        "noise_model": study.noise.model,
+        "peclet": study.noise.peclet if study.noise.peclet is not None else "inf",
+        "peclet_convention": study.noise.peclet_convention,
+        "peclet_definition": PECLET_DEFINITIONS[study.noise.peclet_convention],
+        "length_scale": "1/k (inverse wavenumber); one eddy has side pi/k",
+        "ito_convention": "Ito: dX = (u + grad kappa) dt + sqrt(2 kappa) dW",
+        "study_file": study.source_path or "none",
+        "study_toml": study.source_text or "none",
+        "study_resolved": json.dumps(study.as_dict(), default=str, sort_keys=True),
+    }
+    attrs.update(_flat("flow", study.flow.params))
+    attrs.update(_flat("run", {k: v for k, v in study.as_dict()["run"].items()}))
+    if extra:
+        attrs.update(extra)
+    return attrs
+
+
+def check_output_path(path) -> Path:
+    """Refuse early (before any computation) a path whose directory does not exist."""
+    path = Path(path)
+    parent = path.parent if str(path.parent) else Path(".")
+    if not parent.exists():
+        raise EddyhopError(f"output directory {str(parent)!r} does not exist; create it first "
+                           f"or choose another --out")
+    if path.is_dir():
+        raise EddyhopError(f"output path {str(path)!r} is a directory; give a file name")
+    return path
+
+
+def write_netcdf(ds, path) -> Path:
+    """Write ``ds`` to ``path`` atomically: a temporary file in the same directory, flushed,
+    then renamed.  An interrupted write leaves no partial file behind."""
+    path = check_output_path(path)
+    handle, temporary = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part",
+                                         dir=path.parent if str(path.parent) else ".")
+    os.close(handle)
+    try:
+        ds.to_netcdf(temporary, engine="netcdf4", format="NETCDF4")
+        with open(temporary, "rb+") as stream:
+            os.fsync(stream.fileno())
+        os.replace(temporary, path)
+    except BaseException:
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(temporary)
+        raise
+    return path
+
+
+def open_result(path):
+    """Open a result file fully into memory (the file is closed afterwards)."""
+    import xarray as xr
+
+    path = Path(path)
+    if not path.exists():
+        raise EddyhopError(f"result file {str(path)!r} does not exist")
+    with xr.open_dataset(path, engine="netcdf4") as ds:
+        return ds.load()

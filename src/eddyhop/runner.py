@@ -1,0 +1,284 @@
+"""Ensemble runner: starts, chunks, seeds, parallel backend and streamed accumulation.
+
+The runner owns parallelism and randomness; the kernel owns the numerics.  Particles are split
+into fixed-size *blocks* (a property of the study, never of the machine) and blocks into
+``run.batches`` contiguous *batches*.  Chunks handed to workers are whole numbers of blocks, and
+block sums are folded into batch sums strictly in block order, so every number in the output is
+bit-identical for any chunk size, worker count or backend.  Memory is O(particles + samples):
+positions exist only for the starts of the current start region, the kernel streams moments.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .errors import BlowUpError
+from .flows.compiled import velocity as _velocity  # noqa: F401  (compiled with the kernel)
+from .integrators import SCHEME_CODES
+from .kernel import AGED_COLUMNS, N_BASE, run_particles
+from .noise import pack_noise
+from .rng import split_seed
+from .schedule import Schedule, build_schedule
+from .starts import area_fraction, sample_starts
+
+MAX_BLOCK = 256
+# Random streams of different start regions are separated by this particle-index offset.
+STREAM_STRIDE = 1 << 40
+
+
+class StepSizeWarning(UserWarning):
+    """dt is large against a time scale of the flow or the noise."""
+
+
+def block_size_for(particles: int, batches: int) -> int:
+    """Particles per block: ≤ 256 and small enough that each batch holds several blocks."""
+    return max(1, min(MAX_BLOCK, particles // (4 * batches)))
+
+
+def step_size_warnings(study) -> list[str]:
+    """Plain-language warnings when dt is large against the run's time scales."""
+    family = study.flow.model
+    params = study.flow.params
+    velocity_scale = family.velocity_scale(params)
+    k = family.wavenumber(params)
+    dt = study.run.dt
+    kappa = study.noise.kappa
+    messages = []
+    if velocity_scale > 0 and dt * velocity_scale * k > 0.1:
+        messages.append(
+            f"run.dt = {dt:g} is {dt * velocity_scale * k:.3g} advective times 1/(U k); keep "
+            "dt·U·k below 0.1 (Euler-type steps distort eddy orbits, biasing D_eff by roughly "
+            "1% per 0.01 of dt·U·k)")
+    if kappa > 0 and dt * kappa * k * k > 0.01:
+        messages.append(
+            f"run.dt = {dt:g} is {dt * kappa * k * k:.3g} cell diffusion times 1/(kappa k^2); "
+            "keep it below 0.01")
+    period = family.time_period(params)
+    if period is not None and dt > period / 50:
+        messages.append(f"run.dt = {dt:g} resolves the flow period {period:.4g} with fewer than "
+                        "50 steps")
+    return messages
+
+
+@dataclass
+class StartSums:
+    """Streamed sums of one start region, folded per batch (plain NumPy data)."""
+
+    label: str
+    kind: str
+    area_fraction: float
+    particles: int
+    batch_counts: np.ndarray  # [B]
+    moments: np.ndarray  # [B, T, C] sums
+    aged: np.ndarray  # [B, A, L, 4] sums
+    tracks: np.ndarray  # [n_tracked, S, 2] positions
+    track_starts: np.ndarray  # [n_tracked, 2]
+    residence_counts: np.ndarray  # [bins]
+    flight_counts: np.ndarray  # [bins]
+    hops: float
+
+
+@dataclass
+class EnsembleResult:
+    schedule: Schedule
+    block_size: int
+    batches: int
+    orders: np.ndarray
+    residence_edges: np.ndarray
+    flight_edges: np.ndarray
+    starts: list = field(default_factory=list)
+    warnings: list = field(default_factory=list)
+
+
+@dataclass
+class _Context:
+    """Everything a chunk needs, shared read-only between threads."""
+
+    fcode: int
+    fp: np.ndarray
+    ncode: int
+    nq: np.ndarray
+    scheme: int
+    dt: float
+    key: tuple
+    schedule: Schedule
+    orders: np.ndarray
+    block_size: int
+    tracked: int
+    hop_on: bool
+    cell: float
+    margin: float
+    gap_steps: int
+    residence_edges: np.ndarray
+    flight_edges: np.ndarray
+
+
+def _log_binning(edges):
+    low = math.log(edges[0])
+    return low, (len(edges) - 1) / (math.log(edges[-1]) - low)
+
+
+def _run_chunk(ctx: _Context, stream_offset: int, first: int, x0, y0):
+    s = ctx.schedule
+    n = x0.size
+    n_blocks = -(-n // ctx.block_size)
+    n_cols = N_BASE + 3 * ctx.orders.size
+    moments = np.zeros((n_blocks, s.out_steps.size, n_cols))
+    aged = np.zeros((n_blocks, s.aging_steps.size, s.lag_steps.size, len(AGED_COLUMNS)))
+    n_tracked_here = max(0, min(ctx.tracked - first, n))
+    tracks = np.zeros((max(n_tracked_here, 0), s.track_steps.size, 2))
+    residence = np.zeros((n_blocks, len(ctx.residence_edges) - 1))
+    flights = np.zeros((n_blocks, len(ctx.flight_edges) - 1))
+    hops = np.zeros(n_blocks)
+    status = np.full(2, -1, dtype=np.int64)
+    res_low, res_inv = _log_binning(ctx.residence_edges)
+    fl_low, fl_inv = _log_binning(ctx.flight_edges)
+    run_particles(
+        ctx.fcode, ctx.fp, ctx.ncode, ctx.nq, ctx.scheme, ctx.dt, ctx.key[0], ctx.key[1],
+        x0, y0, first, stream_offset, ctx.block_size,
+        s.events, s.ev_out, s.ev_track, s.ev_ref, s.aged_ptr, s.aged_a, s.aged_l, ctx.orders,
+        moments, aged, tracks, n_tracked_here,
+        ctx.hop_on, ctx.cell, ctx.margin, ctx.gap_steps, res_low, res_inv, fl_low, fl_inv,
+        residence, flights, hops, status,
+    )
+    return moments, aged, tracks, residence, flights, hops, status
+
+
+def _make_context(study, schedule: Schedule) -> tuple[_Context, np.ndarray, np.ndarray]:
+    family = study.flow.model
+    params = study.flow.params
+    k = family.wavenumber(params)
+    ncode, nq = pack_noise(study.noise, k)
+    run = study.run
+    velocity_scale = family.velocity_scale(params)
+    advective = 1.0 / (velocity_scale * k) if velocity_scale > 0 else run.t_end
+    gap = study.hopping.flight_gap if study.hopping.flight_gap is not None else advective
+    n_bins = study.hopping.bins
+    residence_edges = np.geomspace(run.dt, max(run.t_end, 2 * run.dt), n_bins + 1)
+    cell = family.eddy_size(params)
+    longest = max(10.0, 2.0 * (velocity_scale * run.t_end + 4.0 * math.sqrt(
+        max(study.noise.kappa, 0.0) * run.t_end)) / cell)
+    flight_edges = np.geomspace(0.5, longest, n_bins + 1)
+    key = split_seed(run.seed)
+    ctx = _Context(
+        fcode=family.code, fp=family.pack(params), ncode=ncode, nq=nq,
+        scheme=SCHEME_CODES[run.integrator], dt=run.dt, key=(key[0], key[1]),
+        schedule=schedule, orders=np.asarray(study.moments.orders, dtype=np.float64),
+        block_size=block_size_for(run.particles, run.batches), tracked=run.tracked,
+        hop_on=study.hopping.enabled, cell=cell, margin=study.hopping.margin,
+        gap_steps=max(1, round(gap / run.dt)), residence_edges=residence_edges,
+        flight_edges=flight_edges,
+    )
+    return ctx, residence_edges, flight_edges
+
+
+def _chunks(particles: int, chunk: int, block: int):
+    size = max(block, (chunk // block) * block)
+    return [(first, min(particles, first + size)) for first in range(0, particles, size)]
+
+
+def _parallel_map(function, tasks, workers: int, backend: str):
+    """Ordered results of ``function(*task)``: serial, or joblib threads (the kernel releases
+    the GIL).  Results come back in submission order, which the deterministic fold needs."""
+    if backend == "serial" or workers == 1 or len(tasks) == 1:
+        for task in tasks:
+            yield function(*task)
+        return
+    from joblib import Parallel, delayed
+
+    parallel = Parallel(n_jobs=workers, backend="threading", return_as="generator",
+                        pre_dispatch="2*n_jobs")
+    yield from parallel(delayed(function)(*task) for task in tasks)
+
+
+def run_ensemble(study, *, workers: int | None = None, chunk: int | None = None,
+                 backend: str = "threads", progress: bool | None = None) -> EnsembleResult:
+    """Integrate every start region of ``study`` and return batch-folded sums.
+
+    ``workers``/``chunk`` override the study's run table; results do not depend on either.
+    """
+    run = study.run
+    workers = run.workers if workers is None else workers
+    if workers < 0:
+        import os
+
+        workers = os.cpu_count() or 1
+    chunk = run.chunk if chunk is None else chunk
+    if workers > 1:
+        # enough chunks to keep every worker busy; chunking never changes the numbers
+        chunk = min(chunk, max(1, -(-run.particles // (4 * workers))))
+    show = run.progress if progress is None else progress
+    schedule = build_schedule(run, study.aging, run.track_samples)
+    messages = step_size_warnings(study)
+    for message in messages:
+        warnings.warn(message, StepSizeWarning, stacklevel=2)
+    ctx, residence_edges, flight_edges = _make_context(study, schedule)
+    family = study.flow.model
+    params = study.flow.params
+    n = run.particles
+    block = ctx.block_size
+    n_blocks = -(-n // block)
+    n_batches = min(run.batches, n_blocks)
+    batch_of_block = (np.arange(n_blocks) * n_batches) // n_blocks
+    block_counts = np.full(n_blocks, block, dtype=np.int64)
+    block_counts[-1] = n - block * (n_blocks - 1)
+    batch_counts = np.bincount(batch_of_block, weights=block_counts, minlength=n_batches)
+    result = EnsembleResult(schedule=schedule, block_size=block, batches=n_batches,
+                            orders=ctx.orders, residence_edges=residence_edges,
+                            flight_edges=flight_edges, warnings=messages)
+    bar = None
+    if show:
+        from tqdm.auto import tqdm
+
+        bar = tqdm(total=n * len(study.starts), unit="particle", unit_scale=True,
+                   desc="integrating", leave=False, dynamic_ncols=True)
+    try:
+        for s_index, region in enumerate(study.starts):
+            x0, y0 = sample_starts(region, family, params, n, run.seed, s_index)
+            offset = s_index * STREAM_STRIDE
+            tasks = [(ctx, offset, lo, x0[lo:hi], y0[lo:hi]) for lo, hi in _chunks(n, chunk,
+                                                                                    block)]
+            sums = None
+            tracks = []
+            hops = 0.0
+            for (lo, hi), out in zip(_chunks(n, chunk, block),
+                                     _parallel_map(_run_chunk, tasks, workers, backend)):
+                moments, aged, chunk_tracks, residence, flights, chunk_hops, status = out
+                if status[0] >= 0:
+                    raise BlowUpError(
+                        f"non-finite or runaway position (|x| > 1e150) for particle "
+                        f"{int(status[0]) - offset} of start '{region.label}' at step "
+                        f"{int(status[1])} (t = {int(status[1]) * run.dt:g}) with "
+                        f"run.dt = {run.dt:g}; reduce run.dt or check the flow parameters")
+                if sums is None:
+                    sums = [np.zeros((n_batches, *moments.shape[1:])),
+                            np.zeros((n_batches, *aged.shape[1:])),
+                            np.zeros(residence.shape[1]), np.zeros(flights.shape[1])]
+                first_block = lo // block
+                for b in range(moments.shape[0]):
+                    target = batch_of_block[first_block + b]
+                    sums[0][target] += moments[b]
+                    sums[1][target] += aged[b]
+                    sums[2] += residence[b]
+                    sums[3] += flights[b]
+                    hops += chunk_hops[b]
+                if chunk_tracks.shape[0]:
+                    tracks.append(chunk_tracks)
+                if bar is not None:
+                    bar.update(hi - lo)
+            tracked = (np.concatenate(tracks) if tracks
+                       else np.zeros((0, schedule.track_steps.size, 2)))
+            result.starts.append(StartSums(
+                label=region.label, kind=region.kind,
+                area_fraction=area_fraction(region, family, params), particles=n,
+                batch_counts=batch_counts.astype(float), moments=sums[0], aged=sums[1],
+                tracks=tracked, track_starts=np.stack([x0[:run.tracked], y0[:run.tracked]], 1),
+                residence_counts=sums[2], flight_counts=sums[3], hops=hops))
+    finally:
+        if bar is not None:
+            bar.close()
+    return result
