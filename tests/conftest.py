@@ -1,0 +1,37 @@
+"""Shared test helpers: build studies from small dicts without touching the disk."""
+
+from __future__ import annotations
+
+import copy
+import os
+
+import pytest
+
+os.environ.setdefault("MPLBACKEND", "Agg")
+
+
+def make_study(**sections):
+    """A valid small study; keyword arguments override whole sections or single keys."""
+    from eddyhop.spec import parse_study
+
+    document = {
+        "title": "test study",
+        "flow": {"family": "cellular", "U": 1.0, "k": 1.0},
+        "noise": {"peclet": 10.0},
+        "run": {"particles": 256, "dt": 0.02, "t_end": 2.0, "n_times": 10, "seed": 7,
+                "progress": False},
+    }
+    for name, value in sections.items():
+        if isinstance(value, dict) and isinstance(document.get(name), dict) and not value.get(
+                "_replace"):
+            document[name] = {**document[name], **value}
+        else:
+            document[name] = value
+        if isinstance(document[name], dict):
+            document[name].pop("_replace", None)
+    return parse_study(copy.deepcopy(document))
+
+
+@pytest.fixture
+def study_factory():
+    return make_study
