@@ -37,6 +37,8 @@ from tests.conftest import make_study
         ({"moments": {"orders": [0.0, 2.0]}}, ["moments.orders", "0"]),
         ({"start": {"kind": "nowhere"}}, ["start.kind", "nowhere"]),
         ({"run": {"workers": 0}}, ["run.workers", "0"]),
+        ({"run": {"times": [0.5, 0.2, 1.0]}}, ["run.times", "increasing"]),
+        ({"run": {"times": [0.5, 3.0]}}, ["run.times", "run.t_end"]),
         ({"flow": {"family": "fourier", "U": 1.0, "k": 1.0, "modes": [[0, 0, 1.0, 0.0]],
                    "_replace": True}}, ["flow.modes[0]", "(0, 0)"]),
     ],

@@ -42,10 +42,12 @@ class Schedule:
         return (self.aging_steps[:, None] + self.lag_steps[None, :]) <= total
 
 
-def output_steps(dt, t_end, n_times, spacing, t_first=None) -> np.ndarray:
-    """Step indices of the output grid (log or linear), rounded and de-duplicated."""
+def output_steps(dt, t_end, n_times, spacing, t_first=None, times=()) -> np.ndarray:
+    """Step indices of the output grid (explicit, log or linear), rounded and de-duplicated."""
     last = round(t_end / dt)
-    if spacing == "log":
+    if len(times):
+        times = np.asarray(times, dtype=float)
+    elif spacing == "log":
         first = t_first if t_first is not None else dt
         times = np.geomspace(max(first, dt), last * dt, n_times)
     else:
@@ -58,7 +60,7 @@ def output_steps(dt, t_end, n_times, spacing, t_first=None) -> np.ndarray:
 def build_schedule(run, aging, track_samples: int = 1000) -> Schedule:
     """Event schedule for a run spec and an aging spec (see ``kernel.py``)."""
     dt = run.dt
-    out = output_steps(dt, run.t_end, run.n_times, run.spacing, run.t_first)
+    out = output_steps(dt, run.t_end, run.n_times, run.spacing, run.t_first, run.times)
     last = int(out[-1])
     if run.tracked > 0:
         track = np.unique(np.rint(np.linspace(0, last, min(track_samples, last) + 1))

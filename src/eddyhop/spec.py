@@ -127,6 +127,7 @@ class RunSpec:
     n_times: int = 100
     spacing: str = "log"
     t_first: float | None = None
+    times: tuple = ()  # explicit output times (override n_times/spacing/t_first)
     integrator: str = "euler_maruyama"
     seed: int = 0
     workers: int = 1
@@ -263,6 +264,12 @@ def _parse_run(document, noise: NoiseSpec):
         t_first = _number(table, "t_first", where, low=0.0, low_open=True)
         if t_first >= t_end:
             raise StudyError(f"run.t_first = {t_first:g} must be below run.t_end = {t_end:g}")
+    times = _number_list(table, "times", where, low=0.0, low_open=True)
+    if times:
+        if any(b <= a for a, b in zip(times, times[1:])):
+            raise StudyError(f"run.times = {list(times)} must be strictly increasing")
+        if times[-1] > t_end:
+            raise StudyError(f"run.times ends at {times[-1]:g}, after run.t_end = {t_end:g}")
     default_integrator = "rk4" if noise.kappa == 0.0 else "euler_maruyama"
     integrator = _choice(table, "integrator", where, INTEGRATORS, default_integrator)
     if integrator == "rk4" and noise.kappa != 0.0:
@@ -284,7 +291,7 @@ def _parse_run(document, noise: NoiseSpec):
     if not isinstance(progress, bool):
         raise StudyError(f"run.progress: expected true or false, got {progress!r}")
     return RunSpec(particles=particles, dt=dt, t_end=t_end, n_times=n_times, spacing=spacing,
-                   t_first=t_first, integrator=integrator, seed=seed, workers=workers,
+                   t_first=t_first, times=times, integrator=integrator, seed=seed, workers=workers,
                    chunk=chunk, batches=batches, tracked=min(tracked, particles),
                    track_samples=track_samples, progress=progress)
 
