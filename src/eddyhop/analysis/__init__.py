@@ -1,0 +1,92 @@
+"""Analysis layer: functions Dataset → Dataset deriving what the user came for.
+
+Each function returns only the variables it derives (every one labelled with ``long_name``
+and ``units``); :func:`analyse` runs all that the Dataset supports and returns the input plus
+every derived variable.  Works on Monte Carlo results (with error bars from particle batches)
+and on deterministic reference results (same ``msd``… on ``time``; no error bars), with or
+without a ``start`` dimension.  Knows nothing of numba or the engine.
+"""
+
+from __future__ import annotations
+
+import inspect
+import json
+
+import xarray as xr
+
+from ._common import AnalysisOptionError, merge_into, require
+from .aging import aging
+from .crossovers import crossover_times
+from .deff import ShortRunWarning, effective_diffusivity
+from .exponents import local_exponent
+from .hopping import fit_tails, hopping
+from .moments import displacement_pdf, moment_spectrum
+from .regimes import regimes
+
+# (function, predicate on the Dataset: run it within analyse?)
+STEPS = (
+    (local_exponent, lambda ds: True),
+    (regimes, lambda ds: True),
+    (crossover_times, lambda ds: True),
+    (effective_diffusivity, lambda ds: "msd_x" in ds.variables and "msd_y" in ds.variables),
+    (aging, lambda ds: "aged_msd" in ds.variables or "track_x" in ds.variables),
+    (moment_spectrum, lambda ds: "abs_moment" in ds.variables),
+    (displacement_pdf, lambda ds: "track_x" in ds.variables),
+    (hopping, lambda ds: "residence_count" in ds.variables),
+)
+
+
+def option_names() -> dict[str, list[str]]:
+    """Every option :func:`analyse` accepts → the analyses that use it."""
+    names: dict[str, list[str]] = {}
+    for function, _ in STEPS:
+        for name, parameter in inspect.signature(function).parameters.items():
+            if parameter.kind is inspect.Parameter.KEYWORD_ONLY:
+                names.setdefault(name, []).append(function.__name__)
+    return names
+
+
+def analyse(ds: xr.Dataset, **options) -> xr.Dataset:
+    """``ds`` plus every analysis the Dataset supports (see the module docstring).
+
+    Options are passed to every analysis that takes them (e.g. ``window`` to the local
+    exponent, regimes and crossovers alike); unknown options raise
+    :class:`AnalysisOptionError`.  Re-analysing an analysed Dataset replaces the derived
+    variables.
+    """
+    known = option_names()
+    unknown = sorted(set(options) - set(known))
+    if unknown:
+        raise AnalysisOptionError(f"unknown analysis option(s) {', '.join(unknown)}; "
+                                  f"allowed: {', '.join(sorted(known))}")
+    require(ds, ["time", "msd"], "analyse")
+    out = ds
+    ran = []
+    for function, applies in STEPS:
+        if not applies(ds):
+            continue
+        accepted = inspect.signature(function).parameters
+        kwargs = {k: v for k, v in options.items() if k in accepted}
+        out = merge_into(out, function(ds, **kwargs))
+        ran.append(function.__name__)
+    out.attrs = dict(ds.attrs)
+    out.attrs["analysis_steps"] = " ".join(ran)
+    out.attrs["analysis_options"] = json.dumps(options, default=str, sort_keys=True)
+    return out
+
+
+__all__ = [
+    "AnalysisOptionError",
+    "ShortRunWarning",
+    "aging",
+    "analyse",
+    "crossover_times",
+    "displacement_pdf",
+    "effective_diffusivity",
+    "fit_tails",
+    "hopping",
+    "local_exponent",
+    "moment_spectrum",
+    "option_names",
+    "regimes",
+]
