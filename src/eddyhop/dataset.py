@@ -73,6 +73,9 @@ def _per_start(start, result, units):
         data["abs_moment_x"] = (("order", "time"), abs_moments[:, :, 0].T)
         data["abs_moment_y"] = (("order", "time"), abs_moments[:, :, 1].T)
         data["abs_moment"] = (("order", "time"), abs_moments[:, :, 2].T)
+        batch_abs = batch_mean[:, :, N_BASE:N_BASE + 3 * q].reshape(
+            batch_mean.shape[0], -1, q, 3)[:, :, :, 2]
+        data["batch_abs_moment"] = (("batch", "order", "time"), batch_abs.transpose(0, 2, 1))
     if schedule.aging_steps.size:
         aged = start.aged.sum(axis=0) / n  # [A, L, 4]
         valid = schedule.aged_valid()
@@ -81,6 +84,8 @@ def _per_start(start, result, units):
         data["aged_msd"] = (dims, aged[:, :, 0])
         data["aged_msd_x"] = (dims, aged[:, :, 1])
         data["aged_msd_y"] = (dims, aged[:, :, 2])
+        batch_aged = start.aged[:, :, :, 0] / counts[:, None, None]
+        data["batch_aged_msd"] = (("batch", *dims), np.where(valid[None], batch_aged, np.nan))
         data["aged_msd_se"] = (dims, np.sqrt(np.maximum(aged[:, :, 3] - aged[:, :, 0] ** 2, 0)
                                              / max(n - 1.0, 1.0)))
     if start.tracks.shape[0]:
@@ -122,6 +127,8 @@ VARIABLE_ATTRS = {
     "abs_moment_x": ("absolute moment <|dx|^q>", "Lq"),
     "abs_moment_y": ("absolute moment <|dy|^q>", "Lq"),
     "abs_moment": ("absolute moment <|X(t)-X(0)|^q>", "Lq"),
+    "batch_abs_moment": ("batch mean of |X(t)-X(0)|^q", "Lq"),
+    "batch_aged_msd": ("batch mean of |X(t_a+lag)-X(t_a)|^2", "L2"),
     "aged_msd": ("aged mean-squared displacement <|X(t_a+lag)-X(t_a)|^2>", "L2"),
     "aged_msd_x": ("aged mean-squared displacement along x", "L2"),
     "aged_msd_y": ("aged mean-squared displacement along y", "L2"),
