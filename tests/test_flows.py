@@ -24,13 +24,29 @@ PARAMS = {
     "fourier": {"U": 1.0, "k": 1.0, "modes": [[1, -1, 0.5, 0.0], [1, 1, -0.5, 0.1],
                                              [2, 1, 0.05, -0.2]]},
 }
+# Families whose parameters need data made at test time (a grid file).
+MADE_AT_TEST_TIME = {"gridded"}
+PARAMS["obstacles"] = {"U": 1.0, "k": 1.0, "solid_fraction": 0.2, "resolution": 64}
 ALL = sorted(FAMILIES)
 
 
+@pytest.fixture(scope="module")
+def grid_file(tmp_path_factory):
+    """A cellular flow written on a 64×64 periodic grid (loaded back by the gridded family)."""
+    from eddyhop.flows.grid_file import grid_dataset
+
+    cellular = get_family("cellular")
+    path = tmp_path_factory.mktemp("grid") / "cells.nc"
+    grid_dataset(cellular, cellular.validate({"U": 1.0, "k": 1.0}), 64, length_unit="1").to_netcdf(
+        path)
+    return str(path)
+
+
 @pytest.fixture(params=ALL)
-def family_and_params(request):
+def family_and_params(request, grid_file):
     family = get_family(request.param)
-    return family, family.validate(PARAMS[request.param])
+    values = {"file": grid_file} if request.param == "gridded" else PARAMS[request.param]
+    return family, family.validate(values)
 
 
 def _points(seed=3, n=200):
@@ -39,7 +55,7 @@ def _points(seed=3, n=200):
 
 
 def test_every_family_has_test_parameters():
-    assert set(PARAMS) == set(FAMILIES)
+    assert set(PARAMS) | MADE_AT_TEST_TIME == set(FAMILIES)
 
 
 def test_divergence_free_by_finite_differences(family_and_params):

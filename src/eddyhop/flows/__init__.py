@@ -8,11 +8,14 @@ from .cats_eye import FAMILY as _CATS_EYE
 from .cellular import FAMILY as _CELLULAR
 from .drifting_cellular import FAMILY as _DRIFTING
 from .fourier import FAMILY as _FOURIER
+from .gridded import FAMILY as _GRIDDED
+from .obstacles import FAMILY as _OBSTACLES
 from .oscillating_cellular import FAMILY as _OSCILLATING
 from .shear import FAMILY as _SHEAR
 
 FAMILIES: dict[str, FlowFamily] = {
-    f.name: f for f in (_CELLULAR, _CATS_EYE, _SHEAR, _DRIFTING, _OSCILLATING, _FOURIER)
+    f.name: f for f in (_CELLULAR, _CATS_EYE, _SHEAR, _DRIFTING, _OSCILLATING, _FOURIER,
+                        _GRIDDED, _OBSTACLES)
 }
 
 

@@ -9,7 +9,16 @@ from __future__ import annotations
 import numpy as np
 
 from .._jit import jit
-from . import cats_eye, cellular, drifting_cellular, fourier, oscillating_cellular, shear
+from . import (
+    cats_eye,
+    cellular,
+    drifting_cellular,
+    fourier,
+    gridded,
+    obstacles,
+    oscillating_cellular,
+    shear,
+)
 
 
 @jit
@@ -24,6 +33,10 @@ def velocity(code, x, y, t, p):
         return drifting_cellular.velocity(x, y, t, p)
     if code == 4:
         return oscillating_cellular.velocity(x, y, t, p)
+    if code == 6:
+        return gridded.velocity(x, y, t, p)
+    if code == 7:
+        return obstacles.velocity(x, y, t, p)
     return fourier.velocity(x, y, t, p)
 
 
@@ -39,6 +52,10 @@ def psi(code, x, y, t, p):
         return drifting_cellular.psi(x, y, t, p)
     if code == 4:
         return oscillating_cellular.psi(x, y, t, p)
+    if code == 6:
+        return gridded.psi(x, y, t, p)
+    if code == 7:
+        return obstacles.psi(x, y, t, p)
     return fourier.psi(x, y, t, p)
 
 
@@ -54,7 +71,23 @@ def gradient(code, x, y, t, p):
         return drifting_cellular.gradient(x, y, t, p)
     if code == 4:
         return oscillating_cellular.gradient(x, y, t, p)
+    if code == 6:
+        return gridded.gradient(x, y, t, p)
+    if code == 7:
+        return obstacles.gradient(x, y, t, p)
     return fourier.gradient(x, y, t, p)
+
+
+@jit
+def confine(code, x_old, y_old, x, y, p):
+    """End point of a step from (x_old, y_old) to (x, y) after the family's solid walls.
+
+    Identity for families without walls (one predictable branch); obstacle lattices mirror an
+    end point that entered a cylinder back into the fluid (see ``obstacles.confine``).
+    """
+    if code == 7:
+        return obstacles.confine(x_old, y_old, x, y, p)
+    return x, y
 
 
 @jit
