@@ -208,10 +208,16 @@ class Study:
 
 
 # ---- parsing ---------------------------------------------------------------------------------
-def _parse_flow(document):
+def _parse_flow(document, source_path=""):
     table = dict(_table(document, "flow"))
     if "family" not in table:
         raise StudyError("flow.family is required")
+    data_file = table.get("file")
+    if isinstance(data_file, str) and source_path and not Path(data_file).is_absolute():
+        # a data file named in a study is looked up next to the study file first
+        beside = Path(source_path).resolve().parent / data_file
+        if beside.exists():
+            table["file"] = str(beside)
     family = get_family(table.pop("family"))
     return FlowSpec(family=family.name, params=family.validate(table, "flow"))
 
@@ -357,7 +363,7 @@ def parse_study(document: dict, source_text: str = "", source_path: str = "") ->
     if version != SCHEMA_VERSION:
         raise StudyError(f"study.schema_version = {version!r} is not supported; this version of "
                          f"eddyhop reads schema_version = {SCHEMA_VERSION}")
-    flow = _parse_flow(document)
+    flow = _parse_flow(document, source_path)
     noise = _parse_noise(document, flow)
     run = _parse_run(document, noise)
     starts = parse_starts(document.get("start", {"kind": "uniform"}), flow)
