@@ -117,7 +117,7 @@ def test_ctrl_c_leaves_no_file(tmp_path):
                                text=True)
     time.sleep(8)
     process.send_signal(signal.SIGINT)
-    _, stderr = process.communicate(timeout=240)
+    _, _stderr = process.communicate(timeout=240)
     assert process.returncode != 0
     assert not out.exists()
     assert not list(tmp_path.glob("*.part"))

@@ -62,9 +62,8 @@ def test_rk4_orbit_period_matches_elliptic_integral():
     streamline (e.g. Soward 1987, J. Fluid Mech. 180, 267–295, for the cellular-flow orbits).
     The period is read from the unwrapped angle about the eddy centre, linearly interpolated
     between samples of spacing 0.01, so the tolerance is 1e-4 relative."""
-    from tests.conftest import make_study
-
     import eddyhop
+    from tests.conftest import make_study
 
     x0 = 0.9  # eddy centre at (π/2, π/2)
     study = make_study(

@@ -123,6 +123,10 @@ def write_netcdf(ds, path) -> Path:
         ds.to_netcdf(temporary, engine="netcdf4", format="NETCDF4")
         with open(temporary, "rb+") as stream:
             os.fsync(stream.fileno())
+        # mkstemp creates 0600; give the result the permissions a plain open() would
+        mask = os.umask(0)
+        os.umask(mask)
+        os.chmod(temporary, 0o666 & ~mask)
         os.replace(temporary, path)
     except BaseException:
         with contextlib.suppress(FileNotFoundError):

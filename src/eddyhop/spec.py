@@ -6,6 +6,7 @@ keys are errors.  The spec is plain data: it knows nothing of kernels, runners o
 
 from __future__ import annotations
 
+import itertools
 import math
 import sys
 from dataclasses import asdict, dataclass, field, fields
@@ -272,7 +273,7 @@ def _parse_run(document, noise: NoiseSpec):
             raise StudyError(f"run.t_first = {t_first:g} must be below run.t_end = {t_end:g}")
     times = _number_list(table, "times", where, low=0.0, low_open=True)
     if times:
-        if any(b <= a for a, b in zip(times, times[1:])):
+        if any(b <= a for a, b in itertools.pairwise(times)):
             raise StudyError(f"run.times = {list(times)} must be strictly increasing")
         if times[-1] > t_end:
             raise StudyError(f"run.times ends at {times[-1]:g}, after run.t_end = {t_end:g}")
@@ -371,7 +372,7 @@ def parse_study(document: dict, source_text: str = "", source_path: str = "") ->
     if "sweep" in document:
         from .sweep import parse_sweep
 
-        sweep = parse_sweep(_table(document, "sweep"), document)
+        sweep = parse_sweep(_table(document, "sweep"), document, source_path)
     return Study(
         title=_text(document, "title", "study", "untitled study"),
         description=_text(document, "description", "study", ""),

@@ -25,7 +25,7 @@ def command(result, show_attrs):
     click.echo("  variables:")
     for name, var in ds.data_vars.items():
         units = var.attrs.get("units", "")
-        click.echo(f"    {name:<24} {str(var.dims):<28} [{units}] "
+        click.echo(f"    {name:<24} {var.dims!s:<28} [{units}] "
                    f"{var.attrs.get('long_name', '')}")
     if show_attrs:
         click.echo("  attributes:")

@@ -2,9 +2,8 @@
 
 from __future__ import annotations
 
-import numpy as np
-
 import click
+import numpy as np
 
 
 def _slope(ds, name):

@@ -77,20 +77,22 @@ class FourierModes(FlowFamily):
             if not isinstance(mode, list) or len(mode) != 4:
                 raise StudyError(f"{label} = {mode!r}: expected [m, n, c, s]")
             m, n, c, s = mode
-            if not all(isinstance(v, int) and not isinstance(v, bool) for v in (m, n)):
+            if not all(isinstance(v, (int, float)) and not isinstance(v, bool)
+                       and float(v).is_integer() for v in (m, n)):
                 raise StudyError(f"{label}: mode numbers m, n must be integers, got {m!r}, {n!r}")
+            m, n = int(m), int(n)
             if m == 0 and n == 0:
                 raise StudyError(f"{label}: the mode (0, 0) is a constant and carries no flow")
             if not all(isinstance(v, (int, float)) and math.isfinite(v) for v in (c, s)):
                 raise StudyError(f"{label}: amplitudes c, s must be finite numbers")
-            clean.append([float(m), float(n), float(c), float(s)])
+            clean.append([m, n, float(c), float(s)])
         checked["modes"] = clean
         return checked
 
     def pack(self, values):
         modes = values["modes"]
         head = [values["U"], values["k"], float(len(modes))]
-        return np.array(head + [v for mode in modes for v in mode], dtype=np.float64)
+        return np.array(head + [float(v) for mode in modes for v in mode], dtype=np.float64)
 
 
 FAMILY = FourierModes(
