@@ -1,0 +1,32 @@
+"""``eddyhop report``: one self-contained HTML report of a result or sweep file."""
+
+from __future__ import annotations
+
+import click
+
+from .common import friendly_errors
+
+
+@click.command("report")
+@click.argument("result", type=click.Path(dir_okay=False))
+@click.option("--out", "-o", type=click.Path(dir_okay=False), default="report.html",
+              show_default=True, help="HTML file to write (atomically).")
+@click.option("--figure", "-f", "names", multiple=True,
+              help="Restrict the report to these figures (repeatable). [default: all]")
+@click.option("--no-analyse", is_flag=True,
+              help="Do not analyse an unanalysed file in memory (faster; omits regimes, "
+                   "crossovers and D_eff).")
+@friendly_errors
+def command(result, out, names, no_analyse):
+    """Write one HTML file about RESULT (a run, analysed run or merged sweep).
+
+    \b
+    Figures are embedded in the page, so the file can be mailed or archived
+    alone.  It holds the study parameters, regimes and crossover times, D_eff
+    with confidence intervals, warnings (large dt, too-short run) and
+    provenance.  Example:  eddyhop report lattice.nc --out lattice.html
+    """
+    from ..report import write_report
+
+    path = write_report(result, out, figures=list(names) or None, analyse=not no_analyse)
+    click.echo(f"wrote {path}")

@@ -1,0 +1,75 @@
+"""Regime intervals and crossover times of an analysed Dataset, drawn on a time axis.
+
+Reads ``regime_label``, ``regime_start``, ``regime_end`` (dimension ``regime``, padded with ""
+and NaN when start regions have different numbers of regimes) and, when present,
+``crossover_time`` (dimension ``crossover``), as written by ``eddyhop analyse``.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+# Light tints, one per regime class (pale versions of the Okabe–Ito colours).
+TINTS = {
+    "subdiffusive": "#cfe3f3",
+    "diffusive": "#cdeee3",
+    "superdiffusive": "#fbe6c2",
+    "ballistic": "#f6d3c0",
+    "super_ballistic": "#eedbe7",
+}
+REGIME_VARIABLES = ("regime_label", "regime_start", "regime_end")
+
+
+def has_regimes(ds) -> bool:
+    return all(n in ds.variables for n in REGIME_VARIABLES)
+
+
+def regimes_of(ds, start=None):
+    """List of (label, first time, last time) of one start region's regimes, in time order."""
+    if not has_regimes(ds):
+        return []
+    part = ds.sel(start=start) if start is not None and "start" in ds["regime_label"].dims \
+        else ds
+    labels = np.atleast_1d(part["regime_label"].values)
+    first = np.atleast_1d(part["regime_start"].values).astype(float)
+    last = np.atleast_1d(part["regime_end"].values).astype(float)
+    if labels.ndim > 1:  # several starts but none chosen: the first one
+        labels, first, last = labels[0], first[0], last[0]
+    return [(str(a), float(b), float(c)) for a, b, c in zip(labels, first, last)
+            if str(a) and math.isfinite(b) and math.isfinite(c)]
+
+
+def crossovers_of(ds, start=None):
+    if "crossover_time" not in ds.variables:
+        return np.zeros(0)
+    part = ds.sel(start=start) if start is not None and "start" in ds["crossover_time"].dims \
+        else ds
+    values = np.atleast_1d(part["crossover_time"].values).astype(float)
+    if values.ndim > 1:
+        values = values[0]
+    return values[np.isfinite(values) & (values > 0)]
+
+
+def shade(ax, ds, start=None):
+    """Shade one start region's regimes as vertical bands and mark its crossover times with
+    dotted lines.  Returns the band artists (their labels name the regime classes, so a legend
+    built from them lists each class once)."""
+    regimes = regimes_of(ds, start)
+    bands = []
+    seen = set()
+    for index, (name, first, last) in enumerate(regimes):
+        left = first if index == 0 else math.sqrt(regimes[index - 1][2] * first)
+        right = last if index == len(regimes) - 1 else math.sqrt(last * regimes[index + 1][1])
+        band = ax.axvspan(left, right, color=TINTS.get(name, "#eeeeee"), alpha=0.7, lw=0,
+                          zorder=0, label=name.replace("_", "-") if name not in seen else None)
+        seen.add(name)
+        band.set_gid(f"regime_{index}_{name}")
+        bands.append(band)
+    crossings = crossovers_of(ds, start)
+    for index, value in enumerate(crossings):
+        line = ax.axvline(value, color="#444444", lw=0.8, ls=(0, (1, 2)), zorder=1,
+                          label="crossover time" if index == 0 else None)
+        line.set_gid("crossover")
+    return bands

@@ -1,0 +1,559 @@
+"""One self-contained HTML report of a result or a merged sweep.
+
+``write_report(source, out)`` renders every figure the Dataset supports as an embedded base64
+PNG (no external file, script, font or style sheet is referenced), with the study parameters,
+the regimes and crossover times, D_eff with confidence intervals, warnings (step size, run
+length), provenance and the research-estimate caution.  The report only reads a Dataset; when
+the Dataset has not been analysed and the analysis package is available, it analyses a copy in
+memory and says so.
+"""
+
+from __future__ import annotations
+
+import base64
+import contextlib
+import datetime as _dt
+import html
+import io
+import json
+import os
+import tempfile
+import warnings
+from pathlib import Path
+
+import numpy as np
+
+from . import __version__
+from .errors import EddyhopError
+
+CAUTION = ("Research estimate from an idealised model flow. These numbers are not a validated "
+           "engineering correlation and are not for the design of real equipment: for heat or "
+           "mass transfer in real plant, use validated methods and the applicable local codes "
+           "and standards.")
+
+STYLE = """
+body{font-family:system-ui,-apple-system,"Segoe UI",sans-serif;margin:0 auto;max-width:1100px;
+padding:1.2em 1.6em;color:#1b1b1b;line-height:1.45}
+h1{font-size:1.45em;margin-bottom:.2em}h2{font-size:1.15em;border-bottom:1px solid #ccc;
+padding-bottom:.2em;margin-top:1.8em}
+.meta{color:#555;font-size:.9em}
+.caution{border-left:5px solid #D55E00;background:#fff4ec;padding:.6em 1em;margin:1em 0}
+.warnings{border-left:5px solid #E69F00;background:#fffaea;padding:.6em 1em}
+.ok{border-left:5px solid #009E73;background:#effaf6;padding:.6em 1em}
+table{border-collapse:collapse;margin:.6em 0;font-size:.92em}
+th,td{border:1px solid #d0d0d0;padding:.25em .6em;text-align:left;vertical-align:top}
+th{background:#f2f4f7}td.num{text-align:right;font-variant-numeric:tabular-nums}
+figure{margin:1.2em 0;border:1px solid #e3e3e3;padding:.6em;background:#fff}
+figure img{max-width:100%;height:auto;display:block;margin:0 auto}
+figcaption{color:#444;font-size:.9em;margin-top:.4em}
+pre{background:#f6f8fa;padding:.7em;overflow-x:auto;font-size:.85em}
+nav a{margin-right:1em}
+"""
+
+
+# ---- small helpers ---------------------------------------------------------------------------
+def _e(value) -> str:
+    return html.escape(str(value), quote=True)
+
+
+def _number(value, digits: int = 4) -> str:
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        return _e(value)
+    if not np.isfinite(number):
+        return "n/a"
+    return f"{number:.{digits}g}"
+
+
+def _table(header, rows, numeric_from: int = 1) -> str:
+    head = "".join(f"<th>{_e(h)}</th>" for h in header)
+    body = []
+    for row in rows:
+        cells = []
+        for i, cell in enumerate(row):
+            css = ' class="num"' if i >= numeric_from else ""
+            cells.append(f"<td{css}>{cell}</td>")
+        body.append("<tr>" + "".join(cells) + "</tr>")
+    return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+
+
+def _png(figure, dpi: int = 110) -> str:
+    buffer = io.BytesIO()
+    figure.savefig(buffer, format="png", dpi=dpi, metadata={"Software": f"eddyhop {__version__}"})
+    return base64.b64encode(buffer.getvalue()).decode("ascii")
+
+
+def _study(ds) -> dict:
+    """The resolved study of a run, or for a merged sweep its base study document (the
+    ``[[start]]`` tables normalised to a ``starts`` list)."""
+    for key in ("study_resolved", "sweep_base_study"):
+        text = ds.attrs.get(key)
+        if not text:
+            continue
+        try:
+            study = json.loads(text)
+        except ValueError:
+            continue
+        if "starts" not in study and "start" in study:
+            starts = study.pop("start")
+            study["starts"] = starts if isinstance(starts, list) else [starts]
+        return study
+    return {}
+
+
+def _starts(ds) -> list:
+    if "start" in ds.dims:
+        return [str(v) for v in ds["start"].values]
+    return [None]
+
+
+def _part(ds, start):
+    return ds if start is None else ds.sel(start=start)
+
+
+def _start_name(ds, start) -> str:
+    if start is not None:
+        return start
+    return str(ds["start"].values) if "start" in ds.coords else "ensemble"
+
+
+# ---- warnings --------------------------------------------------------------------------------
+def late_slope(time, msd) -> float:
+    """Least-squares log-log slope of ``msd`` over the last half-decade of ``time``."""
+    time = np.asarray(time, dtype=float)
+    msd = np.asarray(msd, dtype=float)
+    good = np.isfinite(msd) & (msd > 0) & (time > 0)
+    time, msd = time[good], msd[good]
+    if time.size < 3:
+        return float("nan")
+    tail = time >= time[-1] / 10**0.5
+    if tail.sum() < 3:
+        tail = np.arange(time.size) >= time.size - 3
+    return float(np.polyfit(np.log(time[tail]), np.log(msd[tail]), 1)[0])
+
+
+def run_warnings(ds) -> list[str]:
+    """Plain-language warnings: step size (recorded at run time), run length, sweep notes.
+
+    Run length: from the analysis's ``deff_converged`` flag when present (Var Δx + Var Δy must
+    grow linearly over the D_eff window), otherwise from the late log-log slope of the spread
+    computed here (a stricter test: an offset left by the early transient also fails it).
+    """
+    messages = []
+    for key, prefix in (("step_size_warnings", "Large time step: "), ("sweep_warnings", "")):
+        text = str(ds.attrs.get(key, "none") or "none")
+        if text != "none":
+            messages += [f"{prefix}{m.strip()}" for m in text.split(" | ") if m.strip()]
+    if "deff_converged" in ds.variables:
+        flags = ds["deff_converged"]
+        ratios = ds["deff_slope_ratio"] if "deff_slope_ratio" in ds.variables else None
+        values = np.asarray(flags.values)
+        for index in np.argwhere(values == 0) if values.ndim else \
+                ([()] if values == 0 else []):
+            index = tuple(index)
+            where = ", ".join(f"{dim} = {_short(ds[dim].values[i]) if dim in ds.coords else i}"
+                              for dim, i in zip(flags.dims, index)) or "this run"
+            ratio = "" if ratios is None else (
+                f" (growth rate of var_x + var_y in the late half of the window over the "
+                f"early half: {float(ratios.values[index]):.2f}, not 1)")
+            messages.append(f"Run too short at {where}: the spread has not reached linear "
+                            f"growth over the D_eff fit window{ratio}, so D_eff is not yet a "
+                            "long-time limit; increase run.t_end.")
+    elif "msd" in ds and "time" in ds.coords and set(ds["msd"].dims) <= {"time", "start"}:
+        spread = (ds["var_x"] + ds["var_y"]) if "var_x" in ds and "var_y" in ds else ds["msd"]
+        for start in _starts(ds):
+            slope = late_slope(ds["time"].values, _part(spread, start).values)
+            if np.isfinite(slope) and abs(slope - 1.0) > 0.1:
+                messages.append(
+                    f"Run may be too short for start '{_start_name(ds, start)}': the spread "
+                    f"(var_x + var_y) still grows as t^{slope:.2f} over the last half-decade "
+                    f"of time, not as t^1, so the long-time effective-diffusion regime is not "
+                    f"reached; increase run.t_end.")
+    return messages
+
+
+def _short(value) -> str:
+    try:
+        return f"{float(value):.4g}"
+    except (TypeError, ValueError):
+        return str(value)
+
+
+# ---- sections --------------------------------------------------------------------------------
+def _parameters_section(ds) -> str:
+    study = _study(ds)
+    attrs = ds.attrs
+    rows = [
+        ("title", _e(attrs.get("title", ""))),
+        ("flow family", _e(attrs.get("flow_family", "?"))),
+    ]
+    from .plots.sweep import flow_parameters
+
+    flow = study.get("flow", {}).get("params") or flow_parameters(ds)[1]
+    for name, value in flow.items():
+        rows.append((f"flow.{name}", _e(value) if isinstance(value, list) else _number(value)))
+    if attrs.get("kappa") is not None:
+        rows.append(("molecular diffusivity κ", _number(attrs.get("kappa"))))
+    peclet = attrs.get("peclet")
+    rows += [
+        ("Péclet number", f"{_number(peclet) if peclet is not None else 'swept'} "
+                          f"({_e(attrs.get('peclet_definition', ''))}, "
+                          f"{_e(attrs.get('peclet_convention', ''))} convention)"),
+        ("noise model", _e(attrs.get("noise_model", ""))),
+        ("SDE convention", _e(attrs.get("ito_convention", ""))),
+        ("integrator", _e(attrs.get("integrator", ""))),
+        ("time step dt", _number(attrs.get("dt"))),
+    ]
+    run = study.get("run", {})
+    for key in ("particles", "t_end", "n_times", "spacing", "seed", "batches", "tracked"):
+        if key in run:
+            rows.append((f"run.{key}", _number(run[key]) if not isinstance(run[key], str)
+                         else _e(run[key])))
+    for region in study.get("starts", []):
+        extra = ", ".join(f"{k} = {_number(v)}" for k, v in region.items()
+                          if k not in ("kind", "label"))
+        rows.append((f"start '{_e(region.get('label', region.get('kind', 'uniform')))}'",
+                     _e(region.get("kind", "")) + (f": {extra}" if extra else "")))
+    aging = study.get("aging", {})
+    if aging.get("times"):
+        rows.append(("aging times t_a", ", ".join(_number(t) for t in aging["times"])))
+    if study.get("hopping", {}).get("enabled"):
+        rows.append(("cell hopping", f"counted, margin {_number(study['hopping']['margin'])} "
+                                     "of the eddy side"))
+    from .plots.sweep import sweep_dimension
+
+    dim = sweep_dimension(ds)
+    if dim is not None:
+        values = ", ".join(_number(v) for v in np.atleast_1d(ds[dim].values))
+        rows.append((f"swept: {dim}", values))
+    body = "".join(f"<tr><th>{_e(k)}</th><td>{v}</td></tr>" for k, v in rows)
+    return f"<h2 id='parameters'>Study parameters</h2><table><tbody>{body}</tbody></table>"
+
+
+def _results_section(ds) -> str:
+    """Per start region: particles, final MSD, late slope; then regimes, crossovers, D_eff."""
+    parts = ["<h2 id='results'>Results</h2>"]
+    if "msd" in ds and "time" in ds.coords and set(ds["msd"].dims) <= {"time", "start"}:
+        t_end = float(ds["time"].values[-1])
+        rows = []
+        for start in _starts(ds):
+            part = _part(ds, start)
+            msd = part["msd"].values
+            se = part["msd_se"].values[-1] if "msd_se" in part else np.nan
+            rows.append((_e(_start_name(ds, start)),
+                         _number(part["n_particles"].values) if "n_particles" in part else "",
+                         f"{_number(msd[-1])} ± {_number(se, 2)}",
+                         _number(late_slope(part["time"].values, msd), 3)))
+        parts.append(_table(("start region", "particles", f"MSD at t = {t_end:g} (± 1 SE)",
+                             "late log-log slope of the MSD"), rows)
+                     + "<p class='meta'>The log-log slope tends to 1 in the diffusive regime, "
+                       "but only as fast as the offset left by the early transient becomes "
+                       "negligible; the D_eff table's last column tests linear growth "
+                       "directly.</p>")
+    parts.append(regimes_html(ds))
+    parts.append(crossovers_html(ds))
+    parts.append(deff_html(ds))
+    parts.append(scaling_html(ds))
+    return "".join(p for p in parts if p)
+
+
+# ---- analysis tables -------------------------------------------------------------------------
+ANALYSED_MARKERS = ("alpha", "regime_label", "D_xx")
+
+
+def is_analysed(ds) -> bool:
+    """True when the Dataset already holds the analysis outputs the report shows."""
+    return any(name in ds.variables for name in ANALYSED_MARKERS)
+
+
+def _units(ds, name) -> str:
+    units = ds[name].attrs.get("units", "") if name in ds.variables else ""
+    return "" if units in ("", "1") else f" [{units}]"
+
+
+def _with_error(value, se) -> str:
+    text = _number(value)
+    if se is not None and np.isfinite(float(se)):
+        text += f" ± {_number(se, 2)}"
+    return text
+
+
+def regimes_html(ds) -> str:
+    """Table of the analysed regimes of each start region (empty for a sweep)."""
+    if "regime_label" not in ds.variables or _is_sweep(ds):
+        return ""
+    rows = []
+    for start in _starts(ds):
+        part = _part(ds, start)
+        labels = np.atleast_1d(part["regime_label"].values)
+        for i, label in enumerate(labels):
+            if not str(label):
+                continue
+            se = part["regime_alpha_se"].values[i] if "regime_alpha_se" in part else None
+            rows.append((_e(_start_name(ds, start)), _e(label),
+                         _number(part["regime_start"].values[i]),
+                         _number(part["regime_end"].values[i]),
+                         _with_error(part["regime_alpha"].values[i], se)))
+    if not rows:
+        return "<h3>Regimes</h3><p>No regime was identified.</p>"
+    units = _units(ds, "regime_start")
+    note = str(ds["regime_label"].attrs.get("tolerances", ""))
+    return ("<h3>Regimes</h3>" + _table(("start region", "regime", f"from t{units}",
+                                         f"to t{units}", "mean α (± SE)"), rows, 2)
+            + (f"<p class='meta'>Classes by the local exponent α: {_e(note)}.</p>"
+               if note else ""))
+
+
+def crossovers_html(ds) -> str:
+    """Table of crossover times, in model time and in the flow's natural time units."""
+    if "crossover_time" not in ds.variables or _is_sweep(ds):
+        return ""
+    natural = [(n, text) for n, text in (
+        ("crossover_time_advective", "t·U·k"),
+        ("crossover_time_diffusive", "t·κk²"),
+        ("crossover_time_boundary_layer", "t·κk²Pe^½")) if n in ds.variables]
+    rows = []
+    for start in _starts(ds):
+        part = _part(ds, start)
+        values = np.atleast_1d(part["crossover_time"].values)
+        for i, value in enumerate(values):
+            if not np.isfinite(float(value)):
+                continue
+            se = part["crossover_time_se"].values[i] if "crossover_time_se" in part else None
+            row = [_e(_start_name(ds, start)),
+                   _e(f"{part['crossover_from'].values[i]} → {part['crossover_to'].values[i]}")
+                   if "crossover_from" in part else str(i),
+                   _with_error(value, se)]
+            row += [_number(part[n].values[i]) for n, _ in natural]
+            rows.append(row)
+    if not rows:
+        return "<h3>Crossover times</h3><p>No crossover (a single regime).</p>"
+    header = ["start region", "crossover", f"t_c{_units(ds, 'crossover_time')} (± SE)"]
+    header += [text for _, text in natural]
+    return "<h3>Crossover times</h3>" + _table(header, rows, 2)
+
+
+def _scalar(part, name):
+    if name not in part.variables:
+        return None
+    return float(np.asarray(part[name].values).ravel()[0])
+
+
+def deff_html(ds) -> str:
+    """D_xx, D_yy, D_xy, D_eff with confidence intervals, per start (or per swept value)."""
+    if "D_xx" not in ds.variables:
+        return ""
+    from .plots.sweep import sweep_dimension
+
+    dim = sweep_dimension(ds)
+    confidence = ""
+    lower_attrs = ds["D_xx_lower"].attrs if "D_xx_lower" in ds.variables else {}
+    long_name = str(lower_attrs.get("long_name", ""))
+    if "%" in long_name:
+        confidence = long_name.split("the ", 1)[-1].split(" confidence")[0] + " "
+    rows = []
+    keys = []
+    if dim is None:
+        keys = [(start, _part(ds, start), _e(_start_name(ds, start))) for start in _starts(ds)]
+    else:
+        for value in np.atleast_1d(ds[dim].values):
+            selected = ds.sel({dim: value})
+            for start in _starts(selected):
+                name = f"{dim} = {_number(value)}"
+                if start is not None:
+                    name += f", start {start}"
+                keys.append((start, _part(selected, start), _e(name)))
+    for _start, part, name in keys:
+        kappa = _scalar(part, "kappa")
+        if kappa is None:
+            try:
+                kappa = float(ds.attrs.get("kappa"))
+            except (TypeError, ValueError):
+                kappa = float("nan")
+        row = [name]
+        for component in ("D_xx", "D_yy", "D_xy", "D_eff"):
+            value = _scalar(part, component)
+            low = _scalar(part, f"{component}_lower")
+            high = _scalar(part, f"{component}_upper")
+            if value is None:
+                row.append("")
+                continue
+            text = _number(value)
+            if low is not None and high is not None and np.isfinite(low) and np.isfinite(high):
+                text += f" [{_number(low)}, {_number(high)}]"
+            row.append(text)
+        d_eff = _scalar(part, "D_eff")
+        row.append(_number(d_eff / kappa) if d_eff is not None and kappa and kappa > 0 else "")
+        converged = _scalar(part, "deff_converged")
+        row.append("" if converged is None else ("yes" if converged == 1 else
+                                                 "<b>no — run too short</b>"))
+        rows.append(row)
+    units = _units(ds, "D_xx")
+    header = ["", f"D_xx{units}", f"D_yy{units}", f"D_xy{units}", f"D_eff{units}", "D_eff/κ",
+              "diffusive regime reached"]
+    return (f"<h3>Effective diffusivity (estimate [{_e(confidence)}confidence interval])</h3>"
+            + _table(header, rows)
+            + "<p class='meta'>Long-time slopes of the displacement covariance over the late "
+              "window; D_eff = (D_xx + D_yy)/2.</p>")
+
+
+def scaling_html(ds) -> str:
+    """Power-law fits against Pe of a merged sweep (``*_exponent`` with bounds)."""
+    rows = []
+    for name in ("D_xx", "D_yy", "D_eff", "crossover_time"):
+        key = f"{name}_exponent"
+        if key not in ds.variables or ds[key].ndim:
+            continue
+        low = ds[f"{key}_lower"].values if f"{key}_lower" in ds.variables else np.nan
+        high = ds[f"{key}_upper"].values if f"{key}_upper" in ds.variables else np.nan
+        rows.append((_e(ds[key].attrs.get("long_name", key)),
+                     f"{_number(ds[key].values, 3)} [{_number(low, 3)}, {_number(high, 3)}]",
+                     _e(ds[key].attrs.get("reference", ""))))
+    if not rows:
+        return ""
+    return "<h3>Scaling with the Péclet number</h3>" + _table(
+        ("fit", "exponent [confidence interval]", "reference"), rows, 1)
+
+
+def _figures_section(ds, names=None) -> tuple[str, list[str]]:
+    from .plots.catalogue import FIGURES, figures_for
+
+    blocks = []
+    included = []
+    for name, figure in figures_for(ds, names):
+        data = _png(figure)
+        description = FIGURES[name][2]
+        blocks.append(
+            f"<figure id='fig-{_e(name)}' data-figure='{_e(name)}'>"
+            f"<img alt='{_e(description)}' src='data:image/png;base64,{data}'>"
+            f"<figcaption><b>{_e(name)}</b>: {_e(description)}</figcaption></figure>")
+        included.append(name)
+        figure.clear()
+    if not blocks:
+        return "<h2 id='figures'>Figures</h2><p>No figure applies to this Dataset.</p>", []
+    return "<h2 id='figures'>Figures</h2>" + "".join(blocks), included
+
+
+def _provenance_section(ds, source_name) -> str:
+    attrs = ds.attrs
+    rows = [(k, _e(attrs[k])) for k in ("eddyhop_version", "eddyhop_kind", "history", "seed",
+                                         "integrator", "study_file", "Conventions")
+            if k in attrs]
+    if source_name:
+        rows.insert(0, ("input file", _e(source_name)))
+    body = "".join(f"<tr><th>{_e(k)}</th><td>{v}</td></tr>" for k, v in rows)
+    toml = attrs.get("study_toml", "")
+    every = "".join(f"<tr><th>{_e(k)}</th><td>{_e(str(v)[:2000])}</td></tr>"
+                    for k, v in attrs.items() if k not in ("study_toml", "study_resolved"))
+    resolved = attrs.get("study_resolved", "")
+    if resolved:
+        try:
+            resolved = json.dumps(json.loads(resolved), indent=2, sort_keys=True)
+        except ValueError:
+            pass
+    return (f"<h2 id='provenance'>Provenance</h2><table><tbody>{body}</tbody></table>"
+            + (f"<details><summary>Study file as run</summary><pre>{_e(toml)}</pre></details>"
+               if toml and toml != "none" else "")
+            + (f"<details><summary>Resolved study (every default filled in)</summary>"
+               f"<pre>{_e(resolved)}</pre></details>" if resolved else "")
+            + f"<details><summary>All global attributes</summary><table><tbody>{every}"
+              f"</tbody></table></details>")
+
+
+# ---- assembly --------------------------------------------------------------------------------
+def maybe_analyse(ds):
+    """(Dataset, note): analyse a copy in memory when ``ds`` has no analysis outputs yet."""
+    if is_analysed(ds):
+        return ds, ""
+    try:
+        from .analysis import analyse
+    except ImportError:
+        return ds, ("This file has not been analysed and the analysis package is not "
+                    "available; regimes, crossovers and D_eff are omitted.")
+    try:
+        with warnings.catch_warnings():
+            # what the analysis warns about (a too-short run) is reported from its flags
+            warnings.simplefilter("ignore")
+            analysed = analyse(ds)
+        return analysed, ("This file had not been analysed; the report analysed it in "
+                          "memory with default settings (`eddyhop analyse` writes the "
+                          "analysed file).")
+    except EddyhopError as exc:
+        return ds, f"The analysis could not run on this file: {exc}"
+
+
+def build_report(ds, *, source_name: str | None = None, figures=None,
+                 analyse: bool = True) -> str:
+    """The HTML text of the report of ``ds`` (a result or a merged sweep Dataset)."""
+    note = ""
+    if analyse:
+        ds, note = maybe_analyse(ds)
+    warnings_list = run_warnings(ds)
+    if warnings_list:
+        warn_html = ("<div class='warnings'><b>Warnings</b><ul>"
+                     + "".join(f"<li>{_e(m)}</li>" for m in warnings_list) + "</ul></div>")
+    else:
+        warn_html = ("<div class='ok'><b>Warnings</b>: none — the time step is small against "
+                     "the flow's time scales and the spread grows linearly at the end of the "
+                     "run.</div>")
+    figures_html, included = _figures_section(ds, figures)
+    now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    title = ds.attrs.get("title", "eddyhop result")
+    kind = "sweep" if _is_sweep(ds) else "result"
+    body = [
+        f"<h1>{_e(title)}</h1>",
+        f"<p class='meta'>eddyhop {__version__} {kind} report · generated {now}"
+        + (f" · from {_e(source_name)}" if source_name else "") + "</p>",
+        "<nav><a href='#parameters'>Parameters</a><a href='#results'>Results</a>"
+        "<a href='#figures'>Figures</a><a href='#provenance'>Provenance</a></nav>",
+        f"<div class='caution' id='caution'><b>Caution.</b> {_e(CAUTION)}</div>",
+        f"<h2 id='warnings'>Warnings</h2>{warn_html}",
+        f"<p class='meta'>{_e(note)}</p>" if note else "",
+        _parameters_section(ds),
+        _results_section(ds),
+        figures_html,
+        _provenance_section(ds, source_name),
+    ]
+    figure_list = ",".join(included)
+    return ("<!DOCTYPE html>\n<html lang='en'><head><meta charset='utf-8'>"
+            "<meta name='viewport' content='width=device-width, initial-scale=1'>"
+            f"<meta name='generator' content='eddyhop {__version__}'>"
+            f"<meta name='eddyhop-figures' content='{_e(figure_list)}'>"
+            f"<title>{_e(title)} — eddyhop report</title><style>{STYLE}</style></head>"
+            f"<body>{''.join(body)}</body></html>\n")
+
+
+def _is_sweep(ds) -> bool:
+    from .plots.sweep import sweep_dimension
+
+    return sweep_dimension(ds) is not None
+
+
+def write_report(source, out, *, figures=None, analyse: bool = True) -> Path:
+    """Write the report of ``source`` (a Dataset or a netCDF path) to ``out`` atomically."""
+    from .io import check_output_path, open_result
+    from .plots._style import default_mode
+
+    out = check_output_path(out)
+    source_name = None
+    if isinstance(source, (str, os.PathLike)):
+        source_name = Path(source).name
+        ds = open_result(source)
+    else:
+        ds = source
+    text = build_report(ds, source_name=source_name, figures=figures, analyse=analyse)
+    parent = out.parent if str(out.parent) else Path(".")
+    handle, temporary = tempfile.mkstemp(prefix=f".{out.name}.", suffix=".part", dir=parent)
+    try:
+        with os.fdopen(handle, "w", encoding="utf-8") as stream:
+            stream.write(text)
+            stream.flush()
+            os.fsync(stream.fileno())
+        os.chmod(temporary, default_mode())
+        os.replace(temporary, out)
+    except BaseException:
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(temporary)
+        raise
+    return out
