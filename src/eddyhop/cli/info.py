@@ -20,7 +20,12 @@ def command(result, show_attrs):
     click.echo(f"{result}: eddyhop {ds.attrs.get('eddyhop_version', '?')} "
                f"({ds.attrs.get('eddyhop_kind', '?')})")
     click.echo("  dimensions: " + ", ".join(f"{k}={v}" for k, v in ds.sizes.items()))
-    if "time" in ds.coords and "msd" in ds:
+    if ds.attrs.get("eddyhop_kind") == "sweep":
+        swept = [d for d in ds.dims if d in ds.coords and d not in ("time", "batch", "order",
+                                                                    "lag", "aging_time")]
+        click.echo("  sweep over: " + ", ".join(f"{d} ({ds.sizes[d]})" for d in swept))
+    elif "time" in ds.coords and "msd" in ds and isinstance(ds.attrs.get("kappa"),
+                                                            (int, float)):
         print_summary(ds)
     click.echo("  variables:")
     for name, var in ds.data_vars.items():

@@ -1,0 +1,80 @@
+"""``eddyhop merge``: combine the points of a sweep folder into one netCDF file."""
+
+from __future__ import annotations
+
+import click
+
+from .common import friendly_errors
+
+
+@click.command("merge")
+@click.argument("folder", type=click.Path(file_okay=False))
+@click.option("--out", "-o", type=click.Path(dir_okay=False), required=True,
+              help="netCDF file to write (atomically).")
+@click.option("--no-analysis", is_flag=True,
+              help="Do not add derived quantities (D_eff, crossovers, regimes) per point.")
+@click.option("--fit-peclet", nargs=2, type=float, default=None, metavar="LOW HIGH",
+              help="Péclet range of the scaling fits. [default: every point]")
+@friendly_errors
+def command(folder, out, no_analysis, fit_peclet):
+    """Merge the sweep in FOLDER into one Dataset with the swept parameters as
+    dimensions (coordinates with units) and derived quantities per point.
+
+    \b
+    Every point file is checked against its manifest checksum first.  For a
+    sweep over noise.peclet, a scaling summary is printed (exponent of D/kappa
+    against Pe with its confidence interval; crossover times against the
+    advective, boundary-layer and diffusive time scales) and stored in the file.
+    Example:  eddyhop merge pan/ --out pan_sweep.nc
+    """
+    from ..io import check_output_path, write_netcdf
+    from ..sweep import merge_sweep
+
+    check_output_path(out)
+    ds = merge_sweep(folder, analyse=not no_analysis, peclet_range=fit_peclet)
+    write_netcdf(ds, out)
+    counts = (ds.attrs["sweep_points_done"], ds.attrs["sweep_points_failed"],
+              ds.attrs["sweep_points"])
+    click.echo(f"wrote {out}: {counts[0]} of {counts[2]} points ({counts[1]} failed); "
+               "dimensions " + ", ".join(f"{k}={v}" for k, v in ds.sizes.items()))
+    if ds.attrs.get("sweep_warnings", "none") != "none":
+        for message in ds.attrs["sweep_warnings"].split(" | "):
+            click.secho(f"warning: {message}", fg="yellow", err=True)
+    if "peclet" in ds.dims:
+        print_scaling(ds)
+
+
+def print_scaling(summary):
+    """Exponents with confidence intervals, one line per fitted quantity and start/slice."""
+    import numpy as np
+
+    from ..sweeps.scaling import nearest_scale
+
+    fitted = str(summary.attrs.get("scaling_fits", "")).split()
+    if not fitted:
+        click.echo("  scaling: " + summary.attrs.get("scaling_note", "no fitted exponents"))
+        return
+    click.echo("  scaling across Pe (95% confidence intervals):")
+    for name in fitted:
+        exponent = summary[f"{name}_exponent"]
+        lower = summary[f"{name}_exponent_lower"].values
+        upper = summary[f"{name}_exponent_upper"].values
+        points = summary[f"{name}_fit_points"].values
+        what = f"{name}/kappa" if name.startswith("D") else name
+        for index in np.ndindex(exponent.shape):
+            value = float(exponent.values[index])
+            if not np.isfinite(value):
+                continue
+            parts = []
+            for d, i in zip(exponent.dims, index):
+                if d == "transition":
+                    parts.append(str(exponent[d].values[i]))
+                elif d in exponent.coords:
+                    parts.append(f"{d}={exponent[d].values[i]}")
+                else:
+                    parts.append(f"{d}[{i}]")
+            line = (f"    {what} ~ Pe^{value:.3f} [{lower[index]:.3f}, {upper[index]:.3f}]"
+                    f"  ({', '.join(parts) + ', ' if parts else ''}{int(points[index])} points)")
+            if name.startswith("crossover"):
+                line += "; " + nearest_scale(value, lower[index], upper[index])
+            click.echo(line)

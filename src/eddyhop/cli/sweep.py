@@ -1,0 +1,90 @@
+"""``eddyhop sweep``: run every point of a study's [sweep] table into a folder (resumable)."""
+
+from __future__ import annotations
+
+import click
+
+from .common import friendly_errors, progress_option
+
+
+@click.command("sweep")
+@click.argument("study", type=click.Path(dir_okay=False))
+@click.option("--out", "-o", "out", type=click.Path(file_okay=False), required=True,
+              help="Sweep folder: one netCDF per point, the manifest and the merged file.")
+@click.option("--backend", type=click.Choice(["auto", "serial", "processes", "dask"]),
+              default="auto", show_default=True,
+              help="Where points run. auto: dask if a scheduler address is known, else local "
+                   "processes when there are several points and cores, else serial.")
+@click.option("--jobs", "-j", type=int, default=None,
+              help="Local worker processes (points at once). [default: every core]")
+@click.option("--scheduler", default=None, metavar="tcp://HOST:PORT",
+              help="Dask scheduler to send points to. [default: $DASK_SCHEDULER_ADDRESS]")
+@click.option("--workers", "-w", type=int, default=None,
+              help="Threads per point. [default: run.workers when serial, else 1]")
+@click.option("--merged", type=click.Path(dir_okay=False), default=None,
+              help="Where to write the merged Dataset. [default: OUT/sweep.nc]")
+@click.option("--no-merge", is_flag=True, help="Do not merge at the end.")
+@click.option("--retry-failed/--keep-failed", default=True, show_default=True,
+              help="Recompute points that failed in an earlier run.")
+@click.option("--timeout", type=float, default=10.0, show_default=True,
+              help="Seconds to wait for a Dask scheduler and its workers.")
+@click.option("--dry-run", is_flag=True, help="List the points and exit.")
+@progress_option
+@friendly_errors
+def command(study, out, backend, jobs, scheduler, workers, merged, no_merge, retry_failed,
+            timeout, dry_run, progress):
+    """Run the parameter sweep of STUDY (a study file with a [sweep] table).
+
+    \b
+    Every point is a plain study run with the same seed, written to
+    OUT/points/<id>.nc; OUT/sweep-manifest.json records each point's
+    parameters, status, file and sha256.  Re-running the same command
+    skips completed points and recomputes interrupted, failed or damaged
+    ones, so a killed sweep resumes with identical results.  A folder
+    holding another study's sweep is refused.
+    Example:  eddyhop sweep studies/sweep_pan_rolls.toml --out pan/ -j 2
+    """
+    from ..spec import load_study
+    from ..sweep import run_sweep
+
+    spec = load_study(study)
+    if dry_run:
+        _print_plan(spec)
+        return
+    try:
+        report = run_sweep(spec, out, backend=backend, jobs=jobs, scheduler=scheduler,
+                           workers=workers, progress=progress, retry_failed=retry_failed,
+                           merge_to=None if no_merge else (merged or "default"),
+                           timeout=timeout)
+    except KeyboardInterrupt:
+        click.secho(f"interrupted: completed points are kept in {out}; run the same command "
+                    "again to resume", fg="red", err=True)
+        raise SystemExit(130) from None
+    click.echo(f"sweep {report.directory}: {report.n_points} points; computed "
+               f"{len(report.computed)}, already complete {len(report.skipped)}, failed "
+               f"{len(report.failed)} ({report.backend}, {report.slots} at a time, "
+               f"{report.seconds:.1f} s)")
+    for point_id, reason in report.redo_reasons.items():
+        click.echo(f"  redone {point_id}: {reason}")
+    for point_id, error in report.failed.items():
+        click.secho(f"  failed {point_id}: {error}", fg="red", err=True)
+    if report.merged is not None:
+        from ..io import open_result
+        from .merge import print_scaling
+
+        click.echo(f"wrote {report.merged}")
+        merged = open_result(report.merged)
+        if "peclet" in merged.dims:
+            print_scaling(merged)
+    if report.failed:
+        raise SystemExit(1)
+
+
+def _print_plan(study):
+    sweep = study.sweep
+    if sweep is None:
+        raise click.ClickException(f"{study.source_path} has no [sweep] table")
+    click.echo(f"{study.source_path}: {sweep.n_points} points ({sweep.combine} of "
+               + ", ".join(f"{a.address} ×{len(a.values)}" for a in sweep.axes) + ")")
+    for point in sweep.points():
+        click.echo(f"  {point.id}  {point.describe(sweep.axes)}")

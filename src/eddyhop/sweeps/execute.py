@@ -1,0 +1,250 @@
+"""Running a sweep: every point once, resumable, on any backend, with one progress bar.
+
+The parent process is the only writer of the sweep folder: workers receive a point's study
+document and return its Dataset; the parent writes the point file atomically, records its
+sha256 and status in the manifest (itself rewritten atomically after every change) and, at the
+end, merges the points.  A run killed at any moment therefore leaves a folder from which a new
+run continues: complete points (file present, checksum matching) are never run again,
+interrupted or damaged ones are recomputed, and because every point is a plain study with a
+fixed seed, the merged result is bit-identical to an uninterrupted run.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import copy
+import json
+import os
+import socket
+import time
+import traceback
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from ..errors import EddyhopError
+from .manifest import Manifest, folder_lock, sha256_file
+
+MERGED_NAME = "sweep.nc"
+
+
+def compute_point(payload: dict) -> dict:
+    """Simulate one sweep point (in any process) and return an outcome dict.
+
+    Errors of the point itself (a blow-up, an invalid value) are returned, not raised, so a
+    worker never takes other points down with it.
+    """
+    started = time.perf_counter()
+    try:
+        from ..api import simulate
+        from ..runner import StepSizeWarning
+        from ..spec import parse_study
+
+        study = parse_study(payload["document"], source_text=payload["source_text"],
+                            source_path=payload["source_path"])
+        with warnings.catch_warnings():
+            # recorded per point by the parent (step_size_warnings) instead of printed here
+            warnings.simplefilter("ignore", StepSizeWarning)
+            ds = simulate(study, workers=payload["workers"], progress=False)
+        return {"ok": True, "dataset": ds, "seconds": time.perf_counter() - started,
+                "host": socket.gethostname(), "pid": os.getpid()}
+    except Exception as exc:
+        return {"ok": False, "error": f"{type(exc).__name__}: {exc}",
+                "traceback": traceback.format_exc(limit=6),
+                "seconds": time.perf_counter() - started}
+
+
+def warm_kernels(document: dict) -> float:
+    """Compile (or load) the numba kernels once in this process so that the on-disk cache is
+    warm before worker processes start; returns the seconds spent.  Kernels are compiled per
+    argument types, which do not depend on the flow, noise or scheme, so a tiny run of the
+    first point suffices."""
+    from ..api import simulate
+    from ..runner import StepSizeWarning
+    from ..spec import parse_study
+
+    started = time.perf_counter()
+    tiny = copy.deepcopy(document)
+    run = tiny.setdefault("run", {})
+    dt = run.get("dt", 0.01)
+    for key in ("t_first", "n_times", "spacing"):
+        run.pop(key, None)
+    run.update(particles=8, t_end=4 * dt, n_times=2, workers=1, progress=False)
+    tiny.pop("aging", None)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", StepSizeWarning)
+        simulate(parse_study(tiny), workers=1, progress=False)
+    return time.perf_counter() - started
+
+
+@dataclass
+class SweepReport:
+    """What a ``run_sweep`` call did (ids are point ids, see the manifest)."""
+
+    directory: Path
+    n_points: int
+    backend: str = "serial"
+    slots: int = 1
+    computed: list = field(default_factory=list)
+    skipped: list = field(default_factory=list)
+    failed: dict = field(default_factory=dict)
+    redo_reasons: dict = field(default_factory=dict)
+    merged: Path | None = None
+    seconds: float = 0.0
+    warm_seconds: float = 0.0
+    point_seconds: list = field(default_factory=list)
+
+    @property
+    def complete(self) -> bool:
+        return not self.failed and len(self.computed) + len(self.skipped) == self.n_points
+
+
+def _prepare_folder(out) -> Path:
+    directory = Path(out)
+    if directory.exists() and not directory.is_dir():
+        raise EddyhopError(f"--out {str(directory)!r} is a file; a sweep writes a folder")
+    if not directory.exists():
+        parent = directory.parent if str(directory.parent) else Path(".")
+        if not parent.is_dir():
+            raise EddyhopError(f"cannot create sweep folder {str(directory)!r}: "
+                               f"{str(parent)!r} does not exist")
+        directory.mkdir()
+    return directory
+
+
+def run_sweep(study, out, *, backend: str = "auto", jobs: int | None = None,
+              scheduler: str | None = None, workers: int | None = None,
+              progress: bool | None = None, retry_failed: bool = True,
+              merge_to="default", timeout: float = 10.0) -> SweepReport:
+    """Run (or resume) every point of ``study``'s sweep into folder ``out``.
+
+    ``backend``: ``serial``, ``processes`` (local processes through joblib/loky, ``jobs`` of
+    them), ``dask`` (cluster at ``scheduler`` or ``$DASK_SCHEDULER_ADDRESS``) or ``auto``.
+    ``workers`` is the number of threads per point (default: the study's ``run.workers`` for
+    serial runs, 1 when points run in parallel).  ``merge_to``: path of the merged Dataset,
+    ``"default"`` for ``out/sweep.nc``, ``None`` for no merge.  ``timeout`` (s) bounds the wait
+    for a Dask scheduler.  None of these options changes any number.
+    """
+    from ..runner import step_size_warnings
+    from ..spec import Study, load_study
+    from .backends import make_pool
+
+    started = time.perf_counter()
+    if not isinstance(study, Study):
+        study = load_study(study)
+    spec = study.sweep
+    if spec is None:
+        raise EddyhopError(f"study {study.source_path or study.title!r} has no [sweep] table; "
+                           "run it with `eddyhop run`, or add a [sweep] table (see "
+                           "docs/sweeps.md)")
+    directory = _prepare_folder(out)
+    points = spec.points()
+    report = SweepReport(directory=directory, n_points=len(points))
+    show = study.run.progress if progress is None else progress
+    with folder_lock(directory):
+        manifest = Manifest.open_for_sweep(directory, spec, spec.fingerprint(), study)
+        manifest.remove_stale_temporaries()
+        todo = manifest.reconcile(retry_failed=retry_failed)
+        manifest.save()
+        report.redo_reasons = {k: v for k, v in todo.items() if v != "not yet computed"}
+        report.skipped = [p.id for p in points if p.id not in todo
+                          and manifest.entry(p.id)["status"] == "done"]
+        report.failed = {p.id: manifest.entry(p.id)["error"] for p in points
+                         if p.id not in todo and manifest.entry(p.id)["status"] == "failed"}
+        queue = [p for p in points if p.id in todo]
+        if queue:
+            pool = make_pool(backend, jobs=jobs, scheduler=scheduler, n_todo=len(queue),
+                             timeout=timeout)
+            report.backend, report.slots = pool.name, pool.slots
+            try:
+                if hasattr(pool, "start"):
+                    pool.start()
+                if pool.name != "serial":
+                    report.warm_seconds = warm_kernels(spec.point_document(queue[0]))
+                threads = workers if workers is not None else (
+                    study.run.workers if pool.name == "serial" else 1)
+                _dispatch(pool, queue, spec, study, manifest, report, threads, show,
+                          step_size_warnings)
+            finally:
+                pool.close()
+        if merge_to is not None and manifest.counts()["done"]:
+            from ..io import write_netcdf
+            from .merge import merge_sweep
+
+            target = directory / MERGED_NAME if merge_to == "default" else Path(merge_to)
+            write_netcdf(merge_sweep(directory), target)
+            report.merged = target
+    report.seconds = time.perf_counter() - started
+    return report
+
+
+def _dispatch(pool, queue, spec, study, manifest, report, threads, show, step_warnings):
+    """Keep ``pool.slots`` points running; record each outcome as it arrives."""
+    bar = None
+    if show:
+        from tqdm.auto import tqdm
+
+        bar = tqdm(total=report.n_points, initial=report.n_points - len(queue), unit="point",
+                   desc="sweep", dynamic_ncols=True, smoothing=0.1)
+    waiting = list(queue)
+    running = {}
+    n_failed = len(report.failed)
+
+    def show_state():
+        if bar is not None:
+            bar.set_postfix_str(f"running {len(running)}, failed {n_failed}", refresh=False)
+
+    try:
+        while waiting or running:
+            while waiting and len(running) < pool.slots:
+                point = waiting.pop(0)
+                document = spec.point_document(point)
+                payload = {"document": document, "source_text": study.source_text,
+                           "source_path": study.source_path, "workers": threads}
+                manifest.mark_running(point.id)
+                manifest.save()
+                running[point.id] = point
+                pool.submit((point.index, point.id), compute_point, payload)
+                show_state()
+                if bar is not None:
+                    bar.refresh()
+            (_, point_id), outcome = pool.next_done()
+            point = running.pop(point_id)
+            if outcome["ok"]:
+                ds = outcome["dataset"]
+                ds.attrs.update({
+                    "sweep_point": point.id,
+                    "sweep_parameters": json.dumps(point.values),
+                    "sweep_fingerprint": manifest.data["fingerprint"],
+                })
+                from ..io import write_netcdf
+
+                path = write_netcdf(ds, manifest.point_path(point.id))
+                messages = step_warnings(spec.point_study(point))
+                manifest.mark_done(point.id, path, sha256_file(path), outcome["seconds"],
+                                   messages)
+                report.computed.append(point.id)
+                report.point_seconds.append(outcome["seconds"])
+                report.failed.pop(point.id, None)
+            else:
+                manifest.mark_failed(point.id, outcome["error"], outcome["seconds"])
+                report.failed[point.id] = outcome["error"]
+                n_failed += 1
+                if bar is not None:
+                    bar.write(f"point {point.id} ({point.describe(spec.axes)}) failed: "
+                              f"{outcome['error']}")
+            manifest.save()
+            show_state()
+            if bar is not None:
+                bar.update(1)
+    except BaseException:
+        # interrupted (Ctrl-C, an I/O error): running points go back to pending
+        pool.cancel()
+        for point_id in running:
+            manifest.mark_pending(point_id)
+        with contextlib.suppress(Exception):
+            manifest.save()
+        raise
+    finally:
+        if bar is not None:
+            bar.close()

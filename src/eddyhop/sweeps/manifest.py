@@ -1,0 +1,284 @@
+"""The sweep folder and its manifest: point → parameters, status, file, checksum.
+
+Layout of a sweep folder ``DIR``::
+
+    DIR/sweep-manifest.json   the manifest (JSON, rewritten atomically after every change)
+    DIR/points/pt0000.nc      one netCDF file per completed point (written atomically)
+    DIR/sweep.nc              the merged Dataset (written at the end of a sweep by default)
+    DIR/.sweep-lock           held (flock) by the one process allowed to write the folder
+
+The manifest records the study's *fingerprint* (``SweepSpec.fingerprint``): a folder whose
+manifest carries another fingerprint belongs to another study and is refused, never overwritten.
+A point counts as complete only when its file exists and its sha256 matches the manifest; a
+file that was changed or damaged afterwards is recomputed.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import datetime as _dt
+import hashlib
+import json
+import os
+import tempfile
+from pathlib import Path
+
+from ..errors import EddyhopError
+
+MANIFEST_NAME = "sweep-manifest.json"
+POINTS_DIR = "points"
+LOCK_NAME = ".sweep-lock"
+FORMAT = "eddyhop sweep manifest"
+FORMAT_VERSION = 1
+STATUSES = ("pending", "running", "done", "failed")
+
+
+def now() -> str:
+    return _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+
+
+def sha256_file(path) -> str:
+    digest = hashlib.sha256()
+    with open(path, "rb") as stream:
+        for block in iter(lambda: stream.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
+
+
+def atomic_write_text(path: Path, text: str) -> None:
+    """Write ``text`` to ``path`` through a flushed temporary file and a rename."""
+    handle, temporary = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
+    try:
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(temporary, 0o666 & ~umask)  # an ordinary file, not mkstemp's private mode
+        with os.fdopen(handle, "w", encoding="utf-8") as stream:
+            stream.write(text)
+            stream.flush()
+            os.fsync(stream.fileno())
+        os.replace(temporary, path)
+    except BaseException:
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(temporary)
+        raise
+
+
+@contextlib.contextmanager
+def folder_lock(directory: Path):
+    """Exclusive lock on a sweep folder; released by the kernel even after SIGKILL."""
+    try:
+        import fcntl
+    except ImportError:  # pragma: no cover - not POSIX: no locking
+        yield
+        return
+    stream = open(directory / LOCK_NAME, "a+")
+    try:
+        try:
+            fcntl.flock(stream.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError:
+            raise EddyhopError(f"another eddyhop sweep is writing to {str(directory)!r} "
+                               "(its lock is held); wait for it to finish or stop it") from None
+        yield
+    finally:
+        stream.close()
+
+
+def _refuse_foreign(directory: Path) -> None:
+    ours = {LOCK_NAME, MANIFEST_NAME}
+    others = sorted(p.name for p in directory.iterdir() if p.name not in ours)
+    if others:
+        shown = ", ".join(others[:5]) + (" …" if len(others) > 5 else "")
+        raise EddyhopError(f"{str(directory)!r} is not empty ({shown}) and holds no sweep "
+                           "manifest: refusing to write there so as not to overwrite results "
+                           "that may belong to someone else; choose a new or empty folder")
+
+
+class Manifest:
+    """In-memory manifest of a sweep folder; ``save`` writes it atomically."""
+
+    def __init__(self, directory: Path, data: dict):
+        self.directory = Path(directory)
+        self.data = data
+        self._by_id = {e["id"]: e for e in data["points"]}
+
+    # ---- reading and creating ----------------------------------------------------------------
+    @property
+    def path(self) -> Path:
+        return self.directory / MANIFEST_NAME
+
+    @classmethod
+    def read(cls, directory) -> Manifest:
+        """Read the manifest of an existing sweep folder (for merging and inspection)."""
+        directory = Path(directory)
+        path = directory / MANIFEST_NAME
+        if not directory.is_dir():
+            raise EddyhopError(f"sweep folder {str(directory)!r} does not exist")
+        if not path.exists():
+            raise EddyhopError(f"{str(directory)!r} holds no {MANIFEST_NAME}; it is not a sweep "
+                               "folder (make one with `eddyhop sweep STUDY --out DIR`)")
+        try:
+            data = json.loads(path.read_text(encoding="utf-8"))
+        except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+            raise EddyhopError(f"{str(path)!r} is not a readable sweep manifest ({exc}); "
+                               "refusing to touch the folder") from None
+        if not isinstance(data, dict) or data.get("format") != FORMAT:
+            raise EddyhopError(f"{str(path)!r} is not an eddyhop sweep manifest; refusing to "
+                               "touch the folder")
+        if data.get("format_version") != FORMAT_VERSION:
+            raise EddyhopError(f"{str(path)!r} has manifest format version "
+                               f"{data.get('format_version')!r}; this eddyhop reads "
+                               f"version {FORMAT_VERSION}")
+        return cls(directory, data)
+
+    @classmethod
+    def open_for_sweep(cls, directory, spec, fingerprint: str, study) -> Manifest:
+        """The manifest of ``directory`` for this sweep: created if the folder is new or
+        empty, checked against the fingerprint if it exists.  Call with the folder lock held."""
+        directory = Path(directory)
+        if (directory / MANIFEST_NAME).exists():
+            manifest = cls.read(directory)
+            manifest._check_same_study(spec, fingerprint, study)
+            return manifest
+        _refuse_foreign(directory)
+        points = [{"id": p.id, "index": p.index, "parameters": p.values, "status": "pending",
+                   "file": None, "sha256": None, "attempts": 0, "seconds": None,
+                   "finished": None, "error": None, "warnings": []} for p in spec.points()]
+        from .. import __version__
+
+        data = {
+            "format": FORMAT,
+            "format_version": FORMAT_VERSION,
+            "fingerprint": fingerprint,
+            "eddyhop_version": __version__,
+            "created": now(),
+            "updated": now(),
+            "title": study.title,
+            "description": study.description,
+            "study_file": study.source_path or "",
+            "study_toml": study.source_text or "",
+            "base_document": spec.base_document(),
+            "combine": spec.combine,
+            "dims": list(spec.dims),
+            "shape": list(spec.shape),
+            "axes": [a.as_dict() for a in spec.axes],
+            "peclet_convention": study.noise.peclet_convention,
+            "length_unit": study.output.length_unit,
+            "time_unit": study.output.time_unit,
+            "points": points,
+        }
+        (directory / POINTS_DIR).mkdir(exist_ok=True)
+        manifest = cls(directory, data)
+        manifest.save()
+        return manifest
+
+    def _check_same_study(self, spec, fingerprint: str, study) -> None:
+        if self.data.get("fingerprint") == fingerprint:
+            return
+        mine = [a.as_dict() for a in spec.axes]
+        theirs = self.data.get("axes")
+        if theirs != mine or self.data.get("combine") != spec.combine:
+            reason = ("its swept parameters differ: "
+                      + "; ".join(f"{a['address']} = {_brief(a['values'])}" for a in theirs or [])
+                      + f" ({self.data.get('combine')}) there, versus "
+                      + "; ".join(f"{a['address']} = {_brief(a['values'])}" for a in mine)
+                      + f" ({spec.combine}) here")
+        else:
+            from .. import __version__
+
+            reason = ("the swept parameters match but the fixed (un-swept) parameters of the "
+                      "study differ")
+            if self.data.get("eddyhop_version") != __version__:
+                reason += (f", or the eddyhop version ({self.data.get('eddyhop_version')} there, "
+                           f"{__version__} here)")
+        raise EddyhopError(
+            f"{str(self.directory)!r} holds the results of a different study "
+            f"('{self.data.get('title', '?')}' from {self.data.get('study_file') or '?'}, "
+            f"started {self.data.get('created', '?')}): {reason}. Refusing to overwrite them; "
+            "choose another --out folder")
+
+    # ---- points ------------------------------------------------------------------------------
+    @property
+    def points(self) -> list[dict]:
+        return self.data["points"]
+
+    def entry(self, point_id: str) -> dict:
+        return self._by_id[point_id]
+
+    def point_path(self, point_id: str) -> Path:
+        return self.directory / POINTS_DIR / f"{point_id}.nc"
+
+    def counts(self) -> dict:
+        out = dict.fromkeys(STATUSES, 0)
+        for e in self.points:
+            out[e["status"]] += 1
+        return out
+
+    def remove_stale_temporaries(self) -> int:
+        """Delete half-written temporary files left by a killed run (ours only: '.*.part')."""
+        removed = 0
+        for folder in (self.directory, self.directory / POINTS_DIR):
+            if not folder.is_dir():
+                continue
+            for path in folder.glob(".*.part"):
+                with contextlib.suppress(FileNotFoundError):
+                    path.unlink()
+                    removed += 1
+        return removed
+
+    def reconcile(self, retry_failed: bool = True) -> dict[str, str]:
+        """Decide what to (re)compute: ``{point id: reason}``.  A 'done' point stays done only
+        if its file exists with the recorded checksum; 'running' points were interrupted."""
+        todo = {}
+        for e in self.points:
+            status = e["status"]
+            if status == "done":
+                path = self.directory / e["file"] if e.get("file") else None
+                if path is None or not path.exists():
+                    todo[e["id"]] = "its file is missing"
+                elif sha256_file(path) != e["sha256"]:
+                    todo[e["id"]] = "its file fails the checksum (changed or damaged)"
+            elif status == "running":
+                todo[e["id"]] = "it was interrupted"
+            elif status == "failed":
+                if retry_failed:
+                    todo[e["id"]] = "it failed before"
+            else:
+                todo[e["id"]] = "not yet computed"
+        for point_id, reason in todo.items():
+            e = self.entry(point_id)
+            if e["status"] == "done":
+                e["error"] = f"recomputed: {reason}"
+                e["status"] = "pending"
+            elif e["status"] == "running":
+                e["status"] = "pending"
+        return todo
+
+    def mark_running(self, point_id: str) -> None:
+        e = self.entry(point_id)
+        e["status"] = "running"
+        e["attempts"] += 1
+
+    def mark_done(self, point_id: str, path: Path, checksum: str, seconds: float,
+                  warnings: list) -> None:
+        e = self.entry(point_id)
+        e.update(status="done", file=path.relative_to(self.directory).as_posix(),
+                 sha256=checksum, seconds=seconds, finished=now(), error=None,
+                 warnings=list(warnings))
+
+    def mark_failed(self, point_id: str, error: str, seconds: float | None) -> None:
+        e = self.entry(point_id)
+        e.update(status="failed", file=None, sha256=None, seconds=seconds, finished=now(),
+                 error=error)
+
+    def mark_pending(self, point_id: str) -> None:
+        self.entry(point_id)["status"] = "pending"
+
+    def save(self) -> None:
+        self.data["updated"] = now()
+        atomic_write_text(self.path, json.dumps(self.data, indent=1, allow_nan=False) + "\n")
+
+
+def _brief(values) -> str:
+    values = list(values)
+    text = ", ".join(f"{v:.4g}" if isinstance(v, float) else str(v) for v in values[:4])
+    return f"[{text}{', …' if len(values) > 4 else ''}] ({len(values)} values)"

@@ -1,0 +1,303 @@
+"""Scaling across a Péclet sweep: power-law exponents with confidence intervals, and crossover
+times against the natural time scales of the flow.
+
+Power law.  ``y = A Pe^β`` is fitted as a straight line in log–log coordinates by weighted least
+squares, each point weighted by 1/σ² with σ = se(y)/y, the standard error of ln y to first order
+(delta method); points without a standard error get equal weights (ordinary least squares).
+The slope's standard error comes from the weighted normal equations, multiplied by the Birge
+ratio sqrt(χ²/(n − 2)) when that exceeds one (common practice: the scatter of the points, not
+only their stated errors, limits the fit: the "scale factor" of the Particle Data Group's
+averages, Review of Particle Physics, Workman et al. 2022, Prog. Theor. Exp. Phys. 083C01,
+Introduction; cited from memory) and the
+interval is slope ± z · se (normal quantile).  Without standard errors the fit is ordinary least
+squares and the interval slope ± t_{n−2} · se (Student t).
+
+Effective diffusivity.  The fitted quantity is the enhancement ``D/κ``, independent of whether
+Pe was varied through κ or U.  Only points whose D estimate reached the diffusive regime
+(``deff_converged`` = 1, when the analysis provides it) enter the fit.  Reference exponents at
+large Pe: 1/2 for closed cellular flow (boundary-layer transport across the separatrices;
+Shraiman 1987, Phys. Rev. A 36, 261; Rosenbluth, Berk, Doxas & Horton 1987, Phys. Fluids 30,
+2636); 2 for a parallel shear u = U sin ky, where D_xx = κ + U²/(2κk²) (Taylor dispersion by
+homogenization; Majda & Kramer 1999, Phys. Rep. 314, 237).
+
+Crossover times.  Crossovers are matched across points by the pair of regimes they join (their
+index changes with Pe as regimes appear or vanish) and fitted against Pe per pair, on a
+``transition`` dimension; ``settled->diffusive`` is the last crossover into the diffusive
+regime.  At fixed U
+and k the natural scales go as Pe^0 (advective 1/(U k)), Pe^{1/2} (boundary layer
+1/(κ k² Pe^{1/2})) and Pe^1 (cell diffusion 1/(κ k²)), Pe = U/(κ k); the fitted exponent says
+which scale a crossover follows.  The scales themselves are ``time_scale_*`` variables.
+"""
+
+from __future__ import annotations
+
+import math
+from collections import Counter
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..errors import InputDataError
+
+PECLET_DIMS = ("peclet",)
+SCALES = {  # name: (description, exponent of the scale against Pe at fixed U and k)
+    "advective": ("advective time 1/(U k)", 0.0),
+    "boundary_layer": ("separatrix boundary-layer time 1/(kappa k^2 Pe^(1/2)), Pe = U/(kappa k)",
+                       0.5),
+    "diffusive": ("cell diffusion time 1/(kappa k^2)", 1.0),
+}
+DIFFUSIVITIES = ("D_eff", "D_xx", "D_yy")
+REFERENCE_DEFF = ("large Pe: 1/2 for closed cells (Shraiman 1987; Rosenbluth et al. 1987), "
+                  "2 for a parallel shear (Taylor dispersion; Majda & Kramer 1999)")
+
+
+@dataclass(frozen=True)
+class PowerLaw:
+    """Fit of ``y = prefactor · x^exponent``; [``lower``, ``upper``] bounds the exponent."""
+
+    exponent: float
+    lower: float
+    upper: float
+    prefactor: float
+    stderr: float
+    n: int
+    birge: float
+    confidence: float
+
+
+def fit_power_law(x, y, se=None, *, confidence: float = 0.95) -> PowerLaw:
+    """Weighted log–log fit of ``y ∝ x^β`` (see the module docstring).
+
+    ``se``: optional standard errors of ``y``.  Points with non-finite or non-positive values
+    (or standard errors, when given) are left out; at least 3 must remain.
+    """
+    from scipy import stats
+
+    x = np.asarray(x, dtype=float)
+    y = np.asarray(y, dtype=float)
+    good = np.isfinite(x) & np.isfinite(y) & (x > 0) & (y > 0)
+    if se is not None:
+        se = np.asarray(se, dtype=float)
+        good &= np.isfinite(se) & (se > 0)
+    n = int(good.sum())
+    if n < 3:
+        raise InputDataError(f"a power-law fit needs at least 3 points with positive, finite "
+                             f"values; {n} available")
+    lx, ly = np.log(x[good]), np.log(y[good])
+    weights = np.ones(n) if se is None else (y[good] / se[good]) ** 2
+    design = np.stack([np.ones(n), lx], axis=1)
+    normal = design.T @ (weights[:, None] * design)
+    coefficients = np.linalg.solve(normal, design.T @ (weights * ly))
+    residuals = ly - design @ coefficients
+    dof = n - 2
+    chi2 = float(np.sum(weights * residuals**2))
+    covariance = np.linalg.inv(normal)
+    if se is None:
+        covariance = covariance * chi2 / dof if dof > 0 else covariance * np.nan
+        birge = 1.0
+        quantile = stats.t.ppf(0.5 + confidence / 2, dof)  # variance estimated from scatter
+    else:
+        birge = math.sqrt(chi2 / dof) if dof > 0 else 1.0
+        covariance = covariance * max(1.0, birge) ** 2
+        quantile = stats.norm.ppf(0.5 + confidence / 2)  # stated errors (scaled when needed)
+    stderr = float(math.sqrt(covariance[1, 1]))
+    half = float(quantile) * stderr
+    slope = float(coefficients[1])
+    return PowerLaw(exponent=slope, lower=slope - half, upper=slope + half,
+                    prefactor=float(math.exp(coefficients[0])), stderr=stderr, n=n,
+                    birge=birge, confidence=confidence)
+
+
+def peclet_dimension(ds) -> str:
+    for name in PECLET_DIMS:
+        if name in ds.dims:
+            return name
+    raise InputDataError("the scaling summary needs a sweep over the Péclet number "
+                         "(\"noise.peclet\" in [sweep]); this Dataset has dimensions "
+                         f"{', '.join(map(str, ds.dims)) or 'none'}")
+
+
+def time_scales(ds) -> dict:
+    """``{name: DataArray}`` of the three natural time scales per point, from the ``kappa``,
+    ``velocity_scale`` and ``wavenumber`` variables of a merged sweep."""
+    missing = [n for n in ("kappa", "velocity_scale", "wavenumber") if n not in ds.variables]
+    if missing:
+        raise InputDataError(f"the time scales need {', '.join(missing)} per point, which this "
+                             "Dataset lacks; merge the sweep with `eddyhop merge`")
+    kappa, velocity, k = ds["kappa"], ds["velocity_scale"], ds["wavenumber"]
+    peclet = velocity / (kappa * k)
+    return {
+        "advective": 1.0 / (velocity * k),
+        "boundary_layer": 1.0 / (kappa * k**2 * np.sqrt(peclet)),
+        "diffusive": 1.0 / (kappa * k**2),
+    }
+
+
+def _fit_grid(values, se, pe, confidence):
+    """Fit along the last axis for every index of the others → (..., 5) array of
+    (exponent, lower, upper, prefactor, n)."""
+    out = np.full((*values.shape[:-1], 5), np.nan)
+    for index in np.ndindex(*values.shape[:-1]):
+        try:
+            fit = fit_power_law(pe, values[index], None if se is None else se[index],
+                                confidence=confidence)
+        except InputDataError:
+            out[(*index, 4)] = 0
+            continue
+        out[index] = (fit.exponent, fit.lower, fit.upper, fit.prefactor, fit.n)
+    return out
+
+
+def _store_fit(out, name, fits, dims, coords, what, reference, confidence, pe_used):
+    import xarray as xr
+
+    labels = {"exponent": f"fitted exponent beta of {what} ~ Pe^beta",
+              "exponent_lower": f"lower bound of the {confidence:.0%} confidence interval of "
+                                f"{name}_exponent",
+              "exponent_upper": f"upper bound of the {confidence:.0%} confidence interval of "
+                                f"{name}_exponent",
+              "prefactor": f"fitted prefactor A of {what} = A Pe^beta",
+              "fit_points": f"number of sweep points in the fit of {what} against Pe"}
+    for i, suffix in enumerate(labels):
+        data = fits[..., i] if suffix != "fit_points" else fits[..., i].astype(np.int64)
+        out[f"{name}_{suffix}"] = xr.DataArray(data, dims=dims, coords=coords,
+                                               attrs={"long_name": labels[suffix]})
+        if suffix != "prefactor":
+            out[f"{name}_{suffix}"].attrs["units"] = "1"
+    out[f"{name}_exponent"].attrs.update(
+        confidence=confidence, method="weighted least squares of ln y on ln Pe (weights from the "
+        "standard errors; interval widened by the Birge ratio when the scatter exceeds them); "
+        "ordinary least squares with a Student-t interval when no standard errors exist",
+        fit_peclet_min=float(np.min(pe_used)) if pe_used.size else np.nan,
+        fit_peclet_max=float(np.max(pe_used)) if pe_used.size else np.nan,
+        reference=reference)
+
+
+def scaling_summary(ds, *, peclet_range=None, confidence: float = 0.95):
+    """Dataset summarising the scaling of a merged Péclet sweep (see the module docstring).
+
+    Fits, over every dimension except the Péclet one: ``<D>_exponent`` (+ ``_lower``,
+    ``_upper``, ``_prefactor``, ``_fit_points``) of ``D/κ`` for each of D_eff, D_xx, D_yy
+    present, and ``crossover_time_exponent`` … per regime pair on a ``transition``
+    dimension.  Per point: ``time_scale_<name>`` for the advective,
+    boundary-layer and cell-diffusion scales (unless the analysis already provides them).
+    ``peclet_range = (low, high)`` restricts the fits, e.g. to the asymptotic regime.
+    """
+    import xarray as xr
+
+    pe_dim = peclet_dimension(ds)
+    pe = ds[pe_dim].values.astype(float)
+    keep = np.ones(pe.size, dtype=bool)
+    if peclet_range is not None:
+        low, high = peclet_range
+        keep = (pe >= low) & (pe <= high)
+    out = xr.Dataset()
+    time_units = ds["time"].attrs.get("units", "1") if "time" in ds.coords else "1"
+    for name, value in time_scales(ds).items():
+        if f"time_scale_{name}" not in ds.variables:
+            out[f"time_scale_{name}"] = value.assign_attrs(long_name=SCALES[name][0],
+                                                           units=time_units)
+
+    def arrays(quantity, se, mask=None):
+        moved = quantity.transpose(..., pe_dim)
+        values = moved.values.astype(float).copy()
+        errors = None if se is None else se.transpose(*moved.dims).values.astype(float)
+        if mask is not None:
+            bad = ~mask.transpose(*moved.dims).values.astype(bool)
+            values[bad] = np.nan
+        return values[..., keep], None if errors is None else errors[..., keep], moved.dims[:-1]
+
+    kappa = ds["kappa"]
+    for name in DIFFUSIVITIES:
+        if name not in ds.data_vars or pe_dim not in ds[name].dims:
+            continue
+        mask = None
+        if "deff_converged" in ds.data_vars:
+            converged = ds["deff_converged"].fillna(0)
+            mask = (converged == 1).broadcast_like(ds[name])
+        se = ds[f"{name}_se"] / kappa if f"{name}_se" in ds.data_vars else None
+        values, errors, dims = arrays((ds[name] / kappa).broadcast_like(ds[name]),
+                                      None if se is None else se.broadcast_like(ds[name]), mask)
+        fits = _fit_grid(values, errors, pe[keep], confidence)
+        coords = {d: ds[d] for d in dims if d in ds.coords}
+        _store_fit(out, name, fits, dims, coords, f"{name}/kappa", REFERENCE_DEFF, confidence,
+                   pe[keep])
+    if "crossover_time" in ds.data_vars and "crossover" in ds["crossover_time"].dims:
+        _crossover_fits(ds, out, pe_dim, pe, keep, confidence, arrays)
+    out.attrs = {"peclet_dimension": pe_dim, "confidence": confidence}
+    return out
+
+
+SETTLED = "settled->diffusive"
+
+
+def _crossover_fits(ds, out, pe_dim, pe, keep, confidence, arrays):
+    """Fit crossover times per *transition* (the pair of regimes a crossover joins), since the
+    index of a crossover changes with Pe as regimes appear or vanish.  Per point the first
+    crossover of each transition is used; ``settled->diffusive`` is the last crossover into
+    the diffusive regime (when the spread settles to its long-time law).  Transitions seen at
+    fewer than 3 Péclet numbers are left out."""
+    import xarray as xr
+
+    time = ds["crossover_time"]
+    se = ds["crossover_time_se"] if "crossover_time_se" in ds.data_vars else None
+    if "crossover_from" not in ds.data_vars or "crossover_to" not in ds.data_vars:
+        return
+    other = [d for d in time.dims if d not in (pe_dim, "crossover")]
+    order = (*other, pe_dim, "crossover")
+    times = time.transpose(*order).values.astype(float)
+    errors = None if se is None else se.broadcast_like(time).transpose(*order).values
+    before = ds["crossover_from"].broadcast_like(time).transpose(*order).values.astype(str)
+    after = ds["crossover_to"].broadcast_like(time).transpose(*order).values.astype(str)
+    pairs = np.char.add(np.char.add(before, "->"), after)
+    valid = np.isfinite(times) & (before != "") & (after != "")
+    counts = Counter(str(p) for p in pairs[valid])
+    labels = [SETTLED] + [label for label, _ in counts.most_common()]
+    chosen_t, chosen_se, kept = [], [], []
+    for label in labels:
+        if label == SETTLED:
+            hit = valid & (after == "diffusive")
+            # last match along the crossover axis
+            index = times.shape[-1] - 1 - np.argmax(hit[..., ::-1], axis=-1)
+        else:
+            hit = valid & (pairs == label)
+            index = np.argmax(hit, axis=-1)
+        found = np.take_along_axis(hit, index[..., None], -1)[..., 0]
+        values = np.where(found, np.take_along_axis(times, index[..., None], -1)[..., 0],
+                          np.nan)
+        if (np.isfinite(values[..., keep]).sum(axis=-1) < 3).all():
+            continue
+        chosen_t.append(values)
+        chosen_se.append(None if errors is None else np.where(
+            found, np.take_along_axis(errors, index[..., None], -1)[..., 0], np.nan))
+        kept.append(label)
+    if not kept:
+        return
+    dims = ("transition", *other, pe_dim)
+    coords = {d: ds[d] for d in other if d in ds.coords}
+    coords[pe_dim] = ds[pe_dim]
+    quantity = xr.DataArray(np.stack(chosen_t), dims=dims, coords=coords)
+    spread = None if errors is None else xr.DataArray(np.stack(chosen_se), dims=dims,
+                                                      coords=coords)
+    values, errs, fit_dims = arrays(quantity, spread)
+    fits = _fit_grid(values, errs, pe[keep], confidence)
+    fit_coords = {d: coords[d] for d in fit_dims if d in coords}
+    fit_coords["transition"] = np.array(kept, dtype=object)
+    reference = ("scales at fixed U, k: advective Pe^0, boundary layer Pe^(1/2), cell "
+                 "diffusion Pe^1")
+    _store_fit(out, "crossover_time", fits, fit_dims, fit_coords, "crossover_time", reference,
+               confidence, pe[keep])
+    out["transition"].attrs = {
+        "long_name": "regimes joined by a crossover (before->after); settled->diffusive is "
+                     "the last crossover into the diffusive regime"}
+
+
+def nearest_scale(exponent: float, lower: float, upper: float) -> str:
+    """Which natural time scale(s) a crossover exponent is consistent with (plain words)."""
+    inside = [name for name, (_, e) in SCALES.items() if lower <= e <= upper]
+    if inside:
+        return "consistent with the " + " and ".join(n.replace("_", "-") for n in inside) \
+            + " scale"
+    name = min(SCALES, key=lambda n: abs(SCALES[n][1] - exponent))
+    return f"closest to the {name.replace('_', '-')} scale (Pe^{SCALES[name][1]:g}) but " \
+           "outside its interval"
