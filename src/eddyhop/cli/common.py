@@ -12,7 +12,7 @@ import click
 # Modules under eddyhop.cli that each define `command` (a click.Command).  Add one line to
 # add a command.
 COMMANDS = ["run", "demo", "validate", "info", "families", "plot", "report", "sweep", "merge",
-            "analyse"]
+            "analyse", "reference"]
 
 
 def load_commands(group: click.Group) -> None:

@@ -35,8 +35,11 @@ def print_summary(ds, path=None):
     t = ds["time"].values
     for label in starts:
         part = ds.sel(start=label) if multi else ds
-        n = int(part["n_particles"].values)
         final = float(part["msd"].values[-1])
-        se = float(part["msd_se"].values[-1])
-        click.echo(f"  start '{label}': {n} particles; MSD(t = {t[-1]:g}) = {final:.4g} "
-                   f"± {se:.2g}; late log-log slope {_slope(part, 'msd'):.3f}")
+        if "n_particles" in part and "msd_se" in part:
+            size = f"{int(part['n_particles'].values)} particles"
+            error = f" ± {float(part['msd_se'].values[-1]):.2g}"
+        else:  # deterministic reference solution: no particles, no sampling error
+            size, error = "noise-free reference", ""
+        click.echo(f"  start '{label}': {size}; MSD(t = {t[-1]:g}) = {final:.4g}{error}; "
+                   f"late log-log slope {_slope(part, 'msd'):.3f}")
