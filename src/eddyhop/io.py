@@ -112,18 +112,19 @@ def check_output_path(path) -> Path:
     return path
 
 
-def write_netcdf(ds, path) -> Path:
-    """Write ``ds`` to ``path`` atomically: a temporary file in the same directory, flushed,
-    then renamed.  An interrupted write leaves no partial file behind."""
-    path = check_output_path(path)
-    handle, temporary = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part",
-                                         dir=path.parent if str(path.parent) else ".")
+@contextlib.contextmanager
+def atomic_path(path, suffix: str = ".part"):
+    """Yield a temporary path beside ``path``; on success it is flushed, given the permissions
+    a plain ``open()`` would give (mkstemp makes 0600), and renamed onto ``path``.  On any
+    error or interrupt the temporary file is removed, so no partial file is ever left."""
+    path = Path(path)
+    directory = path.parent if str(path.parent) else Path(".")
+    handle, temporary = tempfile.mkstemp(prefix=f".{path.name}.", suffix=suffix, dir=directory)
     os.close(handle)
     try:
-        ds.to_netcdf(temporary, engine="netcdf4", format="NETCDF4")
+        yield temporary
         with open(temporary, "rb+") as stream:
             os.fsync(stream.fileno())
-        # mkstemp creates 0600; give the result the permissions a plain open() would
         mask = os.umask(0)
         os.umask(mask)
         os.chmod(temporary, 0o666 & ~mask)
@@ -132,6 +133,20 @@ def write_netcdf(ds, path) -> Path:
         with contextlib.suppress(FileNotFoundError):
             os.unlink(temporary)
         raise
+
+
+def atomic_write_text(path, text: str) -> Path:
+    """Write ``text`` (UTF-8) to ``path`` atomically."""
+    with atomic_path(path) as temporary, open(temporary, "w", encoding="utf-8") as stream:
+        stream.write(text)
+    return Path(path)
+
+
+def write_netcdf(ds, path) -> Path:
+    """Write ``ds`` to ``path`` atomically (see :func:`atomic_path`)."""
+    path = check_output_path(path)
+    with atomic_path(path) as temporary:
+        ds.to_netcdf(temporary, engine="netcdf4", format="NETCDF4")
     return path
 
 

@@ -11,13 +11,11 @@ memory and says so.
 from __future__ import annotations
 
 import base64
-import contextlib
 import datetime as _dt
 import html
 import io
 import json
 import os
-import tempfile
 import warnings
 from pathlib import Path
 
@@ -25,6 +23,7 @@ import numpy as np
 
 from . import __version__
 from .errors import EddyhopError
+from .io import atomic_write_text
 
 CAUTION = ("Research estimate from an idealised model flow. These numbers are not a validated "
            "engineering correlation and are not for the design of real equipment: for heat or "
@@ -533,7 +532,6 @@ def _is_sweep(ds) -> bool:
 def write_report(source, out, *, figures=None, analyse: bool = True) -> Path:
     """Write the report of ``source`` (a Dataset or a netCDF path) to ``out`` atomically."""
     from .io import check_output_path, open_result
-    from .plots._style import default_mode
 
     out = check_output_path(out)
     source_name = None
@@ -543,17 +541,4 @@ def write_report(source, out, *, figures=None, analyse: bool = True) -> Path:
     else:
         ds = source
     text = build_report(ds, source_name=source_name, figures=figures, analyse=analyse)
-    parent = out.parent if str(out.parent) else Path(".")
-    handle, temporary = tempfile.mkstemp(prefix=f".{out.name}.", suffix=".part", dir=parent)
-    try:
-        with os.fdopen(handle, "w", encoding="utf-8") as stream:
-            stream.write(text)
-            stream.flush()
-            os.fsync(stream.fileno())
-        os.chmod(temporary, default_mode())
-        os.replace(temporary, out)
-    except BaseException:
-        with contextlib.suppress(FileNotFoundError):
-            os.unlink(temporary)
-        raise
-    return out
+    return atomic_write_text(out, text)

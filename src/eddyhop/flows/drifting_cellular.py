@@ -10,6 +10,7 @@ from __future__ import annotations
 import math
 
 from .._jit import jit
+from . import cellular
 from .base import VELOCITY, WAVENUMBER, FlowFamily, Parameter
 
 
@@ -20,23 +21,12 @@ def psi(x, y, t, p):
 
 @jit
 def velocity(x, y, t, p):
-    k = p[1]
-    sx = math.sin(k * x)
-    cx = math.cos(k * x)
-    sy = math.sin(k * y)
-    cy = math.cos(k * y)
-    return p[0] * sx * cy + p[2], -p[0] * cx * sy + p[3]
+    u, v = cellular.velocity(x, y, t, p)
+    return u + p[2], v + p[3]
 
 
-@jit
-def gradient(x, y, t, p):
-    k = p[1]
-    uk = p[0] * k
-    sx = math.sin(k * x)
-    cx = math.cos(k * x)
-    sy = math.sin(k * y)
-    cy = math.cos(k * y)
-    return uk * cx * cy, -uk * sx * sy, uk * sx * sy, -uk * cx * cy
+# A uniform drift has no gradient: the cellular part's gradient is the whole of it.
+gradient = cellular.gradient
 
 
 class DriftingCellular(FlowFamily):

@@ -45,12 +45,13 @@ from __future__ import annotations
 import hashlib
 import math
 import os
-import tempfile
 from collections import OrderedDict
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
+
+from ..io import atomic_path
 
 PENALTY = 16.0  # (μ/η) h² / μ
 MASK_HALF_WIDTH = 0.5  # tanh half-width of the mask, in grid steps
@@ -254,15 +255,8 @@ def _cache_name(lattice: CylinderLattice, resolution: int) -> str:
 def _write_atomic(path: str, **arrays) -> None:
     directory = os.path.dirname(path)
     os.makedirs(directory, exist_ok=True)
-    handle, temporary = tempfile.mkstemp(prefix=".stokes.", suffix=".npz.part", dir=directory)
-    try:
-        with os.fdopen(handle, "wb") as stream:
-            np.savez(stream, **arrays)
-        os.replace(temporary, path)
-    except BaseException:
-        if os.path.exists(temporary):
-            os.unlink(temporary)
-        raise
+    with atomic_path(path) as temporary, open(temporary, "wb") as stream:
+        np.savez(stream, **arrays)
 
 
 def unit_solution(kind: str, solid_fraction: float, resolution: int,

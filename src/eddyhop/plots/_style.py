@@ -11,9 +11,6 @@ vary together with colour so that curves also survive greyscale printing.
 
 from __future__ import annotations
 
-import contextlib
-import os
-import tempfile
 import textwrap
 from itertools import cycle
 from pathlib import Path
@@ -21,6 +18,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import EddyhopError, InputDataError
+from ..io import atomic_path
 
 # Okabe–Ito colours, black first (reference curves use grey instead).
 PALETTE = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#000000",
@@ -157,26 +155,10 @@ def save_figure(figure, path, formats=("png",), dpi: int = 150) -> list[Path]:
             raise EddyhopError(f"figure format {fmt!r} is not supported; choose from "
                                + ", ".join(FORMATS))
         target = path.with_suffix(f".{fmt}")
-        handle, temporary = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part",
-                                             dir=parent)
-        os.close(handle)
-        try:
+        with atomic_path(target) as temporary:
             figure.savefig(temporary, format=fmt, dpi=dpi, metadata=_metadata(fmt))
-            os.chmod(temporary, default_mode())
-            os.replace(temporary, target)
-        except BaseException:
-            with contextlib.suppress(FileNotFoundError):
-                os.unlink(temporary)
-            raise
         written.append(target)
     return written
-
-
-def default_mode() -> int:
-    """Permission bits of a new file under the current umask (temporary files start 0600)."""
-    mask = os.umask(0)
-    os.umask(mask)
-    return 0o666 & ~mask
 
 
 def _metadata(fmt):

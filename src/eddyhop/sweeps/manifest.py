@@ -19,11 +19,10 @@ import contextlib
 import datetime as _dt
 import hashlib
 import json
-import os
-import tempfile
 from pathlib import Path
 
 from ..errors import EddyhopError
+from ..io import atomic_write_text
 
 MANIFEST_NAME = "sweep-manifest.json"
 POINTS_DIR = "points"
@@ -45,22 +44,6 @@ def sha256_file(path) -> str:
     return digest.hexdigest()
 
 
-def atomic_write_text(path: Path, text: str) -> None:
-    """Write ``text`` to ``path`` through a flushed temporary file and a rename."""
-    handle, temporary = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
-    try:
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(temporary, 0o666 & ~umask)  # an ordinary file, not mkstemp's private mode
-        with os.fdopen(handle, "w", encoding="utf-8") as stream:
-            stream.write(text)
-            stream.flush()
-            os.fsync(stream.fileno())
-        os.replace(temporary, path)
-    except BaseException:
-        with contextlib.suppress(FileNotFoundError):
-            os.unlink(temporary)
-        raise
 
 
 @contextlib.contextmanager
