@@ -176,6 +176,19 @@ def _make_context(study, schedule: Schedule) -> tuple[_Context, np.ndarray, np.n
     return ctx, residence_edges, flight_edges
 
 
+CHUNK_OUTPUT_BUDGET = 8 * 2**20  # bytes of block sums one in-flight chunk may hold
+
+
+def _memory_capped_chunk(ctx: _Context) -> int:
+    """Largest chunk whose per-block sums fit the budget, so that memory stays
+    O(particles + samples) even with 10⁴ output times (chunking never changes the numbers)."""
+    s = ctx.schedule
+    per_block = 8 * (s.out_steps.size * (N_BASE + 3 * ctx.orders.size)
+                     + s.aging_steps.size * s.lag_steps.size * len(AGED_COLUMNS)
+                     + 2 * (len(ctx.residence_edges) + len(ctx.flight_edges)))
+    return ctx.block_size * max(1, CHUNK_OUTPUT_BUDGET // max(per_block, 1))
+
+
 def _chunks(particles: int, chunk: int, block: int):
     size = max(block, (chunk // block) * block)
     return [(first, min(particles, first + size)) for first in range(0, particles, size)]
@@ -217,6 +230,7 @@ def run_ensemble(study, *, workers: int | None = None, chunk: int | None = None,
     for message in messages:
         warnings.warn(message, StepSizeWarning, stacklevel=2)
     ctx, residence_edges, flight_edges = _make_context(study, schedule)
+    chunk = min(chunk, _memory_capped_chunk(ctx))
     family = study.flow.model
     params = study.flow.params
     n = run.particles

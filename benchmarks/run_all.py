@@ -1,0 +1,63 @@
+"""Run every benchmark and print their tables (Markdown).
+
+Run:  python benchmarks/run_all.py [--quick] [--output FILE]
+
+Full sizes take 15–20 minutes on two free cores, most of it the memory case (10⁶
+particles × 10⁴ output steps, run twice); ``--quick`` is a smoke run of a minute or two.
+"""
+
+from __future__ import annotations
+
+import argparse
+import contextlib
+import io
+import sys
+import time
+
+import bench_accuracy
+import bench_compile
+import bench_kernel
+import bench_memory
+import numba
+import numpy as np
+
+import eddyhop
+
+
+class _Tee(io.TextIOBase):
+    def __init__(self, *streams):
+        self.streams = streams
+
+    def write(self, text):
+        for stream in self.streams:
+            stream.write(text)
+            stream.flush()
+        return len(text)
+
+
+def main(argv=None):
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="small sizes (a smoke run)")
+    parser.add_argument("--output", help="also write the tables to this Markdown file")
+    args = parser.parse_args(argv)
+    quick = ["--quick"] if args.quick else []
+    sink = open(args.output, "w", encoding="utf-8") if args.output else None
+    streams = [sys.stdout] + ([sink] if sink else [])
+    try:
+        with contextlib.redirect_stdout(_Tee(*streams)):
+            print(f"# eddyhop benchmarks ({time.strftime('%Y-%m-%d %H:%M')}; eddyhop "
+                  f"{eddyhop.__version__}, numba {numba.__version__}, numpy {np.__version__}, "
+                  f"Python {sys.version.split()[0]}{', quick sizes' if quick else ''})\n")
+            for module, options in ((bench_kernel, quick), (bench_accuracy, quick),
+                                    (bench_memory, quick),
+                                    (bench_compile, ["--repeats", "1"] if quick else [])):
+                start = time.perf_counter()
+                module.main(options)
+                print(f"\n_({module.__name__}: {time.perf_counter() - start:.0f} s)_\n")
+    finally:
+        if sink:
+            sink.close()
+
+
+if __name__ == "__main__":
+    main()
