@@ -300,6 +300,11 @@ def test_save_png_and_pdf(run_ds, tmp_path):
     assert written[0].read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     assert written[1].read_bytes()[:5] == b"%PDF-"
     assert not list(tmp_path.glob(".*part"))  # no temporary left behind
+    # a dotted stem (e.g. from "run.analysed.nc") keeps every part: no figure overwrites another
+    dotted = plots.save_figure(figure, tmp_path / "run.analysed_msd", formats=("png",))
+    assert [p.name for p in dotted] == ["run.analysed_msd.png"]
+    assert [p.name for p in plots.save_figure(figure, tmp_path / "f.pdf", formats=("pdf",))] \
+        == ["f.pdf"]
     with pytest.raises(EddyhopError, match="format 'gif'"):
         plots.save_figure(figure, tmp_path / "x", formats=("gif",))
     with pytest.raises(EddyhopError, match="does not exist"):

@@ -142,6 +142,9 @@ def provenance_line(ds) -> str:
 def save_figure(figure, path, formats=("png",), dpi: int = 150) -> list[Path]:
     """Write ``figure`` to ``path`` with each suffix in ``formats``; atomic per file.
 
+    ``path`` is a file stem: ``.<format>`` is appended (a trailing figure suffix such as
+    ``.png`` is dropped first), so dotted stems like ``run.analysed_msd`` keep every part.
+
     Each file is drawn into a temporary file in the target directory and renamed, so an
     interrupted save never leaves a half-written figure.  Returns the written paths.
     """
@@ -149,12 +152,14 @@ def save_figure(figure, path, formats=("png",), dpi: int = 150) -> list[Path]:
     parent = path.parent if str(path.parent) else Path(".")
     if not parent.is_dir():
         raise EddyhopError(f"output directory {str(parent)!r} does not exist; create it first")
+    if path.suffix.lstrip(".").lower() in FORMATS:
+        path = path.with_suffix("")
     written = []
     for fmt in formats:
         if fmt not in FORMATS:
             raise EddyhopError(f"figure format {fmt!r} is not supported; choose from "
                                + ", ".join(FORMATS))
-        target = path.with_suffix(f".{fmt}")
+        target = path.parent / f"{path.name}.{fmt}"
         with atomic_path(target) as temporary:
             figure.savefig(temporary, format=fmt, dpi=dpi, metadata=_metadata(fmt))
         written.append(target)

@@ -140,8 +140,8 @@ def starts_figure(ds):
     if kappa > 0:
         bottom.axhline(1.0, color=GUIDE, lw=1.0, ls=(0, (4, 3)))
         bottom.annotate("molecular diffusion alone", (t[-1], 1.0), textcoords="offset points",
-                        xytext=(-2, -11), fontsize=8, color=GUIDE, ha="right")
-        bottom.set_ylabel("apparent diffusivity\n(var_x + var_y)/(4 κ t) (dimensionless)")
+                        xytext=(-2, 4), fontsize=8, color=GUIDE, ha="right")
+        bottom.set_ylabel("apparent diffusivity over κ\n(var_x + var_y)/(4 κ t) (dimensionless)")
     else:
         bottom.set_ylabel(f"apparent diffusivity (var_x + var_y)/(4 t)"
                           f"{_units_over_time(ds)}")
