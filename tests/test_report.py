@@ -29,7 +29,7 @@ def result(tmp_path_factory):
                 "y_max": 0.3}],
         noise={"peclet": 20.0},
         run={"particles": 512, "dt": 0.02, "t_end": 60.0, "n_times": 30, "tracked": 3,
-             "track_samples": 150},
+             "track_samples": 150, "seed": 20261202},
         aging={"times": [1.0, 10.0], "lags": 10},
         hopping={"enabled": True},
     )
@@ -85,7 +85,8 @@ def test_report_content(report_file):
     for snippet in ("Study parameters", "Péclet number", ">20 (Pe = U/(kappa k)",
                     "<h3>Regimes</h3>", "<h3>Crossover times</h3>",
                     "Effective diffusivity (estimate [95% confidence interval])",
-                    "Provenance", "Resolved study", "start &#x27;corner&#x27;"):
+                    "Provenance", "Resolved study", "start &#x27;corner&#x27;",
+                    "run.seed</th><td>20261202<"):  # a seed is printed whole, not 2.026e+07
         assert snippet in text, snippet
     assert f"eddyhop {eddyhop.__version__}" in text
     # the D_eff row of each start holds an estimate followed by [lower, upper]

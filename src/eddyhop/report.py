@@ -56,6 +56,8 @@ def _e(value) -> str:
 
 
 def _number(value, digits: int = 4) -> str:
+    if isinstance(value, (int, np.integer)) and not isinstance(value, bool):
+        return str(int(value))  # counts and seeds are shown whole, never rounded
     try:
         number = float(value)
     except (TypeError, ValueError):
