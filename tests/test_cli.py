@@ -107,20 +107,41 @@ def test_blow_up_is_reported_with_step_and_dt(tmp_path):
     assert not (tmp_path / "r.nc").exists()
 
 
+def test_overflow_of_moment_sums_is_reported_with_step_and_dt(tmp_path):
+    """Positions of ~1e80 stay below the kernel's runaway limit, but their fourth powers
+    overflow float64: the run must stop with the step and dt, not write NaN moments."""
+    study = tmp_path / "s.toml"
+    study.write_text(SMALL.replace("[flow]", "[flow]\nU = 1e80").replace("peclet = 20",
+                                                                        "kappa = 0.1"))
+    result = eddyhop("run", str(study), "--out", str(tmp_path / "r.nc"))
+    assert result.returncode == 2, result.stderr
+    assert "overflowed" in result.stderr and "dt = 0.02" in result.stderr
+    assert "step" in result.stderr
+    assert not (tmp_path / "r.nc").exists()
+
+
 def test_ctrl_c_leaves_no_file(tmp_path):
     study = tmp_path / "s.toml"
     study.write_text(SMALL.replace("particles = 200", "particles = 200000")
-                     .replace("t_end = 4.0", "t_end = 400.0"))
+                     .replace("t_end = 4.0", "t_end = 400.0")
+                     .replace("progress = false", "progress = true"))
     out = tmp_path / "r.nc"
+    out.write_bytes(b"an earlier result that must survive")
     process = subprocess.Popen([sys.executable, "-m", "eddyhop", "run", str(study), "--out",
                                 str(out)], stdout=subprocess.PIPE, stderr=subprocess.PIPE,
                                text=True)
-    time.sleep(8)
+    # interrupt only once integration is under way (the progress bar has started)
+    seen = ""
+    deadline = time.monotonic() + 180
+    while "integrating" not in seen and time.monotonic() < deadline:
+        seen += process.stderr.read(1)
+    assert "integrating" in seen, seen
     process.send_signal(signal.SIGINT)
-    _, _stderr = process.communicate(timeout=240)
-    assert process.returncode != 0
-    assert not out.exists()
-    assert not list(tmp_path.glob("*.part"))
+    _, stderr = process.communicate(timeout=240)
+    assert process.returncode == 130, stderr
+    assert "interrupted" in stderr
+    assert out.read_bytes() == b"an earlier result that must survive"
+    assert not list(tmp_path.glob(".*part")) and not list(tmp_path.glob("*.part"))
 
 
 def test_demo_study_is_valid():

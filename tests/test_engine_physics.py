@@ -56,11 +56,23 @@ def test_shear_flow_streamwise_msd_matches_exact_formula():
     # cross-stream motion is free diffusion exactly in law: ⟨Δy²⟩ = 2κt
     deviation_y = np.abs(ds["msd_y"].values - 2 * kappa * t) / ds["msd_y_se"].values
     assert np.all(deviation_y < 4.0), deviation_y
-    # long-time effective diffusivity κ + U²/(2κk²) = 1.5 from the late slope of msd_x
+    # Long-time effective diffusivity κ + U²/(2κk²) = 1.5 from the late slope of msd_x.  The
+    # slope is fitted per particle batch; its SE is the spread of the batch slopes over
+    # sqrt(batches).  Over a finite window the exact curve's own slope sits a little below
+    # the asymptote (by U²/(κk²)·e^{−κk²t}/2 per unit t, < 3% for t > 6), so the Monte Carlo
+    # slope is compared with the exact formula's fitted slope on the same times (4 SE), and
+    # that slope with the asymptote to the stated 3%.
     late = t > 6  # several relaxation times 1/(κk²) = 2
-    assert late.sum() >= 2
-    slope = np.polyfit(t[late], ds["msd_x"].values[late], 1)[0] / 2
-    assert slope == pytest.approx(kappa + velocity**2 / (2 * kappa * wavenumber**2), rel=0.1)
+    assert late.sum() >= 3
+    batch_msd_x = ds["batch_msd_x"].values[:, late]
+    batch_slopes = np.polyfit(t[late], batch_msd_x.T, 1)[0] / 2
+    slope = batch_slopes.mean()
+    slope_se = batch_slopes.std(ddof=1) / np.sqrt(batch_slopes.size)
+    exact_slope = np.polyfit(t[late], exact[late], 1)[0] / 2
+    assert abs(slope - exact_slope) < 4 * slope_se, (slope, exact_slope, slope_se)
+    asymptote = kappa + velocity**2 / (2 * kappa * wavenumber**2)
+    assert exact_slope == pytest.approx(asymptote, rel=0.03)
+    assert slope_se < 0.05 * asymptote  # the check has teeth: SE well below the effect
 
 
 def test_short_time_msd_is_diffusive_plus_ballistic():

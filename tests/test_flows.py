@@ -58,6 +58,34 @@ def test_every_family_has_test_parameters():
     assert set(PARAMS) | MADE_AT_TEST_TIME == set(FAMILIES)
 
 
+def test_compiled_dispatch_calls_each_familys_own_functions(family_and_params):
+    """The kernels reach a family only through the integer switch in ``flows/compiled.py``; a
+    missing or wrong branch there must not silently give another (divergence-free) family."""
+    import importlib
+
+    family, params = family_and_params
+    module = importlib.import_module(f"eddyhop.flows.{family.name}")
+    p = family.pack(params)
+    x, y = _points(seed=11, n=25)
+    t = 0.37
+    velocity = np.array(evaluate_velocity(family, params, x, y, t))
+    psi = evaluate_psi(family, params, x, y, t)
+    gradient = np.array(evaluate_gradient(family, params, x, y, t))
+    for i in range(x.size):
+        np.testing.assert_array_equal(velocity[:, i], module.velocity(x[i], y[i], t, p))
+        assert psi[i] == module.psi(x[i], y[i], t, p)
+        np.testing.assert_array_equal(gradient[:, i], module.gradient(x[i], y[i], t, p))
+
+
+def test_unregistered_family_code_gives_nan_not_another_field():
+    from eddyhop.flows import compiled
+
+    p = get_family("cellular").pack({"U": 1.0, "k": 1.0})
+    assert np.isnan(compiled.velocity(99, 0.3, 0.4, 0.0, p)).all()
+    assert np.isnan(compiled.psi(99, 0.3, 0.4, 0.0, p))
+    assert np.isnan(compiled.gradient(99, 0.3, 0.4, 0.0, p)).all()
+
+
 def test_divergence_free_by_finite_differences(family_and_params):
     """∇·u = 0 for a stream-function flow (incompressible by construction)."""
     family, params = family_and_params

@@ -81,3 +81,61 @@ def test_rk4_orbit_period_matches_elliptic_integral():
     psi0 = np.sin(x0)
     expected = 4.0 * ellipk(1.0 - psi0**2)
     assert period == pytest.approx(expected, rel=1e-4)
+
+
+def _weak_bias(integrator, dt, particles, exact, seed=5):
+    """Relative bias of the Monte Carlo MSD at t = 20 and its standard error (cellular flow,
+    Pe = 10, uniform start), for one integrator and step."""
+    import warnings
+
+    import eddyhop
+    from eddyhop.runner import StepSizeWarning
+    from tests.conftest import make_study
+
+    study = make_study(noise={"peclet": 10.0},
+                       run={"particles": particles, "dt": dt, "t_end": 20.0, "n_times": 2,
+                            "spacing": "linear", "integrator": integrator, "seed": seed,
+                            "workers": 2})
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", StepSizeWarning)  # large steps are the point here
+        ds = eddyhop.simulate(study, progress=False)
+    return float(ds["msd"][-1]) / exact - 1.0, float(ds["msd_se"][-1]) / exact
+
+
+def _two_point_order(coarse, fine, ratio):
+    """Order p from biases at dt and dt/ratio, with its SE propagated from the biases' SEs."""
+    (b1, s1), (b2, s2) = coarse, fine
+    order = np.log(b1 / b2) / np.log(ratio)
+    se = np.hypot(s1 / b1, s2 / b2) / np.log(ratio)
+    return order, se
+
+
+def test_weak_orders_of_euler_maruyama_and_strang_splitting_on_the_cellular_msd():
+    """Weak order, measured on the quantity users report: the MSD of the cellular flow at
+    t = 20 (Pe = 10, uniform start), against the package's noise-free moment-evolution solver
+    (exact up to its 1e-8 tolerance; validated against closed forms in
+    tests/test_reference_moments.py).
+
+    Published orders: Euler–Maruyama weak order 1 (Kloeden & Platen 1992, *Numerical Solution
+    of SDEs*, Thm 14.1.5); a symmetric (Strang) splitting with an exact Gaussian noise step has
+    weak order 2 (Leimkuhler & Matthews 2015, *Molecular Dynamics*, ch. 7).  The order from two
+    steps dt, dt/2 carries the SE propagated from the two Monte Carlo biases; the check is that
+    the measured order is within 4 SE of the published one and more than 4 SE away from the next
+    order down.  Steps are large on purpose so that the bias dwarfs the sampling error
+    (dt·U·k up to 1.6 for the splitting, whose bias is 1000× smaller than Euler's).
+    """
+    from eddyhop.reference import moment_evolution
+    from tests.conftest import make_study
+
+    exact = float(moment_evolution(make_study(noise={"peclet": 10.0},
+                                              run={"t_end": 20.0}), times=[20.0])["msd"][-1])
+    em = [_weak_bias("euler_maruyama", dt, 200_000, exact) for dt in (0.2, 0.1, 0.05)]
+    order, se = _two_point_order(em[0], em[2], 4.0)
+    assert abs(order - 1.0) < 4 * se + 0.1, (order, se, em)  # + O(dt²) remainder at dt = 0.2
+    assert order > 0.5 + 4 * se, (order, se)
+    strang = [_weak_bias("strang_rk2", dt, 1_000_000, exact) for dt in (1.6, 0.8)]
+    order, se = _two_point_order(strang[0], strang[1], 2.0)
+    assert abs(order - 2.0) < 4 * se, (order, se, strang)
+    assert order > 1.0 + 4 * se, (order, se)
+    # accuracy per step: the splitting at dt = 0.8 beats Euler–Maruyama at dt = 0.05
+    assert abs(strang[1][0]) < abs(em[2][0])

@@ -21,8 +21,13 @@ def test_one_chunk_seven_chunks_and_two_workers_are_bit_identical():
         aging={"times": [0.5], "lags": 5},
         hopping={"enabled": True},
     )
+    from eddyhop.runner import _chunks, block_size_for
+
+    block = block_size_for(study.run.particles, study.run.batches)
+    seven_chunks = -(-study.run.particles // 7 // block) * block  # a whole number of blocks
+    assert len(_chunks(study.run.particles, seven_chunks, block)) == 7
     one = eddyhop.simulate(study, chunk=10**6, workers=1, progress=False)
-    seven = eddyhop.simulate(study, chunk=1000 // 7 + 1, workers=1, progress=False)
+    seven = eddyhop.simulate(study, chunk=seven_chunks, workers=1, progress=False)
     two = eddyhop.simulate(study, chunk=300, workers=2, progress=False)
     reference = _float_vars(one)
     assert reference

@@ -34,11 +34,18 @@ from tests.conftest import make_study
           "run": {"integrator": "strang_rk2"}}, ["strang_rk2", "additive"]),
         ({"aging": {"times": [5.0]}}, ["aging.times", "run.t_end"]),
         ({"aging": {"times": [1.0, 0.5]}}, ["aging.times", "increasing"]),
-        ({"moments": {"orders": [0.0, 2.0]}}, ["moments.orders", "0"]),
+        ({"moments": {"orders": [0.0, 2.0]}}, ["moments.orders[0] = 0.0", "(0, inf)"]),
+        # non-finite values (TOML allows inf and nan literals) are refused, never run
+        ({"noise": {"kappa": math.inf, "_replace": True}}, ["noise.kappa", "inf", "[0, inf)"]),
+        ({"noise": {"peclet": math.nan, "_replace": True}}, ["noise.peclet", "nan"]),
+        ({"flow": {"U": math.inf}}, ["flow.U", "inf", "[0, inf)"]),
+        ({"run": {"t_end": math.inf}}, ["run.t_end", "inf"]),
         ({"start": {"kind": "nowhere"}}, ["start.kind", "nowhere"]),
         ({"run": {"workers": 0}}, ["run.workers", "0"]),
         ({"run": {"times": [0.5, 0.2, 1.0]}}, ["run.times", "increasing"]),
         ({"run": {"times": [0.5, 3.0]}}, ["run.times", "run.t_end"]),
+        ({"run": {"times": [0.001, 0.5]}}, ["run.times", "0.001", "run.dt = 0.02"]),
+        ({"run": {"times": [0.5, 0.505, 1.0]}}, ["run.times", "0.5", "0.505", "same step"]),
         ({"flow": {"family": "fourier", "U": 1.0, "k": 1.0, "modes": [[0, 0, 1.0, 0.0]],
                    "_replace": True}}, ["flow.modes[0]", "(0, 0)"]),
     ],
@@ -88,3 +95,37 @@ def test_defaults_resolve():
     assert study.run.integrator == "rk4"
     assert study.noise.peclet is None
     assert study.starts[0].kind == "uniform"
+
+
+# ---- step-size warnings ----------------------------------------------------------------------
+@pytest.mark.parametrize(
+    "sections, phrase",
+    [
+        # dt·U·k = 0.2 > 0.1: Euler-type steps distort eddy orbits
+        ({"run": {"dt": 0.2, "t_end": 4.0}}, "advective times 1/(U k)"),
+        # dt·κ·k² = 0.02 > 0.01 with Pe = 0.5 (κ = 2): the cell diffusion time is resolved badly
+        ({"noise": {"peclet": 0.5}, "run": {"dt": 0.01}}, "cell diffusion times"),
+        # period 2π/ω = 0.628 with dt = 0.02: 31 steps per period < 50
+        ({"flow": {"family": "oscillating_cellular", "B": 0.3, "omega": 10.0},
+          "noise": {"peclet": 10.0}}, "flow period"),
+    ],
+)
+def test_each_step_size_warning_fires_once_per_run(sections, phrase):
+    import warnings
+
+    import eddyhop
+    from eddyhop.runner import StepSizeWarning
+
+    study = make_study(**sections)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        eddyhop.simulate(study, workers=2, chunk=64, progress=False)
+    messages = [str(w.message) for w in caught if issubclass(w.category, StepSizeWarning)]
+    assert len([m for m in messages if phrase in m]) == 1, messages
+    assert all("run.dt" in m for m in messages)
+
+
+def test_small_steps_give_no_step_size_warning():
+    from eddyhop.runner import step_size_warnings
+
+    assert step_size_warnings(make_study()) == []

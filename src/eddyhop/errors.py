@@ -1,5 +1,14 @@
 """Exceptions raised at the package's boundaries (study files, inputs, numerical failure)."""
 
+import math
+
+
+def range_text(low: float, high: float, low_open: bool = False, high_open: bool = False) -> str:
+    """Interval notation for an allowed range; infinite ends are open (values must be finite)."""
+    left = "(" if low_open or math.isinf(low) else "["
+    right = ")" if high_open or math.isinf(high) else "]"
+    return f"{left}{low:g}, {high:g}{right}"
+
 
 class EddyhopError(Exception):
     """Base class for every error the package raises on purpose."""

@@ -13,12 +13,21 @@ scheme             rule                                        strong order weak
 =================  ==========================================  ===========  =========
 euler_maruyama     X += a dt + b ΔW                            ½ (1 if b    1
                                                                constant)
-milstein           X += a dt + b ΔW + ½ b b' (ΔW² − dt)        1 (diagonal/ 1
-                   cross terms with the Lévy area dropped      commutative)
+milstein           X += a dt + b ΔW + ½ b b' (ΔW² − dt)        1 if the     1
+                   cross terms with the Lévy area dropped      noise
+                                                               commutes,
+                                                               else ½
 strang_rk2         noise ½-step, midpoint-RK2 advection over   1 (additive) 2
                    dt, noise ½-step (Strang 1968 splitting)
 rk4                classical Runge–Kutta, deterministic κ = 0  4 (ODE)      –
 =================  ==========================================  ===========  =========
+
+The noise ``sqrt(2κ(X)) dW`` is commutative only when κ is constant (Milstein then equals
+Euler–Maruyama) or in one dimension.  For the 2-D ``modulated`` model the commutativity
+condition ``σ ∂_x σ e_y = σ ∂_y σ e_x`` fails wherever ∇κ ≠ 0, even when κ depends on one
+coordinate, so without sampling the Lévy area Milstein keeps strong order ½ there; its weak
+order (the order that matters for MSD and D_eff) stays 1.  The GBM test in
+``tests/test_integrators.py`` measures strong order 1 in the commutative (1-D) case.
 
 References: Kloeden & Platen (1992), *Numerical Solution of Stochastic Differential Equations*,
 Springer, §10.2–10.3 (Euler–Maruyama, Milstein); Higham (2001), SIAM Review 43, 525–546;
@@ -42,9 +51,17 @@ STRANG_RK2 = 2
 RK4 = 3
 SCHEME_CODES = {"euler_maruyama": EULER_MARUYAMA, "milstein": MILSTEIN,
                 "strang_rk2": STRANG_RK2, "rk4": RK4}
-# (strong order, weak order) under the conditions in the table above.
+# (strong order, weak order) under the conditions in the table above (Milstein's strong order 1
+# holds for commuting noise only; see the module docstring).
 SCHEME_ORDERS = {"euler_maruyama": (0.5, 1.0), "milstein": (1.0, 1.0),
                  "strang_rk2": (1.0, 2.0), "rk4": (4.0, 4.0)}
+# When the orders above hold (shown by ``eddyhop families``).
+SCHEME_CONDITIONS = {
+    "euler_maruyama": "strong 1 for additive noise (constant kappa)",
+    "milstein": "strong 1 for commuting noise only; 1/2 with noise.model = 'modulated' in 2-D",
+    "strang_rk2": "additive noise only (constant kappa)",
+    "rk4": "deterministic runs (kappa = 0)",
+}
 # Normal draws a scheme consumes per step (slots of ``rng.normals4``).
 NORMALS_PER_STEP = {"euler_maruyama": 2, "milstein": 2, "strang_rk2": 4, "rk4": 0}
 # Rows of the scratch array ``work`` that :func:`advance_tile` needs (tile width columns).
@@ -111,8 +128,8 @@ def advance(scheme, fcode, fp, ncode, nq, x, y, t, dt, sqrt_dt, z0, z1, z2, z3):
         return (x + euler_maruyama_increment(u + dkx, sigma, dt, dwx),
                 y + euler_maruyama_increment(v + dky, sigma, dt, dwy))
     # Milstein, σ = sqrt(2κ) in both components: σ ∂_j σ = ∂_j κ.  Off-diagonal iterated
-    # integrals are replaced by ½ ΔW_x ΔW_y (the Lévy area is dropped), which is exact when
-    # the noise commutes (κ depending on one coordinate) and keeps weak order 1 otherwise.
+    # integrals are replaced by ½ ΔW_x ΔW_y (the Lévy area is dropped): exact only for
+    # commuting noise, so strong order ½ for 2-D modulated κ, weak order 1 in every case.
     cross = 0.5 * dwx * dwy
     x_new = x + milstein_increment(u + dkx, sigma, dkx, dt, dwx) + dky * cross
     y_new = y + milstein_increment(v + dky, sigma, dky, dt, dwy) + dkx * cross

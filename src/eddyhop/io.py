@@ -10,6 +10,7 @@ from __future__ import annotations
 import contextlib
 import datetime as _dt
 import json
+import math
 import os
 import sys
 import tempfile
@@ -84,7 +85,8 @@ def provenance_attrs(study, kind: str, extra: dict | None = None) -> dict:
         "seed": study.run.seed,
         "kappa": study.noise.kappa,
         "noise_model": study.noise.model,
-        "peclet": study.noise.peclet if study.noise.peclet is not None else "inf",
+        # always a number: infinite for deterministic runs (κ = 0), 0 for a flow at rest
+        "peclet": float(study.noise.peclet) if study.noise.peclet is not None else math.inf,
         "peclet_convention": study.noise.peclet_convention,
         "peclet_definition": PECLET_DEFINITIONS[study.noise.peclet_convention],
         "length_scale": "1/k (inverse wavenumber); one eddy has side pi/k",
@@ -129,10 +131,21 @@ def atomic_path(path, suffix: str = ".part"):
         os.umask(mask)
         os.chmod(temporary, 0o666 & ~mask)
         os.replace(temporary, path)
+        _sync_directory(directory)
     except BaseException:
         with contextlib.suppress(FileNotFoundError):
             os.unlink(temporary)
         raise
+
+
+def _sync_directory(directory) -> None:
+    """Make the rename itself durable (POSIX); a no-op where directories cannot be opened."""
+    with contextlib.suppress(OSError):
+        descriptor = os.open(directory, os.O_RDONLY)
+        try:
+            os.fsync(descriptor)
+        finally:
+            os.close(descriptor)
 
 
 def atomic_write_text(path, text: str) -> Path:

@@ -33,9 +33,11 @@ PECLET_DEFINITIONS = {
 
 def peclet_from_kappa(velocity: float, wavenumber: float, kappa: float,
                       convention: str = "wavenumber") -> float | None:
-    """Péclet number of a run; ``None`` when κ = 0 (infinite) or the flow is at rest."""
-    if kappa == 0.0 or velocity == 0.0:
+    """Péclet number of a run: 0 for a flow at rest, ``None`` (infinite) when κ = 0."""
+    if kappa == 0.0:
         return None
+    if velocity == 0.0:
+        return 0.0
     return _CONVENTION_FACTOR[convention] * velocity / (kappa * wavenumber)
 
 

@@ -208,6 +208,21 @@ def _parallel_map(function, tasks, workers: int, backend: str):
     yield from parallel(delayed(function)(*task) for task in tasks)
 
 
+def _check_finite_sums(moments, schedule, dt, label, lo, hi):
+    """Positions can stay below the kernel's runaway limit while their powers (Δx⁴, |Δx|^q)
+    overflow float64; such a run must fail loudly rather than write NaN moments."""
+    bad = ~np.isfinite(moments)
+    if not bad.any():
+        return
+    out_index = int(np.argmax(bad.any(axis=(0, 2))))
+    step = int(schedule.out_steps[out_index])
+    raise BlowUpError(
+        f"moment sums overflowed (displacements too large for float64 powers) for particles "
+        f"{lo}-{hi - 1} of start '{label}' by output step {step} (t = {step * dt:g}) with "
+        f"run.dt = {dt:g}; reduce run.dt, lower the highest moments.orders, or check the flow "
+        f"parameters")
+
+
 def run_ensemble(study, *, workers: int | None = None, chunk: int | None = None,
                  backend: str = "threads", progress: bool | None = None) -> EnsembleResult:
     """Integrate every start region of ``study`` and return batch-folded sums.
@@ -268,6 +283,7 @@ def run_ensemble(study, *, workers: int | None = None, chunk: int | None = None,
                         f"{int(status[0]) - offset} of start '{region.label}' at step "
                         f"{int(status[1])} (t = {int(status[1]) * run.dt:g}) with "
                         f"run.dt = {run.dt:g}; reduce run.dt or check the flow parameters")
+                _check_finite_sums(moments, schedule, run.dt, region.label, lo, hi)
                 if sums is None:
                     sums = [np.zeros((n_batches, *moments.shape[1:])),
                             np.zeros((n_batches, *aged.shape[1:])),

@@ -13,7 +13,7 @@ from dataclasses import asdict, dataclass, field, fields
 from pathlib import Path
 from typing import Any
 
-from .errors import StudyError
+from .errors import StudyError, range_text
 from .flows import get_family
 
 if sys.version_info >= (3, 11):
@@ -43,13 +43,11 @@ def _number(table, key, where, default=None, low=-math.inf, high=math.inf, low_o
         value = float(value)
     below = value <= low if low_open else value < low
     above = value >= high if high_open else value > high
-    if (not integer and math.isnan(value)) or below or above:
-        left = "(" if low_open else "["
-        right = ")" if high_open else "]"
-        raise StudyError(
-            f"{where}.{key} = {value!r} is outside the allowed range {left}{low:g}, {high:g}{right}"
-        )
+    if not math.isfinite(value) or below or above:
+        raise StudyError(f"{where}.{key} = {value!r} is outside the allowed range "
+                         f"{range_text(low, high, low_open, high_open)}")
     return value
+
 
 
 def _choice(table, key, where, choices, default):
@@ -71,8 +69,9 @@ def _number_list(table, key, where, low=-math.inf, low_open=False, integer=False
     value = table.get(key, [])
     if not isinstance(value, list):
         raise StudyError(f"{where}.{key}: expected a list of numbers, got {value!r}")
-    return tuple(_number({key: v}, key, f"{where}", low=low, low_open=low_open, integer=integer)
-                 for v in value)
+    return tuple(_number({f"{key}[{i}]": v}, f"{key}[{i}]", where, low=low, low_open=low_open,
+                         integer=integer)
+                 for i, v in enumerate(value))
 
 
 def _table(document, key, where="study"):
@@ -277,6 +276,17 @@ def _parse_run(document, noise: NoiseSpec):
             raise StudyError(f"run.times = {list(times)} must be strictly increasing")
         if times[-1] > t_end:
             raise StudyError(f"run.times ends at {times[-1]:g}, after run.t_end = {t_end:g}")
+        # each output time is recorded at the nearest step n·dt: two on one step, or one
+        # before the first step, would silently shrink the requested grid
+        steps = [round(t / dt) for t in times]
+        if steps[0] < 1:
+            raise StudyError(f"run.times starts at {times[0]:g}, before the first step "
+                             f"run.dt = {dt:g}; output times must be at least about dt")
+        clash = next((i for i in range(1, len(steps)) if steps[i] == steps[i - 1]), None)
+        if clash is not None:
+            raise StudyError(f"run.times {times[clash - 1]:g} and {times[clash]:g} fall on the "
+                             f"same step of run.dt = {dt:g}; space them at least dt apart or "
+                             f"reduce run.dt")
     default_integrator = "rk4" if noise.kappa == 0.0 else "euler_maruyama"
     integrator = _choice(table, "integrator", where, INTEGRATORS, default_integrator)
     if integrator == "rk4" and noise.kappa != 0.0:
@@ -323,7 +333,7 @@ def _parse_moments(document):
     _reject_unknown(table, {"orders"}, "moments")
     if "orders" not in table:
         return MomentSpec()
-    orders = _number_list(table, "orders", "moments.orders", low=0.0, low_open=True)
+    orders = _number_list(table, "orders", "moments", low=0.0, low_open=True)
     return MomentSpec(orders=orders)
 
 

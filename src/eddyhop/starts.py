@@ -43,7 +43,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .errors import StudyError
+from .errors import StudyError, range_text
 from .start_geometry import FlowGeometry
 
 
@@ -146,10 +146,8 @@ def read_number(table: dict, key: str, where: str, default=None, low=-math.inf, 
     below = value <= low if low_open else value < low
     above = value >= high if high_open else value > high
     if below or above:
-        left = "(" if low_open else "["
-        right = ")" if high_open else "]"
         raise StudyError(f"{where}.{key} = {value:g} is outside the allowed range "
-                         f"{left}{low:g}, {high:g}{right}")
+                         f"{range_text(low, high, low_open, high_open)}")
     return value
 
 

@@ -9,7 +9,7 @@ import click
 def command():
     """List flow families with their parameters, the integrators and start regions."""
     from ..flows import FAMILIES
-    from ..integrators import SCHEME_ORDERS
+    from ..integrators import SCHEME_CONDITIONS, SCHEME_ORDERS
     from ..starts import KINDS
 
     click.echo("Flow families ([flow] family = ...):")
@@ -17,5 +17,5 @@ def command():
         click.echo("  " + family.describe().replace("\n", "\n  "))
     click.echo("\nIntegrators ([run] integrator = ...), strong / weak order:")
     for name, (strong, weak) in SCHEME_ORDERS.items():
-        click.echo(f"  {name:<16} {strong:g} / {weak:g}")
+        click.echo(f"  {name:<16} {strong:g} / {weak:g}   ({SCHEME_CONDITIONS[name]})")
     click.echo("\nStart regions ([[start]] kind = ...): " + ", ".join(KINDS))

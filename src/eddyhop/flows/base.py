@@ -17,7 +17,7 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import StudyError
+from ..errors import StudyError, range_text
 
 
 @dataclass(frozen=True)
@@ -34,9 +34,7 @@ class Parameter:
     high_open: bool = False
 
     def allowed(self) -> str:
-        left = "(" if self.low_open else "["
-        right = ")" if self.high_open else "]"
-        return f"{left}{self.low:g}, {self.high:g}{right}"
+        return range_text(self.low, self.high, self.low_open, self.high_open)
 
     def check(self, value: Any, where: str) -> float:
         if isinstance(value, bool) or not isinstance(value, (int, float)):
@@ -44,7 +42,7 @@ class Parameter:
         value = float(value)
         too_low = value <= self.low if self.low_open else value < self.low
         too_high = value >= self.high if self.high_open else value > self.high
-        if math.isnan(value) or too_low or too_high:
+        if not math.isfinite(value) or too_low or too_high:
             raise StudyError(
                 f"{where}.{self.name} = {value:g} is outside the allowed range {self.allowed()}"
             )

@@ -1,7 +1,9 @@
 """Compiled dispatch from a family code to its field functions, plus array evaluators.
 
 Kernels call :func:`velocity` with the family's integer code; numba compiles the switch once
-and caches it.  Adding a family means one new module and one branch in each switch below.
+and caches it.  Adding a family means one new module and one branch in each switch below; an
+unregistered code yields NaN (which the runner reports as a blow-up), never another family's
+field.  ``tests/test_flows.py`` checks every registered family against its own module.
 """
 
 from __future__ import annotations
@@ -37,7 +39,9 @@ def velocity(code, x, y, t, p):
         return gridded.velocity(x, y, t, p)
     if code == 7:
         return obstacles.velocity(x, y, t, p)
-    return fourier.velocity(x, y, t, p)
+    if code == 5:
+        return fourier.velocity(x, y, t, p)
+    return np.nan, np.nan
 
 
 @jit
@@ -56,7 +60,9 @@ def psi(code, x, y, t, p):
         return gridded.psi(x, y, t, p)
     if code == 7:
         return obstacles.psi(x, y, t, p)
-    return fourier.psi(x, y, t, p)
+    if code == 5:
+        return fourier.psi(x, y, t, p)
+    return np.nan
 
 
 @jit
@@ -75,7 +81,9 @@ def gradient(code, x, y, t, p):
         return gridded.gradient(x, y, t, p)
     if code == 7:
         return obstacles.gradient(x, y, t, p)
-    return fourier.gradient(x, y, t, p)
+    if code == 5:
+        return fourier.gradient(x, y, t, p)
+    return np.nan, np.nan, np.nan, np.nan
 
 
 @jit
