@@ -7,6 +7,8 @@ keys are errors.  The spec is plain data: it knows nothing of kernels, runners o
 from __future__ import annotations
 
 import itertools
+import json
+import numbers
 import math
 import sys
 from dataclasses import asdict, dataclass, field, fields
@@ -395,9 +397,57 @@ def parse_study(document: dict, source_text: str = "", source_path: str = "") ->
         hopping=_parse_hopping(document),
         output=_parse_output(document),
         sweep=sweep,
-        source_text=source_text,
+        # a study built in code still records its parameters as TOML text (provenance)
+        source_text=source_text or study_document_toml(document),
         source_path=source_path,
     )
+
+
+def _toml_key(key) -> str:
+    key = str(key)
+    return key if key and all(c.isascii() and (c.isalnum() or c in "_-") for c in key) \
+        else json.dumps(key)
+
+
+def _toml_value(value) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, numbers.Integral):
+        return str(int(value))
+    if isinstance(value, numbers.Real):
+        value = float(value)
+        return repr(value) if math.isfinite(value) else ("nan" if math.isnan(value)
+                                                         else ("inf" if value > 0 else "-inf"))
+    if isinstance(value, str):
+        return json.dumps(value, ensure_ascii=False)  # JSON escapes are valid TOML escapes
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
+    raise TypeError(f"cannot write {type(value).__name__} {value!r} as TOML")
+
+
+def _toml_table(lines: list, table: dict, name: str, array: bool = False) -> None:
+    scalars = {k: v for k, v in table.items() if not isinstance(v, dict)
+               and not (isinstance(v, list) and v and all(isinstance(i, dict) for i in v))}
+    if name:
+        lines.append(f"\n[[{name}]]" if array else f"\n[{name}]")
+    lines.extend(f"{_toml_key(k)} = {_toml_value(v)}" for k, v in scalars.items())
+    for key, value in table.items():
+        if key in scalars:
+            continue
+        child = f"{name}.{_toml_key(key)}" if name else _toml_key(key)
+        if isinstance(value, dict):
+            _toml_table(lines, value, child)
+        else:
+            for item in value:
+                _toml_table(lines, item, child, array=True)
+
+
+def study_document_toml(document: dict) -> str:
+    """TOML text of a study document given as a dict (for the provenance of studies built in
+    code, which have no file); ``tomllib.loads`` of the result gives the document back."""
+    lines = ["# written by eddyhop from a study built in code"]
+    _toml_table(lines, document, "")
+    return "\n".join(lines) + "\n"
 
 
 def parse_study_text(text: str, source_path: str = "<string>") -> Study:
