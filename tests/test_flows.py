@@ -143,7 +143,7 @@ def test_velocity_is_spatially_periodic(family_and_params):
     np.testing.assert_allclose([u2, v2], [u0, v0], atol=1e-12)
 
 
-@pytest.mark.parametrize("name", ["cellular", "cats_eye"])
+@pytest.mark.parametrize("name", ["cellular", "cats_eye", "drifting_cellular"])
 def test_stagnation_points_are_stagnant_and_of_the_stated_type(name):
     """Elliptic points: det ∇u > 0 (rotation); hyperbolic: det ∇u < 0 (strain)."""
     family = get_family(name)
@@ -156,6 +156,22 @@ def test_stagnation_points_are_stagnant_and_of_the_stated_type(name):
         assert np.max(np.abs(np.hypot(u, v))) < 1e-12
         a, b, c, d = evaluate_gradient(family, params, x, y)
         assert np.all(sign * (a * d - b * c) > 0)
+
+
+def test_a_strong_drift_leaves_no_stagnation_point():
+    """|V_x ± V_y| > U: the sum/difference equations have no solution (open streamlines)."""
+    family = get_family("drifting_cellular")
+    points = family.stagnation_points(family.validate({"drift_x": 0.8, "drift_y": 0.5}))
+    assert points["elliptic"].shape == points["hyperbolic"].shape == (0, 2)
+
+
+def test_drift_free_stagnation_points_are_the_cellular_ones():
+    cellular, drifting = get_family("cellular"), get_family("drifting_cellular")
+    for kind in ("elliptic", "hyperbolic"):
+        got = drifting.stagnation_points(drifting.validate({"U": 1.3, "k": 2.0}))[kind]
+        want = cellular.stagnation_points(cellular.validate({"U": 1.3, "k": 2.0}))[kind]
+        np.testing.assert_allclose(sorted(map(tuple, got)), sorted(map(tuple, want)),
+                                   atol=1e-12)
 
 
 def test_cats_eye_separatrix_level_is_psi_at_hyperbolic_points():

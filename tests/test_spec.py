@@ -134,9 +134,8 @@ def test_small_steps_give_no_step_size_warning():
 def test_study_built_in_code_records_its_toml():
     """Provenance: a study made from a dict (notebooks, sweeps) carries TOML text that parses
     back to the same document and to the same resolved study."""
-    import tomllib
-
     import numpy as np
+    import tomllib
 
     from eddyhop.spec import parse_study
 

@@ -8,8 +8,8 @@ from __future__ import annotations
 
 import itertools
 import json
-import numbers
 import math
+import numbers
 import sys
 from dataclasses import asdict, dataclass, field, fields
 from pathlib import Path

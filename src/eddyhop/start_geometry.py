@@ -109,6 +109,10 @@ class FlowGeometry:
     # ---- critical points ---------------------------------------------------------------------
     @cached_property
     def _closed_form_points(self):
+        # A family's closed-form stagnation points are those of its full velocity; with a mean
+        # drift they are not the critical points of ψ_p that start regions are built on.
+        if self.mean_gradient != (0.0, 0.0):
+            return {}
         return self.family.stagnation_points(self.values)
 
     @cached_property

@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
+
 from .._jit import jit
 from . import cellular
 from .base import VELOCITY, WAVENUMBER, FlowFamily, Parameter
@@ -30,6 +32,30 @@ gradient = cellular.gradient
 
 
 class DriftingCellular(FlowFamily):
+    def stagnation_points(self, values):
+        """u = 0 and v = 0 give sin k(x+y) = (V_y − V_x)/U and sin k(x−y) = −(V_x + V_y)/U
+        (sum and difference of the two equations), so stagnation points exist only while
+        |V_x ± V_y| ≤ U; each pair of arcsine branches gives two points per period cell (shifted
+        by (π/k, π/k)).  Their type follows from det ∇u: > 0 elliptic, < 0 hyperbolic; points on
+        the boundary |V_x ± V_y| = U are degenerate and listed under neither."""
+        u_scale, k = values["U"], values["k"]
+        empty = np.zeros((0, 2))
+        if u_scale == 0.0:
+            return {"elliptic": empty, "hyperbolic": empty}
+        a = (values["drift_y"] - values["drift_x"]) / u_scale
+        b = -(values["drift_x"] + values["drift_y"]) / u_scale
+        if abs(a) >= 1.0 or abs(b) >= 1.0:
+            return {"elliptic": empty, "hyperbolic": empty}
+        sums = (math.asin(a), math.pi - math.asin(a))
+        differences = (math.asin(b), math.pi - math.asin(b))
+        period = 2 * math.pi
+        points = np.array([[((s + d) / 2 + shift) % period, ((s - d) / 2 + shift) % period]
+                           for s in sums for d in differences for shift in (0.0, math.pi)]) / k
+        p = self.pack(values)
+        det = np.array([ux * vy - uy * vx for ux, uy, vx, vy in
+                        (gradient(x, y, 0.0, p) for x, y in points)])
+        return {"elliptic": points[det > 0], "hyperbolic": points[det < 0]}
+
     def psi_range(self, values):
         amplitude = values["U"] / values["k"]
         return (-amplitude, amplitude)
