@@ -183,6 +183,12 @@ def test_cats_eye_separatrix_level_is_psi_at_hyperbolic_points():
                                sorted(family.separatrix_levels(params)), atol=1e-12)
 
 
+def test_cats_eye_at_epsilon_one_has_no_isolated_stagnation_point():
+    family = get_family("cats_eye")
+    points = family.stagnation_points(family.validate({"epsilon": 1.0}))
+    assert points["elliptic"].shape == points["hyperbolic"].shape == (0, 2)
+
+
 def test_cats_eye_at_epsilon_one_is_the_diagonal_shear():
     """ψ = (U/k)(sin kx sin ky + cos kx cos ky) = (U/k) cos k(x − y) (trigonometric identity)."""
     family = get_family("cats_eye")

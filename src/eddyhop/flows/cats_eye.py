@@ -13,6 +13,8 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
+
 from .._jit import jit
 from .base import VELOCITY, WAVENUMBER, FlowFamily, Parameter
 from .cellular import cell_lattice_points
@@ -51,6 +53,10 @@ def gradient(x, y, t, p):
 
 class CatsEye(FlowFamily):
     def stagnation_points(self, values):
+        if values["epsilon"] == 1.0:
+            # the diagonal shear stagnates on whole lines x − y = nπ/k: no isolated points
+            empty = np.zeros((0, 2))
+            return {"elliptic": empty, "hyperbolic": empty}
         return {"elliptic": cell_lattice_points(values, 0.5),
                 "hyperbolic": cell_lattice_points(values, 0.0)}
 
