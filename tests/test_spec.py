@@ -125,6 +125,16 @@ def test_each_step_size_warning_fires_once_per_run(sections, phrase):
     assert all("run.dt" in m for m in messages)
 
 
+def test_a_strong_drift_counts_in_the_advective_step_check():
+    """dt·U·k = 0.02 for the cells, but a drift of 8 U makes the peak speed ≈ 9 U."""
+    from eddyhop.runner import step_size_warnings
+
+    calm = make_study(flow={"family": "drifting_cellular"}, run={"dt": 0.02})
+    windy = make_study(flow={"family": "drifting_cellular", "drift_x": 8.0}, run={"dt": 0.02})
+    assert not [m for m in step_size_warnings(calm) if "advective" in m]
+    assert [m for m in step_size_warnings(windy) if "advective" in m and "peak speed" in m]
+
+
 def test_small_steps_give_no_step_size_warning():
     from eddyhop.runner import step_size_warnings
 
