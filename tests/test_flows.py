@@ -143,9 +143,11 @@ def test_velocity_is_spatially_periodic(family_and_params):
     np.testing.assert_allclose([u2, v2], [u0, v0], atol=1e-12)
 
 
-@pytest.mark.parametrize("name", ["cellular", "cats_eye", "drifting_cellular"])
+@pytest.mark.parametrize("name", ["cellular", "cats_eye", "drifting_cellular",
+                                  "oscillating_cellular"])
 def test_stagnation_points_are_stagnant_and_of_the_stated_type(name):
-    """Elliptic points: det ∇u > 0 (rotation); hyperbolic: det ∇u < 0 (strain)."""
+    """Elliptic points: det ∇u > 0 (rotation); hyperbolic: det ∇u < 0 (strain); at t = 0,
+    the geometry's reference time (evaluate_* default)."""
     family = get_family(name)
     params = family.validate(PARAMS[name])
     points = family.stagnation_points(params)

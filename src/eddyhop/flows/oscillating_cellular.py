@@ -11,6 +11,7 @@ import math
 
 from .._jit import jit
 from .base import VELOCITY, WAVENUMBER, FlowFamily, Parameter
+from .cellular import cell_lattice_points
 
 
 @jit
@@ -43,6 +44,12 @@ def gradient(x, y, t, p):
 
 
 class OscillatingCellular(FlowFamily):
+    def stagnation_points(self, values):
+        """Instantaneous stagnation points at t = 0 (the geometry's reference time), where the
+        pattern is the steady cellular one; at time t they sit at x − B sin ωt."""
+        return {"elliptic": cell_lattice_points(values, 0.5),
+                "hyperbolic": cell_lattice_points(values, 0.0)}
+
     def time_period(self, values):
         omega = values["omega"]
         return None if omega == 0.0 else 2.0 * math.pi / omega
