@@ -161,3 +161,11 @@ def test_study_built_in_code_records_its_toml():
     study = parse_study(document)
     assert tomllib.loads(study.source_text) == document
     assert parse_study_text(study.source_text).as_dict() == study.as_dict()
+
+
+def test_step_limit_matches_the_random_streams():
+    from eddyhop import rng, spec
+
+    assert spec.STEP_LIMIT == rng.STEP_LIMIT
+    with pytest.raises(StudyError, match="steps exceeds"):
+        make_study(run={"dt": 1e-12, "t_end": 1e3})

@@ -45,7 +45,7 @@ _INV_2_53 = 2.0**-53
 # Extra words for one rejected normal: at most this many (a run of 64 rejections has
 # probability below 1e-130; the last candidate is then returned).
 MAX_ATTEMPTS = 64
-STEP_LIMIT = 2**48
+STEP_LIMIT = 2**48  # steps per particle; spec.py refuses longer runs (kept equal there)
 
 
 # ---- ziggurat tables ------------------------------------------------------------------------

@@ -24,6 +24,7 @@ else:  # pragma: no cover
     import tomli as tomllib
 
 SCHEMA_VERSION = 1
+STEP_LIMIT = 2**48  # steps per particle the counter-based streams address (see rng.py)
 INTEGRATORS = ("euler_maruyama", "milstein", "strang_rk2", "rk4")
 NOISE_MODELS = ("constant", "modulated")
 PECLET_CONVENTIONS = ("wavenumber", "cell_side")
@@ -265,6 +266,9 @@ def _parse_run(document, noise: NoiseSpec):
     t_end = _number(table, "t_end", where, low=0.0, low_open=True)
     if dt > t_end:
         raise StudyError(f"run.dt = {dt:g} is larger than run.t_end = {t_end:g}")
+    if t_end / dt > STEP_LIMIT:
+        raise StudyError(f"run.t_end / run.dt = {t_end / dt:.3g} steps exceeds the random "
+                         f"streams' limit of {STEP_LIMIT:.3g} steps per particle")
     n_times = _number(table, "n_times", where, default=100, low=2, high=10**6, integer=True)
     spacing = _choice(table, "spacing", where, SPACINGS, "log")
     t_first = None
