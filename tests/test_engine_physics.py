@@ -126,3 +126,19 @@ def test_modulated_noise_keeps_uniform_density_stationary():
     t0 = float(ds["time"][0])
     rate = float(ds["msd"][0]) / t0
     assert abs(rate - 4 * kappa0) < 4 * float(ds["msd_se"][0]) / t0 + 0.02 * 4 * kappa0
+
+
+def test_log_grid_over_six_decades_free_diffusion():
+    """The common case of a log output grid over six decades (dt = 1e-3 to t = 1e3, 10⁶ steps):
+    every output time is kept, increasing, and the MSD follows 4κt (Einstein 1905) within 4 SE
+    at each of them."""
+    kappa = 0.05
+    study = make_study(flow={"U": 0.0}, noise={"kappa": kappa, "_replace": True},
+                       run={"particles": 128, "dt": 1e-3, "t_end": 1e3, "n_times": 25,
+                            "workers": 2, "batches": 4})
+    ds = eddyhop.simulate(study, progress=False)
+    t = ds["time"].values
+    assert t[0] == pytest.approx(1e-3) and t[-1] == pytest.approx(1e3)
+    assert t.size == 25 and np.all(np.diff(t) > 0)
+    deviation = np.abs(ds["msd"].values - 4 * kappa * t) / ds["msd_se"].values
+    assert np.all(deviation < 4.0), deviation
