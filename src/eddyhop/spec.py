@@ -159,7 +159,11 @@ class MomentSpec:
 @dataclass(frozen=True)
 class HoppingSpec:
     """Cell-hopping statistics; a cell change counts once the tracer is ``margin`` (fraction of
-    the eddy side) inside the new cell, so noisy recrossings of a boundary are not counted."""
+    the eddy side) inside the new cell, so noisy recrossings of a boundary are not counted.
+
+    Cells are the squares [iπ/k, (i+1)π/k) × [jπ/k, (j+1)π/k) of the eddy lattice: exactly the
+    eddies of the cellular flow (and of the oscillating cells at t = 0); for other families
+    they are a lattice of the same size, so a "hop" is a crossing of that lattice."""
 
     enabled: bool = False
     margin: float = 0.05
