@@ -6,6 +6,8 @@ weaker second harmonic, and seeded "measurement noise" that is not divergence-fr
 noise is not).  Every number here is made up.  Run from the repository root:
 
     python studies/make_convection_tank_piv.py
+
+It takes about 3 s (mostly imports) and rewrites the same bytes each time (fixed seed).
 """
 
 from pathlib import Path
