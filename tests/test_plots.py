@@ -100,6 +100,25 @@ def test_msd_figure_content(analysed_ds):
     assert_finite_lines(figure)
 
 
+def test_lines_use_the_colour_blind_safe_palette_in_order(analysed_ds):
+    """Okabe & Ito (2008), "Color Universal Design" palette, one colour per start region."""
+    from matplotlib.colors import to_hex
+
+    from eddyhop.plots._style import PALETTE
+
+    for figure in (plots.msd_figure(analysed_ds), plots.exponent_figure(analysed_ds),
+                   plots.starts_figure(analysed_ds)):
+        colours = [to_hex(line.get_color()).upper() for line in data_lines(figure.axes[0])]
+        assert colours == [c.upper() for c in PALETTE[:len(colours)]], colours
+
+
+def test_figures_name_the_missing_variable_and_the_command(run_ds):
+    with pytest.raises(InputDataError, match=r"msd.*eddyhop run"):
+        plots.msd_figure(run_ds.drop_vars("msd"))
+    with pytest.raises(InputDataError, match=r"var_x.*eddyhop run"):
+        plots.starts_figure(run_ds.drop_vars("var_x"))
+
+
 def test_msd_figure_without_analysis_has_no_regimes(run_ds):
     (ax,) = plots.msd_figure(run_ds, start="centre").axes
     assert len(data_lines(ax)) == 1
@@ -267,6 +286,14 @@ def test_exponent_map_content(sweep_ds):
     np.testing.assert_allclose(np.ma.filled(values, np.nan), sweep_ds["alpha"].values)
     assert "local exponent" in figure.axes[-1].get_ylabel()  # colour bar
     assert ax.get_yscale() == "log" and "Péclet" in ax.get_ylabel()
+    assert ax.get_xscale() == "log" and "time" in ax.get_xlabel()
+    assert "(dimensionless)" in ax.get_xlabel() or "[" in ax.get_xlabel()  # units shown
+    assert np.isfinite(np.ma.compressed(values)).all()
+    from eddyhop.plots._style import EXPONENT_CMAP
+
+    assert mesh.get_cmap().name == EXPONENT_CMAP  # diverging, colour-blind safe
+    with pytest.raises(InputDataError, match=r"alpha.*eddyhop analyse"):
+        plots.exponent_map_figure(sweep_ds.drop_vars("alpha"))
 
 
 def test_sweep_figures_refuse_a_single_run(analysed_ds, sweep_ds):
