@@ -113,11 +113,15 @@ def test_report_of_a_sweep(sweep_file, tmp_path):
 
 
 def test_warnings_step_size_and_short_run(result):
-    _, ds = result
-    flagged = ds.copy()
-    flagged.attrs["step_size_warnings"] = "run.dt = 0.5 is 0.5 advective times 1/(U k)"
-    messages = run_warnings(flagged)
+    # a run made with a step too large for the eddies carries the runner's warning to the page
+    coarse = make_study(run={"particles": 256, "dt": 0.5, "t_end": 20.0, "n_times": 10})
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        coarse_ds = eddyhop.simulate(coarse)
+    messages = run_warnings(coarse_ds)
     assert messages[0].startswith("Large time step: run.dt = 0.5")
+    assert "advective times" in messages[0]
+    assert not any(m.startswith("Large time step") for m in run_warnings(result[1]))
     # A run cut off in its ballistic phase: the spread grows like t^2, not t.
     short = make_study(flow={"family": "shear"}, noise={"peclet": 1000.0},
                        run={"particles": 256, "dt": 0.01, "t_end": 0.5, "n_times": 20})
@@ -180,22 +184,33 @@ def run_browser(binary, profile, *arguments):
                           capture_output=True, text=True, timeout=120, check=False)
 
 
-def test_report_loads_in_headless_chromium(report_file, tmp_path):
-    binary = chromium()
-    text = report_file.read_text(encoding="utf-8")
-    probed = tmp_path / "probed.html"
+def assert_loads_with_every_figure(binary, page, tmp_path):
+    """Load ``page`` in headless Chromium: no error events, every embedded figure decoded."""
+    text = page.read_text(encoding="utf-8")
+    probed = tmp_path / f"probed-{page.name}"
     probed.write_text(text.replace("<head>", "<head>" + PROBE, 1), encoding="utf-8")
-    dom = run_browser(binary, tmp_path / "profile-dom", "--virtual-time-budget=5000",
-                      "--dump-dom", probed.as_uri())
+    dom = run_browser(binary, tmp_path / f"profile-dom-{page.stem}",
+                      "--virtual-time-budget=5000", "--dump-dom", probed.as_uri())
     assert dom.returncode == 0, dom.stderr[-2000:]
     match = re.search(r'data-probe="([^"]*)"', dom.stdout)
     assert match, dom.stdout[:500]
     probe = dict(item.split("=", 1) for item in match.group(1).split(";"))
     assert probe["broken"] == "0" and probe["errors"] == "0", probe
     decoded = dict(item.split(":") for item in probe["figures"].split(","))
-    assert sorted(decoded) == sorted(figures_in(text))
+    assert sorted(decoded) == sorted(figures_in(text)) and decoded
     assert all(int(width) > 300 for width in decoded.values()), decoded
     assert int(probe["images"]) == len(decoded)
+
+
+def test_sweep_report_loads_in_headless_chromium(sweep_file, tmp_path):
+    binary = chromium()
+    page = write_report(sweep_file, tmp_path / "sweep.html")
+    assert_loads_with_every_figure(binary, page, tmp_path)
+
+
+def test_report_loads_in_headless_chromium(report_file, tmp_path):
+    binary = chromium()
+    assert_loads_with_every_figure(binary, report_file, tmp_path)
 
     shot = tmp_path / "shot.png"
     run = run_browser(binary, tmp_path / "profile-shot", "--window-size=1200,2400",
