@@ -23,6 +23,7 @@ from eddyhop.reference import (
 from eddyhop.reference.cell_problem import homogenized_diffusivity, solve_cell_problem
 from eddyhop.reference.fields import cell_fields
 
+
 @pytest.mark.parametrize("kappa,U,k", [(0.1, 1.0, 1.0), (0.02, 2.0, 3.0), (1.5, 0.7, 0.5)])
 def test_shear_flow_is_exact(kappa, U, k):
     """Sinusoidal shear u = U sin(ky): D_xx = κ + U²/(2κk²), D_yy = κ, D_xy = 0, exactly.
