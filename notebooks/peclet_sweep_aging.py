@@ -20,8 +20,9 @@
 # reference time t_a, ⟨|X(t_a + τ) − X(t_a)|²⟩, compared with the MSD from release.
 #
 # Low Pe: D/κ ≈ 1 + Pe²/8 (leading order of the homogenization cell problem, see
-# `eddyhop.plots.asymptotes`); high Pe: D/κ ≈ 1.07 Pe^{1/2} (Rosenbluth et al. 1987,
-# Phys. Fluids 30, 2636; constant recalled from memory).
+# `eddyhop.plots.asymptotes`); high Pe: D/κ ≈ 2ν Pe^{1/2}, 2ν ≈ 1.0654 (Soward 1987,
+# J. Fluid Mech. 180, 267, as quoted by Haynes & Vanneste 2014, J. Fluid Mech. 745, 351 —
+# value from memory; `eddyhop.plots.asymptotes.CELLULAR_HIGH_PE`).
 #
 # Research estimate from a model flow: not for the design of real equipment.
 # `EDDYHOP_QUICK=1` runs a small ensemble (as the test suite does).

@@ -18,9 +18,9 @@
 # (a) at eddy centres, (b) in a thin band around the separatrices (the cell edges) and
 # (c) uniformly.  We compare how they spread, read the regimes and crossover times from the
 # analysis, and check that all three reach the same long-time effective diffusivity,
-# close to the boundary-layer prediction D_eff ≈ 1.07 κ Pe^{1/2}
-# (Rosenbluth, Berk, Doxas & Horton 1987, Phys. Fluids 30, 2636; Shraiman 1987,
-# Phys. Rev. A 36, 261 — constant recalled from memory).
+# close to the boundary-layer prediction D_eff ≈ C κ Pe^{1/2}, C = 2ν ≈ 1.0654 (Soward 1987,
+# J. Fluid Mech. 180, 267, as quoted by Haynes & Vanneste 2014, J. Fluid Mech. 745, 351 —
+# value from memory; the constant is `eddyhop.plots.asymptotes.CELLULAR_HIGH_PE`).
 #
 # Research estimate from a model flow: not for the design of real equipment; use validated
 # methods and the applicable codes for that.
@@ -39,6 +39,7 @@ from IPython.display import display
 import eddyhop
 from eddyhop import plots
 from eddyhop.analysis import analyse
+from eddyhop.plots.asymptotes import CELLULAR_HIGH_PE
 
 QUICK = os.environ.get("EDDYHOP_QUICK") == "1"
 PARTICLES = 256 if QUICK else 4000
@@ -118,7 +119,7 @@ for start in analysed["start"].values:
 
 # %%
 kappa = analysed.attrs["kappa"]
-predicted = 1.0655 * np.sqrt(PECLET)
+predicted = CELLULAR_HIGH_PE * np.sqrt(PECLET)
 print(f"high-Pe prediction D_eff/κ ≈ {predicted:.2f}")
 for start in analysed["start"].values:
     part = analysed.sel(start=start)

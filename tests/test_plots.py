@@ -15,6 +15,7 @@ from matplotlib.figure import Figure
 import eddyhop
 from eddyhop import plots
 from eddyhop.errors import EddyhopError, InputDataError
+from eddyhop.plots.asymptotes import CELLULAR_HIGH_PE
 from tests.conftest import make_study
 
 CENTRE = math.pi / 2
@@ -273,7 +274,7 @@ def test_deff_peclet_figure_content(sweep_ds):
                                sweep_ds["D_xx"].values / sweep_ds["kappa"].values)
     labels = [line.get_label() for line in ax.get_lines()]
     assert any(text.startswith("low Pe: 1 + 0.125 Pe²") for text in labels)
-    assert any(text.startswith("high Pe: 1.0655 Pe^½") for text in labels)
+    assert any(text.startswith(f"high Pe: {CELLULAR_HIGH_PE:.4f} Pe^½") for text in labels)
     assert_finite_lines(figure)
 
 

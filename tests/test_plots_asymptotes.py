@@ -4,9 +4,16 @@ Checks are against closed forms that follow from the homogenization cell problem
 −κΔχ − u·∇χ = u, D = κ I + ⟨u ⊗ χ⟩ (Majda & Kramer 1999, Phys. Rep. 314, 237, Sec. 2.1):
 * periodic shear u = U sin ky: D_xx = κ (1 + Pe²/2) exactly (Taylor dispersion; the same
   reference, Sec. 2.2), D_yy = κ;
-* cat's-eye at ε = 1 (diagonal shear): D_xx = D_yy = κ(1 + Pe²/4), D_xy = κ Pe²/4 (the design
-  notes' stated result, derived the same way);
-* cellular flow, small Pe: D = κ (1 + Pe²/8) + O(Pe⁴) (leading order of the same expansion).
+* cat's-eye at ε = 1, ψ = (U/k) cos k(x − y): u = v = U sin k(x − y) is a shear of speed
+  √2 U sin(√2 k η) along (1, 1)/√2 (η the distance across it), so by the shear result
+  D_∥ = κ(1 + Pe²/2), D_⊥ = κ, and rotating back D_xx = D_yy = ½(D_∥ + D_⊥) = κ(1 + Pe²/4),
+  D_xy = ½(D_∥ − D_⊥) = κ Pe²/4;
+* cellular flow, small Pe: at leading order κΔχ = −u, and u = U sin kx cos ky satisfies
+  Δu = −2k²u, so χ = u/(2κk²) and D_xx − κ = ⟨u χ⟩ = ⟨u²⟩/(2κk²) = U²/(8κk²): D = κ(1 + Pe²/8)
+  + O(Pe⁴) (Pavliotis & Stuart 2008, *Multiscale Methods*, ch. 13, for the expansion);
+* cellular flow, large Pe: D/κ → C Pe^½ with C = 2ν = 1.0654 (the constant and its sources in
+  ``eddyhop.plots.asymptotes``; checked against the cell-problem solver in
+  ``tests/test_reference_cell_problem.py``).
 Each is exact arithmetic, so tolerances are rounding only.
 """
 

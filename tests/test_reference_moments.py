@@ -69,9 +69,14 @@ def test_shear_flow_from_uniform_start_is_exact(kappa, U, k):
 
 def test_short_time_taylor_expansion():
     """Short times, uniform start in the cellular flow: msd_x = 2κt + ⟨u²⟩t² + O(t³) with
-    ⟨u²⟩ = U²/4 (expansion of E[(X − x₀)²] in powers of the generator u·∇ + κΔ, averaged
-    over a uniform start; design notes).  From a point x₀ the t² coefficient is
-    u(x₀)² + 2κ ∂u/∂x(x₀).  The relative deviation must vanish linearly in t."""
+    ⟨u²⟩ = U²/4.
+
+    Derivation (Dynkin's formula / Itô–Taylor expansion, E f(X_t) = Σ_n tⁿ Lⁿf(x₀)/n! for the
+    generator L = u·∇ + κΔ; Kloeden & Platen 1992, *Numerical Solution of Stochastic
+    Differential Equations*, ch. 5): with f = (x − x₀)², Lf = 2u(x − x₀) + 2κ, so Lf(x₀) = 2κ,
+    and L²f(x₀) = 2u(x₀)² + 4κ ∂u/∂x(x₀).  From a point x₀ the t² coefficient is therefore
+    u(x₀)² + 2κ ∂u/∂x(x₀); averaged over a uniform start ⟨∂u/∂x⟩ = 0 (periodic) and
+    ⟨u²⟩ = U²⟨sin²kx cos²ky⟩ = U²/4.  The relative deviation must vanish linearly in t."""
     kappa = 0.01
     times = np.array([1e-3, 1e-2])
     study = make_study(noise=_noise(kappa), start=[{"kind": "uniform"},

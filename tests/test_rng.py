@@ -7,9 +7,10 @@ from scipy import stats
 
 from eddyhop.rng import normal_draws, philox_block
 
-# Known-answer vectors of Philox4x32-10 (counter[4], key[2] -> output[4]) as published with the
-# reference implementation of Salmon, Moraes, Dror & Shaw (2011), "Parallel random numbers: as
-# easy as 1, 2, 3", Proc. SC'11 (file kat_vectors of the Random123 distribution).
+# Known-answer values of Philox4x32-10 (counter[4], key[2] -> output[4]) published with
+# Salmon, Moraes, Dror & Shaw (2011), "Parallel random numbers: as easy as 1, 2, 3",
+# Proceedings of the International Conference for High Performance Computing, Networking,
+# Storage and Analysis (SC'11), article 16.
 KNOWN_ANSWERS = [
     ([0, 0, 0, 0], [0, 0], [0x6627E8D5, 0xE169C58D, 0xBC57AC4C, 0x9B00DBD8]),
     ([0xFFFFFFFF] * 4, [0xFFFFFFFF] * 2, [0x408F276D, 0x41C83B0E, 0xA20BC7C6, 0x6D5451FD]),

@@ -213,9 +213,14 @@ def build_dataset(study, result) -> xr.Dataset:
                                                 "eddy sides", "units": "1"})
     if len(result.starts) == 1:
         ds = ds.squeeze("start")
-    ds.attrs.update(provenance_attrs(study, kind="monte_carlo", extra={
+    extra = {
         "block_size": result.block_size,
         "n_batches": result.batches,
         "step_size_warnings": " | ".join(result.warnings) if result.warnings else "none",
-    }))
+    }
+    if study.flow.model.name == "gridded":  # how faithful the simulated field is to the file
+        from .flows.gridded import field_attributes
+
+        extra.update(field_attributes(study.flow.params))
+    ds.attrs.update(provenance_attrs(study, kind="monte_carlo", extra=extra))
     return ds

@@ -194,6 +194,10 @@ def _parameters_section(ds) -> str:
     flow = study.get("flow", {}).get("params") or flow_parameters(ds)[1]
     for name, value in flow.items():
         rows.append((f"flow.{name}", _e(value) if isinstance(value, list) else _number(value)))
+    for name, value in attrs.items():  # gridded flows: the field report of the input file
+        if name.startswith("field_"):
+            rows.append((f"gridded {name.replace('_', ' ', 1)}",
+                         _e(value) if isinstance(value, str) else _number(value)))
     if attrs.get("kappa") is not None:
         rows.append(("molecular diffusivity κ", _number(attrs.get("kappa"))))
     peclet = attrs.get("peclet")

@@ -13,7 +13,9 @@ def command(studies):
     """Check one or more STUDIES files: every field, range and choice.
 
     Prints the resolved parameters (κ and Pe both, start regions, time grid)
-    for each valid file; exits with status 2 if any file is invalid.
+    for each valid file, and for a gridded flow the field report (divergence of
+    the data, interpolation error on the input grid); exits with status 2 if any
+    file is invalid.
     """
     from ..errors import EddyhopError
     from ..runner import step_size_warnings
@@ -39,6 +41,14 @@ def command(studies):
         click.echo(f"  {study.run.particles} particles, {study.run.integrator}, dt = "
                    f"{study.run.dt:g}, {schedule.total_steps} steps, {schedule.out_steps.size} "
                    f"output times from {schedule.times[0]:g} to {schedule.times[-1]:g}")
+        if study.flow.model.name == "gridded":
+            from ..flows.gridded import field_attributes
+
+            report = field_attributes(study.flow.params)
+            click.echo("  gridded field (the file's, before flow.scale):")
+            for name, value in report.items():
+                shown = value if isinstance(value, str) else f"{value:.6g}"
+                click.echo(f"    {name} = {shown}")
         for message in step_size_warnings(study):
             click.secho(f"  warning: {message}", fg="yellow")
     sys.exit(2 if failed else 0)

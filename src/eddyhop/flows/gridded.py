@@ -543,6 +543,29 @@ def field_report(values: dict) -> dict:
     }
 
 
+def field_attributes(values: dict) -> dict:
+    """:func:`field_report` as flat netCDF global attributes: ``field_<key>`` for every key, pairs
+    split into ``field_<key>_x`` and ``field_<key>_y`` (``shape``, ``period``,
+    ``mean_velocity``); values are plain Python numbers or strings.  They describe the file's
+    field (before ``flow.scale``)."""
+    out = {}
+    for key, value in field_report(values).items():
+        if isinstance(value, tuple):
+            for axis, item in zip(("x", "y"), value):
+                out[f"field_{key}_{axis}"] = _plain(item)
+        else:
+            out[f"field_{key}"] = _plain(value)
+    return out
+
+
+def _plain(value):
+    if isinstance(value, str):
+        return value
+    if isinstance(value, (int, np.integer)) and not isinstance(value, bool):
+        return int(value)
+    return float(value)
+
+
 FAMILY = GriddedFamily(
     name="gridded",
     code=6,

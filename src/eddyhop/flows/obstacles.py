@@ -18,10 +18,15 @@ Walls (the compiled :func:`confine`, applied after every step of every integrato
 end point lies inside a cylinder is mirrored across the cylinder wall along its normal, the
 radius r of the end point (from the cylinder centre) becoming 2a − r.  For a flat wall this is
 specular reflection of the part of the step that crossed the wall; for the curved wall it is
-the *symmetrized Euler scheme* of Bossy, Gobet & Talay (2004), J. Appl. Probab. 41, 877–889,
-which converges with weak order 1 for normally reflected diffusions in smooth domains (projecting
-the end point onto the wall instead would give weak order 1/2 — Gobet (2001), ESAIM: Probab.
-Stat. 5, 261–297; both orders quoted from memory).  The mirrored point is checked again (a
+the *symmetrized Euler scheme* of Bossy, Gobet & Talay (2004), "A symmetrized Euler scheme for
+an efficient approximation of reflected diffusions", J. Appl. Probab. 41, 877–889, who prove
+weak order 1 for reflected diffusions in smooth domains (projecting the end point onto the wall
+instead would give weak order 1/2 — Gobet (2001), ESAIM: Probab. Stat. 5, 261–297; that order
+quoted from memory).  Measured here (``tests/test_obstacles.py::test_wall_reflection_weak_order``:
+free diffusion among cylinders from uniform starts, whose exact law stays uniform, with a
+smooth observable of the distance to the wall): weak order 0.89 ± 0.08 for rms steps
+0.21a…0.11a, consistent with 1 (at rms step 0.3a the error ratios per halving are 1.86,
+pre-asymptotic).  The mirrored point is checked again (a
 narrow gap may send it into a neighbour) up to 8 times; if it still lies in a solid the step is
 rejected and the particle stays at its previous (fluid) position.  So no step ever ends inside
 a solid.  Only end points are tested: a step longer than a cylinder could in principle jump

@@ -4,9 +4,10 @@ The Krylov propagator does many small dense products (Gram–Schmidt on a few hu
 exponentials of ~100 × 100 matrices).  Multi-threaded OpenBLAS gains nothing at these sizes and,
 on a machine whose cores are busy, its spinning threads slowed them twenty-fold in our
 measurements.  This context manager sets every OpenBLAS library loaded in the process (NumPy's
-and SciPy's) to one thread and restores the previous counts afterwards — the technique of the
-threadpoolctl package, done with ctypes so as not to add a dependency.  Where the libraries or
-their symbols cannot be found (other platforms or BLAS vendors) it does nothing.
+and SciPy's) to one thread and restores the previous counts afterwards: it finds the shared
+libraries already mapped into the process, looks up their get/set-thread-count symbols with
+ctypes and calls them (no extra dependency).  Where the libraries or their symbols cannot be
+found (other platforms or BLAS vendors) it does nothing.
 """
 
 from __future__ import annotations
