@@ -5,7 +5,7 @@ Run:  python benchmarks/bench_cell_problem.py [--quick] [--peclets 10 100 1000 .
 Table 1, homogenized diffusivity of the cellular flow (U = k = 1, Pe = U/(κk)) at the tolerance
 ``rtol`` given per row, with automatic refinement (default max_modes): final Fourier modes per
 direction, unknowns of the final sparse system, wall and CPU seconds of the whole refinement,
-peak resident memory above an idle interpreter, D/κ and D/(κ Pe^½) (→ 1.0655 at large Pe).
+peak resident memory above an idle interpreter, D/κ and D/(κ Pe^½) (→ 2ν = 1.0654 at large Pe).
 Table 2, moment evolution of a uniform and a point start over t = 0.01 … 1000 at the default
 resolution plus its check run.
 
