@@ -142,30 +142,40 @@ def tile_velocity(fcode, fp, xs, ys, t, us, vs, m):
     """(us[g], vs[g]) = velocity at (xs[g], ys[g], t) for g < m, family ``fcode``.
 
     The same values as ``flows.compiled.velocity``; for the analytic families the switch is
-    taken once per tile and the family's own function is called in the loop, where the
-    compiler can inline it.
+    taken once per tile and the family's own function is called in the loop with
+    ``fast=True``, where the compiler inlines and vectorises it.  ``fast`` marks the points
+    whose trigonometric arguments are beyond the branch-free range of ``flows._trig.sincos``
+    with nan; a second pass evaluates those (and only those) through the compiled dispatch.
     """
     if fcode == _CELLULAR:
         for g in range(m):
-            us[g], vs[g] = cellular.velocity(xs[g], ys[g], t, fp)
+            us[g], vs[g] = cellular.velocity(xs[g], ys[g], t, fp, True)
     elif fcode == _CATS_EYE:
         for g in range(m):
-            us[g], vs[g] = cats_eye.velocity(xs[g], ys[g], t, fp)
+            us[g], vs[g] = cats_eye.velocity(xs[g], ys[g], t, fp, True)
     elif fcode == _SHEAR:
         for g in range(m):
-            us[g], vs[g] = shear.velocity(xs[g], ys[g], t, fp)
+            us[g], vs[g] = shear.velocity(xs[g], ys[g], t, fp, True)
     elif fcode == _DRIFTING:
         for g in range(m):
-            us[g], vs[g] = drifting_cellular.velocity(xs[g], ys[g], t, fp)
+            us[g], vs[g] = drifting_cellular.velocity(xs[g], ys[g], t, fp, True)
     elif fcode == _OSCILLATING:
         for g in range(m):
-            us[g], vs[g] = oscillating_cellular.velocity(xs[g], ys[g], t, fp)
+            us[g], vs[g] = oscillating_cellular.velocity(xs[g], ys[g], t, fp, True)
     elif fcode == _FOURIER:
         for g in range(m):
-            us[g], vs[g] = fourier.velocity(xs[g], ys[g], t, fp)
+            us[g], vs[g] = fourier.velocity(xs[g], ys[g], t, fp, True)
     else:
         for g in range(m):
             us[g], vs[g] = velocity(fcode, xs[g], ys[g], t, fp)
+        return
+    marked = False
+    for g in range(m):  # a vectorised test first; the marked case is rare
+        marked |= math.isnan(us[g]) | math.isnan(vs[g])
+    if marked:
+        for g in range(m):
+            if math.isnan(us[g]) or math.isnan(vs[g]):
+                us[g], vs[g] = velocity(fcode, xs[g], ys[g], t, fp)
 
 
 @jit

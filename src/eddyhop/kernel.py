@@ -34,7 +34,7 @@ from numba.core import cgutils
 from numba.extending import intrinsic
 
 from ._jit import jit
-from .flows.compiled import confine
+from .flows.compiled import confine, has_walls
 from .integrators import RK4, STRANG_RK2, TILE_WORK_ROWS, advance_tile
 from .rng import fill_normals
 
@@ -280,6 +280,7 @@ def run_particles(
     z = np.zeros((4, TILE))
     products = _product_orders(orders)
     powers = np.empty((3, MAX_PRODUCT_ORDER + 1))
+    walls = has_walls(fcode)
     n = x0.size
     for lo in range(0, n, TILE):
         m = min(TILE, n - lo)
@@ -297,9 +298,20 @@ def run_particles(
                 t = step * dt
                 advance_tile(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m,
                              x_new, y_new, work)
-                for g in range(m):
-                    xs[g], ys[g] = confine(fcode, xs[g], ys[g], x_new[g], y_new[g], fp)
+                if walls:
+                    for g in range(m):
+                        x_new[g], y_new[g] = confine(fcode, xs[g], ys[g], x_new[g], y_new[g],
+                                                     fp)
+                # the end points become the positions (swap the buffers, no copy)
+                xs, x_new = x_new, xs
+                ys, y_new = y_new, ys
                 step += 1
+                runaway = False
+                for g in range(m):  # a vectorised test first; the per-particle loop below
+                    # runs only when a particle ran away or cell hops are counted
+                    runaway |= not ((abs(xs[g]) < BLOWUP_LIMIT) & (abs(ys[g]) < BLOWUP_LIMIT))
+                if not (runaway or (hop_on and not failed)):
+                    continue
                 for g in range(m):
                     if not (abs(xs[g]) < BLOWUP_LIMIT and abs(ys[g]) < BLOWUP_LIMIT):
                         if status[0] < 0 or particle0 + g < status[0]:

@@ -11,11 +11,10 @@ diagonal jets between them (|ψ| < εU/k).  At ε = 1 the flow is the diagonal s
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
 from .._jit import jit
+from ._trig import sincos
 from .base import VELOCITY, WAVENUMBER, FlowFamily, Parameter
 from .cellular import cell_lattice_points
 
@@ -23,16 +22,16 @@ from .cellular import cell_lattice_points
 @jit
 def psi(x, y, t, p):
     k = p[1]
-    return p[0] / k * (math.sin(k * x) * math.sin(k * y) + p[2] * math.cos(k * x) * math.cos(k * y))
+    sx, cx = sincos(k * x)
+    sy, cy = sincos(k * y)
+    return p[0] / k * (sx * sy + p[2] * cx * cy)
 
 
-@jit
-def velocity(x, y, t, p):
+@jit(inline="always")
+def velocity(x, y, t, p, fast=False):
     k = p[1]
-    sx = math.sin(k * x)
-    cx = math.cos(k * x)
-    sy = math.sin(k * y)
-    cy = math.cos(k * y)
+    sx, cx = sincos(k * x, fast)
+    sy, cy = sincos(k * y, fast)
     return p[0] * (sx * cy - p[2] * cx * sy), -p[0] * (cx * sy - p[2] * sx * cy)
 
 
@@ -41,10 +40,8 @@ def gradient(x, y, t, p):
     k = p[1]
     uk = p[0] * k
     eps = p[2]
-    sx = math.sin(k * x)
-    cx = math.cos(k * x)
-    sy = math.sin(k * y)
-    cy = math.cos(k * y)
+    sx, cx = sincos(k * x)
+    sy, cy = sincos(k * y)
     dudx = uk * (cx * cy + eps * sx * sy)
     dudy = uk * (-sx * sy - eps * cx * cy)
     dvdx = uk * (sx * sy + eps * cx * cy)

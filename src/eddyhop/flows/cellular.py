@@ -12,20 +12,22 @@ import math
 import numpy as np
 
 from .._jit import jit
+from ._trig import sincos
 from .base import FlowFamily
 
 
 @jit
 def psi(x, y, t, p):
-    return p[0] / p[1] * math.sin(p[1] * x) * math.sin(p[1] * y)
+    sx, _ = sincos(p[1] * x)
+    sy, _ = sincos(p[1] * y)
+    return p[0] / p[1] * sx * sy
 
 
-@jit
-def velocity(x, y, t, p):
-    sx = math.sin(p[1] * x)
-    cx = math.cos(p[1] * x)
-    sy = math.sin(p[1] * y)
-    cy = math.cos(p[1] * y)
+@jit(inline="always")
+def velocity(x, y, t, p, fast=False):
+    """(u, v); ``fast`` is passed to ``_trig.sincos`` (nan beyond its range, for tile loops)."""
+    sx, cx = sincos(p[1] * x, fast)
+    sy, cy = sincos(p[1] * y, fast)
     return p[0] * sx * cy, -p[0] * cx * sy
 
 
@@ -34,10 +36,8 @@ def gradient(x, y, t, p):
     """(∂u/∂x, ∂u/∂y, ∂v/∂x, ∂v/∂y)."""
     k = p[1]
     uk = p[0] * k
-    sx = math.sin(k * x)
-    cx = math.cos(k * x)
-    sy = math.sin(k * y)
-    cy = math.cos(k * y)
+    sx, cx = sincos(k * x)
+    sy, cy = sincos(k * y)
     return uk * cx * cy, -uk * sx * sy, uk * sx * sy, -uk * cx * cy
 
 

@@ -87,6 +87,12 @@ def gradient(code, x, y, t, p):
 
 
 @jit
+def has_walls(code):
+    """Whether :func:`confine` can move an end point for family ``code`` (else identity)."""
+    return code == 7
+
+
+@jit
 def confine(code, x_old, y_old, x, y, p):
     """End point of a step from (x_old, y_old) to (x, y) after the family's solid walls.
 

@@ -13,17 +13,20 @@ import numpy as np
 
 from .._jit import jit
 from . import cellular
+from ._trig import sincos
 from .base import VELOCITY, WAVENUMBER, FlowFamily, Parameter
 
 
 @jit
 def psi(x, y, t, p):
-    return p[0] / p[1] * math.sin(p[1] * x) * math.sin(p[1] * y) + p[2] * y - p[3] * x
+    sx, _ = sincos(p[1] * x)
+    sy, _ = sincos(p[1] * y)
+    return p[0] / p[1] * sx * sy + p[2] * y - p[3] * x
 
 
-@jit
-def velocity(x, y, t, p):
-    u, v = cellular.velocity(x, y, t, p)
+@jit(inline="always")
+def velocity(x, y, t, p, fast=False):
+    u, v = cellular.velocity(x, y, t, p, fast)
     return u + p[2], v + p[3]
 
 

@@ -15,6 +15,7 @@ import numpy as np
 
 from .._jit import jit
 from ..errors import StudyError
+from ._trig import sincos
 from .base import FlowFamily
 
 _HEADER = 3  # U, k, number of modes; then 4 numbers per mode
@@ -26,20 +27,20 @@ def psi(x, y, t, p):
     total = 0.0
     for j in range(int(p[2])):
         base = _HEADER + 4 * j
-        theta = k * (p[base] * x + p[base + 1] * y)
-        total += p[base + 2] * math.cos(theta) + p[base + 3] * math.sin(theta)
+        s, c = sincos(k * (p[base] * x + p[base + 1] * y))
+        total += p[base + 2] * c + p[base + 3] * s
     return p[0] / k * total
 
 
-@jit
-def velocity(x, y, t, p):
+@jit(inline="always")
+def velocity(x, y, t, p, fast=False):
     k = p[1]
     u = 0.0
     v = 0.0
     for j in range(int(p[2])):
         base = _HEADER + 4 * j
-        theta = k * (p[base] * x + p[base + 1] * y)
-        slope = p[base + 3] * math.cos(theta) - p[base + 2] * math.sin(theta)
+        s, c = sincos(k * (p[base] * x + p[base + 1] * y), fast)
+        slope = p[base + 3] * c - p[base + 2] * s
         u += p[base + 1] * slope
         v -= p[base] * slope
     return p[0] * u, p[0] * v
@@ -55,8 +56,8 @@ def gradient(x, y, t, p):
         base = _HEADER + 4 * j
         m = p[base]
         n = p[base + 1]
-        theta = k * (m * x + n * y)
-        curvature = -(p[base + 3] * math.sin(theta) + p[base + 2] * math.cos(theta))
+        s, c = sincos(k * (m * x + n * y))
+        curvature = -(p[base + 3] * s + p[base + 2] * c)
         dudx += n * m * curvature
         dudy += n * n * curvature
         dvdx -= m * m * curvature

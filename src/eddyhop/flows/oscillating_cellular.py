@@ -10,6 +10,7 @@ from __future__ import annotations
 import math
 
 from .._jit import jit
+from ._trig import sincos
 from .base import VELOCITY, WAVENUMBER, FlowFamily, Parameter
 from .cellular import cell_lattice_points
 
@@ -17,17 +18,19 @@ from .cellular import cell_lattice_points
 @jit
 def psi(x, y, t, p):
     k = p[1]
-    return p[0] / k * math.sin(k * (x + p[2] * math.sin(p[3] * t))) * math.sin(k * y)
+    sx, _ = sincos(k * (x + p[2] * sincos(p[3] * t)[0]))
+    sy, _ = sincos(k * y)
+    return p[0] / k * sx * sy
 
 
-@jit
-def velocity(x, y, t, p):
+@jit(inline="always")
+def velocity(x, y, t, p, fast=False):
     k = p[1]
-    phase = k * (x + p[2] * math.sin(p[3] * t))
-    sx = math.sin(phase)
-    cx = math.cos(phase)
-    sy = math.sin(k * y)
-    cy = math.cos(k * y)
+    # the time factor is the same for every particle: always the full sincos (the compiler
+    # takes it out of a tile loop), so that large ωt does not send every point to the fallback
+    phase = k * (x + p[2] * sincos(p[3] * t)[0])
+    sx, cx = sincos(phase, fast)
+    sy, cy = sincos(k * y, fast)
     return p[0] * sx * cy, -p[0] * cx * sy
 
 
@@ -35,11 +38,9 @@ def velocity(x, y, t, p):
 def gradient(x, y, t, p):
     k = p[1]
     uk = p[0] * k
-    phase = k * (x + p[2] * math.sin(p[3] * t))
-    sx = math.sin(phase)
-    cx = math.cos(phase)
-    sy = math.sin(k * y)
-    cy = math.cos(k * y)
+    phase = k * (x + p[2] * sincos(p[3] * t)[0])
+    sx, cx = sincos(phase)
+    sy, cy = sincos(k * y)
     return uk * cx * cy, -uk * sx * sy, uk * sx * sy, -uk * cx * cy
 
 

@@ -9,22 +9,23 @@ from __future__ import annotations
 import math
 
 from .._jit import jit
+from ._trig import sincos
 from .base import FlowFamily
 
 
 @jit
 def psi(x, y, t, p):
-    return -p[0] / p[1] * math.cos(p[1] * y)
+    return -p[0] / p[1] * sincos(p[1] * y)[1]
 
 
-@jit
-def velocity(x, y, t, p):
-    return p[0] * math.sin(p[1] * y), 0.0
+@jit(inline="always")
+def velocity(x, y, t, p, fast=False):
+    return p[0] * sincos(p[1] * y, fast)[0], 0.0
 
 
 @jit
 def gradient(x, y, t, p):
-    return 0.0, p[0] * p[1] * math.cos(p[1] * y), 0.0, 0.0
+    return 0.0, p[0] * p[1] * sincos(p[1] * y)[1], 0.0, 0.0
 
 
 class Shear(FlowFamily):
