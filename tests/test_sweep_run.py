@@ -1,4 +1,6 @@
-"""Running sweeps: resume after SIGKILL, checksums, foreign folders, failures, backends, merge.
+"""Running sweeps: checksums, foreign folders, failures, backends, merge, progress, CLI.
+
+(Resuming after SIGKILL is tested in test_sweep_kill.py.)
 
 Every comparison of numbers here is exact (bit-identical): a sweep point is a plain study with a
 fixed seed, and the engine's results do not depend on workers, chunks or backend.
@@ -7,11 +9,7 @@ fixed seed, and the engine's results do not depend on workers, chunks or backend
 from __future__ import annotations
 
 import json
-import os
-import signal
 import socket
-import subprocess
-import sys
 import threading
 import time
 from pathlib import Path
@@ -151,55 +149,6 @@ def test_rerun_skips_every_complete_point(reference):
                        merge_to=None)
     assert report.computed == [] and len(report.skipped) == 6
     assert before == {p.name: p.stat().st_mtime_ns for p in (out / "points").iterdir()}
-
-
-def test_resume_after_sigkill_is_bit_identical(tmp_path):
-    """A sweep killed with SIGKILL part-way resumes without rerunning complete points."""
-    text = study_text(particles=1500, t_end=10.0, per_decade=2)  # 5 x 2 = 10 points
-    path = write_study(tmp_path, text)
-    out = tmp_path / "killed"
-    env = dict(os.environ, PYTHONUNBUFFERED="1")
-    process = subprocess.Popen(
-        [sys.executable, "-m", "eddyhop", "sweep", str(path), "--out", str(out),
-         "--backend", "serial", "--no-progress", "--no-merge"],
-        stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, env=env)
-    manifest_path = out / "sweep-manifest.json"
-    done_before = []
-    deadline = time.monotonic() + 240
-    try:
-        while time.monotonic() < deadline and process.poll() is None:
-            if manifest_path.exists():
-                try:
-                    entries = json.loads(manifest_path.read_text())["points"]
-                except (json.JSONDecodeError, OSError):  # pragma: no cover - atomic writes
-                    entries = []
-                done_before = [e for e in entries if e["status"] == "done"]
-                if len(done_before) >= 2:
-                    process.send_signal(signal.SIGKILL)
-                    break
-            time.sleep(0.01)
-    finally:
-        if process.poll() is None:
-            process.kill()
-        stderr = process.communicate(timeout=60)[1].decode()
-    assert process.returncode == -signal.SIGKILL, stderr
-    state = Manifest.read(out)
-    done_ids = {e["id"] for e in state.points if e["status"] == "done"}
-    assert 2 <= len(done_ids) < 10, "the sweep must be killed part-way"
-    files_before = {i: (out / "points" / f"{i}.nc").stat().st_mtime_ns for i in done_ids}
-
-    report = run_sweep(path, out, backend="serial", progress=False)
-    assert set(report.skipped) == done_ids
-    assert set(report.computed) == {f"pt{i:04d}" for i in range(10)} - done_ids
-    after = Manifest.read(out)
-    for point_id in done_ids:  # complete points were not run again
-        assert (out / "points" / f"{point_id}.nc").stat().st_mtime_ns == files_before[point_id]
-        assert after.entry(point_id)["attempts"] == 1
-    assert not list((out / "points").glob(".*.part"))  # half-written files cleaned up
-
-    uninterrupted = run_sweep(path, tmp_path / "straight", backend="serial", progress=False)
-    assert uninterrupted.complete
-    assert_same_numbers(merge_sweep(out), merge_sweep(tmp_path / "straight"))
 
 
 def test_corrupted_point_file_is_detected_and_recomputed(tmp_path, reference):
