@@ -236,6 +236,15 @@ def _write_point(ds, point, manifest, seconds: float, messages: list) -> Path:
 
 def _dispatch(pool, queue, spec, study, manifest, report, threads, show, step_warnings):
     """Keep ``pool.slots`` points running; record each outcome as it arrives."""
+    waiting = list(queue)
+    running = {}
+
+    def state() -> str:
+        counts = manifest.counts()
+        # failed in an earlier run and queued for a retry: not (yet) a failure of this run
+        counts["failed"] -= sum(manifest.entry(p.id)["status"] == "failed" for p in waiting)
+        return progress_text(counts)
+
     bar = None
     if show:
         from tqdm.auto import tqdm
@@ -243,16 +252,12 @@ def _dispatch(pool, queue, spec, study, manifest, report, threads, show, step_wa
         # n counts finished points (done or failed, also those finished by earlier runs); the
         # ETA is tqdm's, from the smoothed recent rate of points finished in this run
         bar = tqdm(total=report.n_points, initial=report.n_points - len(queue), unit="point",
-                   desc="sweep", dynamic_ncols=True, smoothing=0.1, bar_format=BAR_FORMAT)
-    waiting = list(queue)
-    running = {}
+                   desc="sweep", dynamic_ncols=True, smoothing=0.1, bar_format=BAR_FORMAT,
+                   postfix=state())
 
     def show_state():
         if bar is not None:
-            counts = manifest.counts()
-            # failed in an earlier run and queued for a retry: not (yet) a failure of this run
-            counts["failed"] -= sum(manifest.entry(p.id)["status"] == "failed" for p in waiting)
-            bar.set_postfix_str(progress_text(counts), refresh=True)
+            bar.set_postfix_str(state(), refresh=True)
 
     try:
         while waiting or running:
@@ -280,7 +285,7 @@ def _dispatch(pool, queue, spec, study, manifest, report, threads, show, step_wa
                 report.failed[point.id] = outcome["error"]
                 if bar is not None:
                     bar.write(f"point {point.id} ({point.describe(spec.axes)}) failed: "
-                              f"{outcome['error']}")
+                              f"{outcome['error']}", file=sys.stderr)  # beside the bar
             manifest.save()
             if bar is not None:
                 bar.update(1)
