@@ -5,7 +5,7 @@ inside one Python process with a reused worker pool; plus the scheduling overhea
 Dataset, the atomic netCDF write, the sha256, the manifest updates) and the resume check.
 
 Run:  python benchmarks/bench_sweep.py [--points 8] [--particles 6000] [--t-end 60]
-                                       [--long-t-end 240] [--repeat 2]
+                                       [--long-t-end 240] [--repeat 2] [--skip-documented]
 Two workloads: the documented one (t_end = 60: 6000 steps per point) and one with 4x longer
 points (--long-t-end; 0 skips it), where worker start-up is negligible.  Measured side by side
 in one run on this machine; not a timed test.  Other work on the machine lowers every parallel
@@ -144,8 +144,8 @@ def workload(root: Path, tag: str, particles: int, t_end: float, points: int,
             ("in-process: 2 processes, reused pool", "reused pool", "serial"))
     for label, key, reference in rows:
         speedup = best[reference] / best[key]
-        print(f"  {label:<40} {best[key]:7.2f} s  speed-up {speedup:4.2f}x  "
-              f"(efficiency {speedup / 2:5.1%})")
+        efficiency = "" if key == reference else f"  (parallel efficiency {speedup / 2:5.1%})"
+        print(f"  {label:<40} {best[key]:7.2f} s  speed-up {speedup:4.2f}x{efficiency}")
     print(f"  merged numbers bit-identical (serial, in-process and CLI parallel): {identical}")
     return {"best": best, "identical": identical, "path": path}
 
@@ -158,6 +158,8 @@ def main():
     parser.add_argument("--long-t-end", type=float, default=240.0)
     parser.add_argument("--tiny-points", type=int, default=40)
     parser.add_argument("--repeat", type=int, default=2)
+    parser.add_argument("--skip-documented", action="store_true",
+                        help="only the long workload (and the overhead section)")
     options = parser.parse_args()
 
     from eddyhop.spec import load_study
@@ -175,16 +177,20 @@ def main():
         print(f"kernel compile/load in this process: "
               f"{warm_kernels(study.sweep.point_document(first)):.1f} s")
         capacity_before = machine_capacity(path)
-        results = [workload(root, "documented", options.particles, options.t_end,
-                            options.points, options.repeat)]
+        results, names = [], []
+        if not options.skip_documented:
+            results.append(workload(root, "documented", options.particles, options.t_end,
+                                    options.points, options.repeat))
+            names.append("documented")
         if options.long_t_end > 0:
             results.append(workload(root, "long", options.particles, options.long_t_end,
                                     options.points, 1))
+            names.append("long")
         capacity_after = machine_capacity(path)
         print(f"\navailable: two plain concurrent processes run {capacity_before:.2f}x "
               f"(before) / {capacity_after:.2f}x (after) as fast as one (2.00x on an idle "
               "2-core machine)")
-        for result, name in zip(results, ("documented", "long")):
+        for result, name in zip(results, names):
             best = result["best"]
             cli = best["cli serial"] / best["cli 2 processes"]
             print(f"  {name}: CLI speed-up {cli:.2f}x "

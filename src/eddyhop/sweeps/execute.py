@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import contextlib
 import copy
+import hashlib
 import json
 import os
 import socket
@@ -70,11 +71,17 @@ def compute_point(payload: dict) -> dict:
                 "seconds": time.perf_counter() - started}
 
 
-def warm_kernels(document: dict) -> float:
+def warm_kernels(document: dict, *, once: bool = False) -> float:
     """Compile (or load) the numba kernels once in this process so that the on-disk cache is
     warm before worker processes start; returns the seconds spent.  Kernels are compiled per
     argument types, which do not depend on the flow, noise or scheme, so a tiny run of the
-    first point suffices."""
+    first point suffices.
+
+    ``once``: skip the run (return 0) if this exact tiny run has already completed with this
+    version of the package sources, i.e. the cache already holds what it compiles; a marker
+    file in the kernel cache directory records that.  Local worker processes share that
+    cache, so a sweep started again (resumed, rerun) dispatches without the warm-up."""
+    from .._jit import kernel_cache_dir
     from ..api import simulate
     from ..runner import StepSizeWarning
     from ..spec import parse_study
@@ -87,9 +94,15 @@ def warm_kernels(document: dict) -> float:
         run.pop(key, None)
     run.update(particles=8, t_end=4 * dt, n_times=2, workers=1, progress=False)
     tiny.pop("aging", None)
+    digest = hashlib.sha256(json.dumps(tiny, sort_keys=True, default=str).encode()).hexdigest()
+    marker = Path(kernel_cache_dir()) / f"eddyhop-sweep-warm-{digest[:20]}"
+    if once and marker.exists():
+        return 0.0
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", StepSizeWarning)
         simulate(parse_study(tiny), workers=1, progress=False)
+    with contextlib.suppress(OSError):  # only an optimisation; an unwritable cache is fine
+        marker.touch()
     return time.perf_counter() - started
 
 
@@ -186,7 +199,10 @@ def run_sweep(study, out, *, backend: str = "auto", jobs: int | None = None,
                 if hasattr(pool, "start"):
                     pool.start()
                 if pool.name != "serial":
-                    report.warm_seconds = warm_kernels(spec.point_document(queue[0]))
+                    # local workers share this machine's kernel cache: warm it once per
+                    # source version and first point; a cluster's machines may not share it
+                    report.warm_seconds = warm_kernels(spec.point_document(queue[0]),
+                                                       once=pool.name == "processes")
                 threads = workers if workers is not None else (
                     study.run.workers if pool.name == "serial" else 1)
                 _dispatch(pool, queue, spec, study, manifest, report, threads, show,
