@@ -1,4 +1,5 @@
-"""End to end: a Péclet sweep of a parallel shear reproduces Taylor dispersion.
+"""End to end: Péclet sweeps of a parallel shear (Taylor dispersion) and of closed cells
+(D_eff ∝ Pe^{1/2}).
 
 Reference: for u = U sin(ky), v = 0 and molecular diffusivity κ, the long-time longitudinal
 diffusivity is D_xx = κ + U²/(2 κ k²) (Taylor dispersion by periodic homogenization; Majda &
@@ -56,3 +57,46 @@ def test_shear_sweep_matches_taylor_dispersion(tmp_path):
     upper = float(summary["D_xx_exponent_upper"])
     assert lower <= expected <= upper, (lower, expected, upper)
     assert lower > 0.5  # informative: excludes the closed-cell exponent 1/2
+
+
+CELLULAR = """
+title = "Closed cellular flow, Pe sweep from 30 to 300"
+[flow]
+family = "cellular"
+U = 1.0
+k = 1.0
+[noise]
+peclet = 100.0
+[run]
+particles = 800
+dt = 0.05
+t_end = 600.0
+n_times = 40
+spacing = "log"
+integrator = "strang_rk2"
+seed = 1
+progress = false
+[sweep]
+"noise.peclet" = { first = 30.0, last = 300.0, per_decade = 4, scale = "log" }
+"""
+
+
+@pytest.mark.slow
+def test_cellular_sweep_deff_exponent_is_one_half(tmp_path):
+    """Boundary-layer transport in closed cells: D_eff/κ ∝ Pe^{1/2} at large Pe (Shraiman
+    1987, Phys. Rev. A 36, 261; Rosenbluth, Berk, Doxas & Horton 1987, Phys. Fluids 30, 2636).
+    Five points Pe = 30 … 300, each run for ≥ 2 cell-diffusion times 1/(κk²) = Pe/(Uk) so that
+    every D_eff is converged; the fitted exponent's 95 % interval (jackknife standard errors,
+    Birge-widened) must contain 1/2 and be informative (exclude 0, 1 and the shear's 2)."""
+    pytest.importorskip("eddyhop.analysis")
+    path = tmp_path / "cellular.toml"
+    path.write_text(CELLULAR, encoding="utf-8")
+    report = run_sweep(path, tmp_path / "out", backend="serial", progress=False)
+    assert report.complete
+    ds = xr.open_dataset(report.merged)
+    assert np.allclose(ds["peclet"].values, 30.0 * 10.0 ** (np.arange(5) / 4))
+    assert (ds["deff_converged"].values == 1).all()
+    assert int(ds["D_eff_fit_points"]) == 5
+    lower, upper = float(ds["D_eff_exponent_lower"]), float(ds["D_eff_exponent_upper"])
+    assert lower <= 0.5 <= upper, (lower, float(ds["D_eff_exponent"]), upper)
+    assert 0.0 < lower and upper < 1.0

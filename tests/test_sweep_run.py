@@ -1,4 +1,6 @@
-"""Running sweeps: resume after SIGKILL, checksums, foreign folders, failures, backends, merge.
+"""Running sweeps: checksums, foreign folders, failures, backends, merge, progress, CLI.
+
+(Resuming after SIGKILL is tested in test_sweep_kill.py.)
 
 Every comparison of numbers here is exact (bit-identical): a sweep point is a plain study with a
 fixed seed, and the engine's results do not depend on workers, chunks or backend.
@@ -8,10 +10,8 @@ from __future__ import annotations
 
 import json
 import os
-import signal
+import re
 import socket
-import subprocess
-import sys
 import threading
 import time
 from pathlib import Path
@@ -20,7 +20,7 @@ import numpy as np
 import pytest
 import xarray as xr
 
-from eddyhop.errors import EddyhopError
+from eddyhop.errors import EddyhopError, StudyError
 from eddyhop.spec import parse_study_text
 from eddyhop.sweep import Manifest, merge_sweep, run_sweep
 
@@ -144,6 +144,48 @@ def test_merged_file_opens_with_netcdf4_and_xarray_with_units(reference, tmp_pat
         assert ds["velocity_scale"].dims == () and float(ds["velocity_scale"]) == 1.0
 
 
+def test_merged_file_with_analysis_opens_with_netcdf4_and_xarray(reference, tmp_path):
+    """Merged *with* the per-point analysis (effective diffusivities, regime table, crossover
+    times, scaling fits): the file is plain netCDF-4 that both libraries read in full, every
+    numeric coordinate has units, and the regime table and crossover times are there."""
+    pytest.importorskip("eddyhop.analysis")
+    import netCDF4
+
+    from eddyhop.io import write_netcdf
+
+    merged = merge_sweep(reference["report"].directory)
+    for name in ("D_eff", "D_eff_se", "regime_label", "regime_start", "regime_end",
+                 "regime_alpha", "crossover_time", "crossover_from", "crossover_to",
+                 "crossover_time_advective", "crossover_time_boundary_layer",
+                 "crossover_time_diffusive", "D_eff_exponent"):
+        assert name in merged.data_vars, name
+    assert merged["regime_label"].dims[:2] == ("peclet", "start")
+    assert merged["crossover_time"].dims[:2] == ("peclet", "start")
+    target = write_netcdf(merged, tmp_path / "analysed.nc")
+    with netCDF4.Dataset(target) as nc:
+        values = {name: variable[:] for name, variable in nc.variables.items()}
+        for dim in nc.dimensions:
+            if dim in nc.variables and nc.variables[dim].dtype != str:
+                assert "units" in nc.variables[dim].ncattrs(), dim
+        assert nc.variables["crossover_time"].units == "s"
+        labels = values["regime_label"]
+        regimes = nc.variables["regime_count"][:]
+    # the regime table: a label for each regime a point has, blank padding after
+    for index in np.ndindex(regimes.shape):
+        row = [str(x) for x in labels[index]]
+        assert all(row[: regimes[index]]) and not any(row[regimes[index]:]), row
+    with xr.open_dataset(target) as ds:
+        ds.load()
+        numeric = [c for c in ds.coords if ds[c].dtype.kind in "iuf"]
+        assert {"peclet", "time", "regime", "crossover"} <= set(numeric)
+        for name in numeric:
+            assert "units" in ds[name].attrs, name
+        assert "long_name" in ds["start"].attrs
+        assert np.isfinite(ds["crossover_time"].values).any()
+        assert np.isfinite(ds["regime_alpha"].values).any()
+        assert_same_numbers(ds[["msd"]], merged[["msd"]])
+
+
 def test_rerun_skips_every_complete_point(reference):
     out = reference["report"].directory
     before = {p.name: p.stat().st_mtime_ns for p in (out / "points").iterdir()}
@@ -151,55 +193,6 @@ def test_rerun_skips_every_complete_point(reference):
                        merge_to=None)
     assert report.computed == [] and len(report.skipped) == 6
     assert before == {p.name: p.stat().st_mtime_ns for p in (out / "points").iterdir()}
-
-
-def test_resume_after_sigkill_is_bit_identical(tmp_path):
-    """A sweep killed with SIGKILL part-way resumes without rerunning complete points."""
-    text = study_text(particles=1500, t_end=10.0, per_decade=2)  # 5 x 2 = 10 points
-    path = write_study(tmp_path, text)
-    out = tmp_path / "killed"
-    env = dict(os.environ, PYTHONUNBUFFERED="1")
-    process = subprocess.Popen(
-        [sys.executable, "-m", "eddyhop", "sweep", str(path), "--out", str(out),
-         "--backend", "serial", "--no-progress", "--no-merge"],
-        stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, env=env)
-    manifest_path = out / "sweep-manifest.json"
-    done_before = []
-    deadline = time.monotonic() + 240
-    try:
-        while time.monotonic() < deadline and process.poll() is None:
-            if manifest_path.exists():
-                try:
-                    entries = json.loads(manifest_path.read_text())["points"]
-                except (json.JSONDecodeError, OSError):  # pragma: no cover - atomic writes
-                    entries = []
-                done_before = [e for e in entries if e["status"] == "done"]
-                if len(done_before) >= 2:
-                    process.send_signal(signal.SIGKILL)
-                    break
-            time.sleep(0.01)
-    finally:
-        if process.poll() is None:
-            process.kill()
-        stderr = process.communicate(timeout=60)[1].decode()
-    assert process.returncode == -signal.SIGKILL, stderr
-    state = Manifest.read(out)
-    done_ids = {e["id"] for e in state.points if e["status"] == "done"}
-    assert 2 <= len(done_ids) < 10, "the sweep must be killed part-way"
-    files_before = {i: (out / "points" / f"{i}.nc").stat().st_mtime_ns for i in done_ids}
-
-    report = run_sweep(path, out, backend="serial", progress=False)
-    assert set(report.skipped) == done_ids
-    assert set(report.computed) == {f"pt{i:04d}" for i in range(10)} - done_ids
-    after = Manifest.read(out)
-    for point_id in done_ids:  # complete points were not run again
-        assert (out / "points" / f"{point_id}.nc").stat().st_mtime_ns == files_before[point_id]
-        assert after.entry(point_id)["attempts"] == 1
-    assert not list((out / "points").glob(".*.part"))  # half-written files cleaned up
-
-    uninterrupted = run_sweep(path, tmp_path / "straight", backend="serial", progress=False)
-    assert uninterrupted.complete
-    assert_same_numbers(merge_sweep(out), merge_sweep(tmp_path / "straight"))
 
 
 def test_corrupted_point_file_is_detected_and_recomputed(tmp_path, reference):
@@ -245,8 +238,7 @@ def test_folder_of_another_study_is_refused_and_left_alone(tmp_path, reference):
         run_sweep(reference["path"], tmp_path / "bad", backend="serial", progress=False)
 
 
-def test_failing_point_is_recorded_and_others_complete(tmp_path):
-    text = """
+FAILING = """
 title = "one point blows up"
 [flow]
 family = "cellular"
@@ -261,7 +253,10 @@ progress = false
 [sweep]
 "flow.U" = [1.0, 1e300, 2.0]
 """
-    path = write_study(tmp_path, text)
+
+
+def test_failing_point_is_recorded_and_others_complete(tmp_path):
+    path = write_study(tmp_path, FAILING)
     report = run_sweep(path, tmp_path / "out", backend="serial", progress=False)
     assert report.computed == ["pt0000", "pt0002"]
     assert list(report.failed) == ["pt0001"]
@@ -312,18 +307,20 @@ def test_unreachable_scheduler_fails_fast(study_file, tmp_path, free_port):
                   progress=False)
 
 
-def test_silent_scheduler_times_out(study_file, tmp_path):
-    """A port that accepts connections but never speaks the Dask protocol: error, no hang."""
+@pytest.fixture
+def silent_peer():
+    """A loopback port that accepts connections and never sends a byte.  The accepting
+    thread stops when the test ends, and by itself after 60 s at the latest."""
     server = socket.socket()
     server.bind(("127.0.0.1", 0))
     server.listen(8)
-    port = server.getsockname()[1]
+    server.settimeout(0.2)
     accepted = []
     stop = threading.Event()
+    give_up = time.monotonic() + 60
 
     def accept():
-        server.settimeout(0.2)
-        while not stop.is_set():
+        while not stop.is_set() and time.monotonic() < give_up:
             try:
                 accepted.append(server.accept()[0])
             except OSError:
@@ -331,18 +328,133 @@ def test_silent_scheduler_times_out(study_file, tmp_path):
 
     thread = threading.Thread(target=accept, daemon=True)
     thread.start()
-    started = time.monotonic()
     try:
-        with pytest.raises(EddyhopError, match="Dask scheduler"):
-            run_sweep(study_file, tmp_path / "c", backend="dask",
-                      scheduler=f"tcp://127.0.0.1:{port}", progress=False, timeout=2)
+        yield f"tcp://127.0.0.1:{server.getsockname()[1]}"
     finally:
         stop.set()
-        thread.join()
+        thread.join(timeout=5)
         for connection in accepted:
             connection.close()
         server.close()
-    assert time.monotonic() - started < 15
+    assert accepted, "the probe never connected"
+
+
+@pytest.mark.parametrize("timeout", [None, 2.0])
+def test_silent_scheduler_is_reported_within_the_timeout(study_file, tmp_path, silent_peer,
+                                                        timeout):
+    """A peer that accepts connections but never speaks the Dask protocol: the connection
+    handshake and the identity reply share one deadline, so the error comes after `timeout`
+    seconds (the default, 10 s, when not given), not after a multiple of it."""
+    options = {} if timeout is None else {"timeout": timeout}
+    limit = 10.0 if timeout is None else timeout
+    started = time.monotonic()
+    with pytest.raises(EddyhopError, match=rf"accepts connections but did not answer as a Dask "
+                                           rf"scheduler within {limit:g} s"):
+        run_sweep(study_file, tmp_path / "c", backend="dask", scheduler=silent_peer,
+                  progress=False, **options)
+    elapsed = time.monotonic() - started
+    assert limit - 0.5 <= elapsed <= limit + 1.5, elapsed
+
+
+def test_scheduler_without_workers_is_reported_within_the_timeout(study_file, tmp_path):
+    distributed = pytest.importorskip("distributed")
+    with distributed.LocalCluster(n_workers=0, processes=False, host="127.0.0.1",
+                                  dashboard_address=None, protocol="tcp") as cluster:
+        started = time.monotonic()
+        with pytest.raises(EddyhopError, match=r"has no workers \(waited 2 s\)"):
+            run_sweep(study_file, tmp_path / "d", backend="dask",
+                      scheduler=cluster.scheduler_address, progress=False, timeout=2)
+        assert time.monotonic() - started <= 2 + 1.5
+
+
+def test_zero_jobs_or_threads_are_refused(study_file, tmp_path):
+    """-j/--jobs and -w/--workers follow run.workers: -1 means every core, 0 is refused."""
+    from click.testing import CliRunner
+
+    from eddyhop.cli import main
+    from eddyhop.sweeps.backends import make_pool
+
+    for jobs in (0, -2):
+        with pytest.raises(EddyhopError, match=rf"--jobs \(-j\) = {jobs} is not allowed: give "
+                                               r"-1 for every core or a number of processes "
+                                               r">= 1"):
+            run_sweep(study_file, tmp_path / "j", backend="processes", jobs=jobs,
+                      progress=False)
+    with pytest.raises(EddyhopError, match=r"--workers \(-w\) = 0 is not allowed: give -1 for "
+                                           r"every core or a number of threads per point"):
+        run_sweep(study_file, tmp_path / "w", backend="serial", workers=0, progress=False)
+    assert not (tmp_path / "j").exists() and not (tmp_path / "w").exists()  # refused first
+    result = CliRunner().invoke(main, ["sweep", str(study_file), "--out", str(tmp_path / "c"),
+                                       "-j", "0"])
+    assert result.exit_code != 0 and "--jobs (-j) = 0 is not allowed" in result.output
+    assert make_pool("processes", jobs=-1, scheduler=None, n_todo=1000).slots == (
+        os.cpu_count() or 1)
+    assert make_pool("auto", jobs=1, scheduler=None, n_todo=6).name == "serial"
+    with pytest.raises(StudyError, match=r"run.workers = 0 is not allowed"):  # the same rule
+        parse_study_text(study_text().replace("seed = 11", "seed = 11\nworkers = 0"), "w.toml")
+
+
+def test_scheduler_from_environment_or_option(reference, tmp_path, monkeypatch, free_port):
+    """$DASK_SCHEDULER_ADDRESS selects the Dask backend when no --scheduler is given;
+    --scheduler wins over it.  (A threads-only LocalCluster keeps this cheap; the
+    process-based cluster is tested in test_dask_local_cluster_equals_serial.)"""
+    distributed = pytest.importorskip("distributed")
+    from click.testing import CliRunner
+
+    from eddyhop.cli import main
+
+    closed = f"tcp://127.0.0.1:{free_port}"  # nothing listens there
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False,
+                                  host="127.0.0.1", dashboard_address=None,
+                                  protocol="tcp") as cluster:
+        address = cluster.scheduler_address
+        monkeypatch.setenv("DASK_SCHEDULER_ADDRESS", address)
+        report = run_sweep(reference["path"], tmp_path / "env", progress=False, timeout=30)
+        assert report.backend == "dask" and report.slots == 1 and report.complete
+        assert_same_numbers(merge_sweep(tmp_path / "env", analyse=False), reference["merged"])
+
+        runner = CliRunner()
+        result = runner.invoke(main, ["sweep", str(reference["path"]), "--out",
+                                      str(tmp_path / "cli"), "--scheduler", address,
+                                      "--no-progress", "--no-merge", "--timeout", "30"],
+                               env={"DASK_SCHEDULER_ADDRESS": closed})
+        assert result.exit_code == 0, result.output
+        assert "computed 6" in result.output and "(dask, 1 at a time" in result.output
+        result = runner.invoke(main, ["sweep", str(reference["path"]), "--out",
+                                      str(tmp_path / "cli2"), "--no-progress", "--no-merge"],
+                               env={"DASK_SCHEDULER_ADDRESS": closed})
+        assert result.exit_code != 0 and f"cannot reach the Dask scheduler at {closed}" in (
+            result.output)
+    assert_same_numbers(merge_sweep(tmp_path / "cli", analyse=False), reference["merged"])
+
+
+def test_progress_bar_reports_done_running_failed_and_eta(tmp_path, capsys):
+    text = FAILING.replace("progress = false", "progress = true")
+    report = run_sweep(write_study(tmp_path, text), tmp_path / "out", backend="serial",
+                       merge_to=None)
+    assert list(report.failed) == ["pt0001"]
+    shown = [s.strip() for s in capsys.readouterr().err.replace("\r", "\n").splitlines()]
+    states = [s for s in shown if s.startswith("sweep: ")]
+    pattern = (r"sweep: (\d)/3 points, done (\d), running (\d), failed (\d) \|.*\| "
+               r"\[(\d\d:\d\d) elapsed, ETA (\d\d:\d\d|\?)\]")
+    parsed = [re.fullmatch(pattern, s) for s in states]
+    assert all(parsed), states
+    values = [m.groups() for m in parsed]
+    assert values[0][:4] == ("0", "0", "0", "0") and values[1][:4] == ("0", "0", "1", "0")
+    assert values[-1][:4] == ("3", "2", "0", "1")  # two done, one failed, nothing running
+    assert ("1", "1", "0", "0") in [v[:4] for v in values]
+    # once a point has finished the ETA is a time (remaining points over the recent rate)
+    assert all(v[5] != "?" for v in values if v[0] != "0"), values
+    assert any(line.startswith("point pt0001 (U=1e+300) failed: BlowUpError")
+               for line in shown), shown
+    resumed = run_sweep(write_study(tmp_path, text), tmp_path / "out", backend="serial",
+                        merge_to=None, retry_failed=True)
+    again = [s.strip() for s in capsys.readouterr().err.replace("\r", "\n").splitlines()
+             if s.startswith("sweep: ")]
+    assert list(resumed.failed) == ["pt0001"]
+    # resumed: the two complete points count from the start; the retried one is running
+    assert again[0].startswith("sweep: 2/3 points, done 2, running 0, failed 0 |"), again
+    assert again[1].startswith("sweep: 2/3 points, done 2, running 1, failed 0 |"), again
 
 
 def test_local_processes_equal_serial(reference, tmp_path):

@@ -16,11 +16,13 @@ from .common import friendly_errors, progress_option
               help="Where points run. auto: dask if a scheduler address is known, else local "
                    "processes when there are several points and cores, else serial.")
 @click.option("--jobs", "-j", type=int, default=None,
-              help="Local worker processes (points at once). [default: every core]")
+              help="Local worker processes (points at once); -1 or unset: one per core. "
+                   "0 is refused.")
 @click.option("--scheduler", default=None, metavar="tcp://HOST:PORT",
               help="Dask scheduler to send points to. [default: $DASK_SCHEDULER_ADDRESS]")
 @click.option("--workers", "-w", type=int, default=None,
-              help="Threads per point. [default: run.workers when serial, else 1]")
+              help="Threads per point; -1: every core. [default: run.workers when serial, "
+                   "else 1]")
 @click.option("--merged", type=click.Path(dir_okay=False), default=None,
               help="Where to write the merged Dataset. [default: OUT/sweep.nc]")
 @click.option("--no-merge", is_flag=True, help="Do not merge at the end.")
@@ -40,7 +42,8 @@ def command(study, out, backend, jobs, scheduler, workers, merged, no_merge, ret
     OUT/points/<id>.nc; OUT/sweep-manifest.json records each point's
     parameters, status, file and sha256.  Re-running the same command
     skips completed points and recomputes interrupted, failed or damaged
-    ones, so a killed sweep resumes with identical results.  A folder
+    ones, so a killed sweep resumes with identical results and no completed
+    point is computed twice.  A folder
     holding another study's sweep is refused.
     Example:  eddyhop sweep studies/sweep_pan_rolls.toml --out pan/ -j 2
     """
@@ -64,6 +67,9 @@ def command(study, out, backend, jobs, scheduler, workers, merged, no_merge, ret
                f"{len(report.computed)}, already complete {len(report.skipped)}, failed "
                f"{len(report.failed)} ({report.backend}, {report.slots} at a time, "
                f"{report.seconds:.1f} s)")
+    for point_id in report.recovered:
+        click.echo(f"  recovered {point_id}: its file was complete but not yet recorded when "
+                   "the previous run stopped; adopted (checksum matches), not recomputed")
     for point_id, reason in report.redo_reasons.items():
         click.echo(f"  redone {point_id}: {reason}")
     for point_id, error in report.failed.items():

@@ -51,11 +51,41 @@ class SerialPool:
         self._queue.clear()
 
 
-def _preload() -> None:
-    """Worker start-up: import what a point needs (imports never compile kernels)."""
+def _exit_with_parent(parent: int, interval: float = 0.5) -> None:
+    """Watchdog thread of a worker process: end the worker once its parent (the sweep) is gone,
+    e.g. killed with SIGKILL, instead of computing a point nobody will record (an orphan is
+    re-parented, so its parent id changes)."""
+
+    def watch():
+        while True:
+            time.sleep(interval)
+            if os.getppid() != parent:
+                os._exit(1)
+
+    threading.Thread(target=watch, name="eddyhop-parent-watchdog", daemon=True).start()
+
+
+def _preload(parent: int) -> None:
+    """Worker start-up: stop with the parent (see ``_exit_with_parent``), import what a point
+    needs and initialise numba's CPU target, so the first point only has to load its kernels.
+    Neither compiles nor reads the kernel cache (which the parent may still be filling)."""
+    _exit_with_parent(parent)
     import eddyhop.api
     import eddyhop.dataset
-    import eddyhop.runner  # noqa: F401
+    import eddyhop.runner
+    import eddyhop.spec
+    import eddyhop.sweeps.execute  # noqa: F401
+
+    try:
+        from numba.core.registry import cpu_target
+
+        cpu_target.target_context.refresh()
+    except Exception:  # pragma: no cover - an internal of numba; only a head start
+        pass
+
+
+def _ready() -> int:
+    return os.getpid()
 
 
 class ProcessPool:
@@ -72,12 +102,15 @@ class ProcessPool:
 
         # a broken executor (a worker died) is replaced by a fresh one on the next call
         return get_reusable_executor(max_workers=self.slots, timeout=120,
-                                     initializer=_preload)
+                                     initializer=_preload, initargs=(os.getpid(),))
 
     def start(self) -> None:
-        """Spawn the workers now: they import the package while the parent warms the kernel
-        cache, instead of after it."""
-        self._executor()
+        """Spawn the workers now, so that they start and run ``_preload`` while the parent
+        warms the kernel cache instead of after it (loky starts workers on the first
+        submission, hence one no-op task per slot)."""
+        executor = self._executor()
+        for _ in range(self.slots):
+            executor.submit(_ready)
 
     def submit(self, key, function, payload) -> None:
         self._futures[self._executor().submit(function, payload)] = key
@@ -108,20 +141,23 @@ class DaskPool:
     name = "dask"
 
     def __init__(self, address: str, timeout: float = 10.0):
+        """Connect within ``timeout`` seconds in all: probing the address, the client's
+        handshake and waiting for a first worker share one deadline."""
         self.address = address
-        check_reachable(address, timeout)
+        deadline = time.monotonic() + timeout
+        check_reachable(address, timeout, deadline=deadline)
         try:
             from distributed import Client
         except ImportError:  # pragma: no cover - distributed is a declared extra
             raise EddyhopError("the Dask backend needs the 'distributed' package "
                                "(pip install 'eddyhop[dask]')") from None
         try:
-            self.client = Client(address, timeout=timeout, set_as_default=False)
+            self.client = Client(address, timeout=_left(deadline), set_as_default=False)
         except (OSError, TimeoutError) as exc:
             raise EddyhopError(f"could not connect to the Dask scheduler at {address} within "
                                f"{timeout:g} s: {exc}") from None
         try:
-            self.client.wait_for_workers(1, timeout=timeout)
+            self.client.wait_for_workers(1, timeout=_left(deadline))
         except (OSError, TimeoutError):
             self.client.close()
             raise EddyhopError(f"the Dask scheduler at {address} has no workers (waited "
@@ -158,8 +194,20 @@ class DaskPool:
         self.client.close()
 
 
-def check_reachable(address: str, timeout: float) -> None:
-    """Fail fast, with a clear message, when nothing answers at a tcp:// scheduler address."""
+def _left(deadline: float) -> float:
+    """Seconds until ``deadline`` (a ``time.monotonic()`` value), at least a few ms so that a
+    library given it as a timeout still tries once."""
+    return max(deadline - time.monotonic(), 0.01)
+
+
+def check_reachable(address: str, timeout: float, *, deadline: float | None = None) -> None:
+    """Fail fast, with a clear message, when nothing answers at a tcp:// scheduler address.
+
+    Connecting and asking for the scheduler's identity share one deadline: ``timeout``
+    seconds from now (or ``deadline``, a ``time.monotonic()`` value), so a peer that accepts
+    connections and never answers is reported after ``timeout`` seconds, not a multiple."""
+    if deadline is None:
+        deadline = time.monotonic() + timeout
     if not re.match(r"^[a-z][a-z0-9+]*://", address):
         raise EddyhopError(f"scheduler address {address!r} is not of the form "
                            "tcp://host:port (e.g. tcp://127.0.0.1:8786)")
@@ -175,7 +223,7 @@ def check_reachable(address: str, timeout: float) -> None:
     hint = ("start one with `dask scheduler` (and `dask worker ADDRESS`), check the address, "
             f"or omit --scheduler and unset {SCHEDULER_ENV} to run on this machine")
     try:
-        with socket.create_connection((host, port), timeout=timeout):
+        with socket.create_connection((host, port), timeout=_left(deadline)):
             pass
     except TimeoutError:
         raise EddyhopError(f"no answer from the Dask scheduler at {address} within "
@@ -185,40 +233,45 @@ def check_reachable(address: str, timeout: float) -> None:
                            f"{hint}") from None
     # Something listens; make sure it speaks the Dask protocol before handing the address to
     # distributed.Client, whose handshake waits forever on a silent peer.
-    answer = _identity(address, timeout)
+    answer = _identity(address, deadline)
     if not isinstance(answer, dict) or answer.get("type") != "Scheduler":
         what = "did not answer" if answer is None else f"answered as {answer.get('type')!r}"
         raise EddyhopError(f"{address} accepts connections but {what} as a Dask scheduler "
                            f"within {timeout:g} s; {hint}")
 
 
-def _identity(address: str, timeout: float):
-    """The scheduler's identity message, or ``None`` if none arrives within ``timeout``.
+def _identity(address: str, deadline: float):
+    """The scheduler's identity message, or ``None`` if none arrives by ``deadline``.
 
-    Runs in its own thread and event loop (safe under a running loop, e.g. in a notebook)."""
+    Runs in its own thread and event loop (safe under a running loop, e.g. in a notebook);
+    the connection handshake and the reply share the one deadline, and the caller waits for
+    the thread no longer than that either (the thread then ends at its own deadline)."""
     import asyncio
 
     result = {}
+    budget = deadline - time.monotonic()
+    if budget <= 0:
+        return None
 
     async def ask():
         from distributed.comm import connect
 
-        comm = await asyncio.wait_for(connect(address, timeout=timeout), timeout)
+        comm = await connect(address, timeout=budget)
         try:
             await comm.write({"op": "identity", "reply": True})
-            return await asyncio.wait_for(comm.read(), timeout)
+            return await comm.read()
         finally:
             comm.abort()
 
     def run():
         try:
-            result["answer"] = asyncio.run(ask())
+            result["answer"] = asyncio.run(asyncio.wait_for(ask(), budget))
         except Exception:  # timeout, closed connection, garbage: not a scheduler
             result["answer"] = None
 
     thread = threading.Thread(target=run, name="eddyhop-scheduler-probe", daemon=True)
     thread.start()
-    thread.join(3 * timeout + 1)
+    thread.join(max(deadline - time.monotonic(), 0.0))
     return result.get("answer")
 
 
@@ -227,19 +280,33 @@ def scheduler_address(option: str | None) -> str | None:
     return option or os.environ.get(SCHEDULER_ENV) or None
 
 
+def check_count(value, option: str, what: str) -> None:
+    """Refuse a count of processes/threads other than ``None``, -1 (every core) or ≥ 1, the
+    same rule as ``run.workers`` in a study file."""
+    if value is None:
+        return
+    if isinstance(value, bool) or not isinstance(value, int) or (value < 1 and value != -1):
+        raise EddyhopError(f"{option} = {value!r} is not allowed: give -1 for every core or a "
+                           f"number of {what} >= 1")
+
+
 def make_pool(backend: str, *, jobs: int | None, scheduler: str | None, n_todo: int,
               timeout: float = 10.0):
     """The pool for ``backend`` (``auto``: Dask when a scheduler address is known, local
-    processes when several points and cores are available, else serial)."""
+    processes when several points and cores are available, else serial).  ``jobs``: local
+    processes, ``None`` or -1 for every core."""
     if backend not in BACKENDS:
         raise EddyhopError(f"backend {backend!r} is not known; choose one of: "
                            + ", ".join(BACKENDS))
+    check_count(jobs, "--jobs (-j)", "processes")
+    cores = os.cpu_count() or 1
+    if jobs is None or jobs == -1:
+        jobs = cores
     address = scheduler_address(scheduler)
     if backend == "auto":
-        cores = os.cpu_count() or 1
         if address:
             backend = "dask"
-        elif min(n_todo, jobs or cores) > 1:
+        elif min(n_todo, jobs) > 1:
             backend = "processes"
         else:
             backend = "serial"
@@ -249,8 +316,5 @@ def make_pool(backend: str, *, jobs: int | None, scheduler: str | None, n_todo: 
                                f"{SCHEDULER_ENV} environment variable")
         return DaskPool(address, timeout=timeout)
     if backend == "processes":
-        jobs = jobs or os.cpu_count() or 1
-        if jobs < 1:
-            raise EddyhopError(f"--jobs = {jobs}: give a positive number of processes")
         return ProcessPool(min(jobs, max(n_todo, 1)))
     return SerialPool()

@@ -3,19 +3,23 @@
 The parent process is the only writer of the sweep folder: workers receive a point's study
 document and return its Dataset; the parent writes the point file atomically, records its
 sha256 and status in the manifest (itself rewritten atomically after every change) and, at the
-end, merges the points.  A run killed at any moment therefore leaves a folder from which a new
-run continues: complete points (file present, checksum matching) are never run again,
-interrupted or damaged ones are recomputed, and because every point is a plain study with a
-fixed seed, the merged result is bit-identical to an uninterrupted run.
+end, merges the points.  The checksum is recorded before the point file gets its real name
+(see ``manifest``), so a run killed at any moment — also between that rename and the manifest
+update — leaves a folder from which a new run continues: complete points (file present,
+checksum matching) are never run again, interrupted or damaged ones are recomputed, and
+because every point is a plain study with a fixed seed, the merged result is bit-identical to
+an uninterrupted run.
 """
 
 from __future__ import annotations
 
 import contextlib
 import copy
+import hashlib
 import json
 import os
 import socket
+import sys
 import time
 import traceback
 import warnings
@@ -26,6 +30,19 @@ from ..errors import EddyhopError
 from .manifest import Manifest, folder_lock, sha256_file
 
 MERGED_NAME = "sweep.nc"
+
+# Test-only: "<stage> <point id>" makes the sweep process announce the stage on stderr and
+# sleep (at most TEST_PAUSE_SECONDS) so that a test can SIGKILL it at exactly that moment.
+# Stages: "running" (point marked running), "staged" (checksum recorded, file not yet
+# renamed), "renamed" (file in place, manifest not yet updated).  Unset in normal use.
+TEST_PAUSE_ENV = "EDDYHOP_SWEEP_TEST_PAUSE"
+TEST_PAUSE_SECONDS = 60.0
+
+
+def _test_pause(stage: str, point_id: str) -> None:
+    if os.environ.get(TEST_PAUSE_ENV) == f"{stage} {point_id}":
+        print(f"eddyhop-test-pause {stage} {point_id}", file=sys.stderr, flush=True)
+        time.sleep(TEST_PAUSE_SECONDS)
 
 
 def compute_point(payload: dict) -> dict:
@@ -54,11 +71,17 @@ def compute_point(payload: dict) -> dict:
                 "seconds": time.perf_counter() - started}
 
 
-def warm_kernels(document: dict) -> float:
+def warm_kernels(document: dict, *, once: bool = False) -> float:
     """Compile (or load) the numba kernels once in this process so that the on-disk cache is
     warm before worker processes start; returns the seconds spent.  Kernels are compiled per
     argument types, which do not depend on the flow, noise or scheme, so a tiny run of the
-    first point suffices."""
+    first point suffices.
+
+    ``once``: skip the run (return 0) if this exact tiny run has already completed with this
+    version of the package sources, i.e. the cache already holds what it compiles; a marker
+    file in the kernel cache directory records that.  Local worker processes share that
+    cache, so a sweep started again (resumed, rerun) dispatches without the warm-up."""
+    from .._jit import kernel_cache_dir
     from ..api import simulate
     from ..runner import StepSizeWarning
     from ..spec import parse_study
@@ -71,15 +94,25 @@ def warm_kernels(document: dict) -> float:
         run.pop(key, None)
     run.update(particles=8, t_end=4 * dt, n_times=2, workers=1, progress=False)
     tiny.pop("aging", None)
+    digest = hashlib.sha256(json.dumps(tiny, sort_keys=True, default=str).encode()).hexdigest()
+    marker = Path(kernel_cache_dir()) / f"eddyhop-sweep-warm-{digest[:20]}"
+    if once and marker.exists():
+        return 0.0
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", StepSizeWarning)
         simulate(parse_study(tiny), workers=1, progress=False)
+    with contextlib.suppress(OSError):  # only an optimisation; an unwritable cache is fine
+        marker.touch()
     return time.perf_counter() - started
 
 
 @dataclass
 class SweepReport:
-    """What a ``run_sweep`` call did (ids are point ids, see the manifest)."""
+    """What a ``run_sweep`` call did (ids are point ids, see the manifest).
+
+    ``skipped``: points already complete, not computed again; ``recovered`` (a subset of
+    ``skipped``): points whose file an interrupted run had put in place without recording it,
+    adopted by checksum."""
 
     directory: Path
     n_points: int
@@ -87,6 +120,7 @@ class SweepReport:
     slots: int = 1
     computed: list = field(default_factory=list)
     skipped: list = field(default_factory=list)
+    recovered: list = field(default_factory=list)
     failed: dict = field(default_factory=dict)
     redo_reasons: dict = field(default_factory=dict)
     merged: Path | None = None
@@ -119,17 +153,21 @@ def run_sweep(study, out, *, backend: str = "auto", jobs: int | None = None,
     """Run (or resume) every point of ``study``'s sweep into folder ``out``.
 
     ``backend``: ``serial``, ``processes`` (local processes through joblib/loky, ``jobs`` of
-    them), ``dask`` (cluster at ``scheduler`` or ``$DASK_SCHEDULER_ADDRESS``) or ``auto``.
-    ``workers`` is the number of threads per point (default: the study's ``run.workers`` for
-    serial runs, 1 when points run in parallel).  ``merge_to``: path of the merged Dataset,
-    ``"default"`` for ``out/sweep.nc``, ``None`` for no merge.  ``timeout`` (s) bounds the wait
-    for a Dask scheduler.  None of these options changes any number.
+    them; ``None`` or -1: one per core), ``dask`` (cluster at ``scheduler`` or
+    ``$DASK_SCHEDULER_ADDRESS``) or ``auto``.  ``workers`` is the number of threads per point
+    (-1: every core; default: the study's ``run.workers`` for serial runs, 1 when points run
+    in parallel).  Counts of 0 or below -1 are refused, as for ``run.workers``.
+    ``merge_to``: path of the merged Dataset, ``"default"`` for ``out/sweep.nc``, ``None`` for
+    no merge.  ``timeout`` (s) bounds the wait for a Dask scheduler and its first worker (one
+    deadline for all of it).  None of these options changes any number.
     """
     from ..runner import step_size_warnings
     from ..spec import Study, load_study
-    from .backends import make_pool
+    from .backends import check_count, make_pool
 
     started = time.perf_counter()
+    check_count(jobs, "--jobs (-j)", "processes")
+    check_count(workers, "--workers (-w)", "threads per point")
     if not isinstance(study, Study):
         study = load_study(study)
     spec = study.sweep
@@ -144,6 +182,7 @@ def run_sweep(study, out, *, backend: str = "auto", jobs: int | None = None,
     with folder_lock(directory):
         manifest = Manifest.open_for_sweep(directory, spec, spec.fingerprint(), study)
         manifest.remove_stale_temporaries()
+        report.recovered = manifest.adopt_written()
         todo = manifest.reconcile(retry_failed=retry_failed)
         manifest.save()
         report.redo_reasons = {k: v for k, v in todo.items() if v != "not yet computed"}
@@ -160,7 +199,10 @@ def run_sweep(study, out, *, backend: str = "auto", jobs: int | None = None,
                 if hasattr(pool, "start"):
                     pool.start()
                 if pool.name != "serial":
-                    report.warm_seconds = warm_kernels(spec.point_document(queue[0]))
+                    # local workers share this machine's kernel cache: warm it once per
+                    # source version and first point; a cluster's machines may not share it
+                    report.warm_seconds = warm_kernels(spec.point_document(queue[0]),
+                                                       once=pool.name == "processes")
                 threads = workers if workers is not None else (
                     study.run.workers if pool.name == "serial" else 1)
                 _dispatch(pool, queue, spec, study, manifest, report, threads, show,
@@ -178,21 +220,60 @@ def run_sweep(study, out, *, backend: str = "auto", jobs: int | None = None,
     return report
 
 
+BAR_FORMAT = ("{desc}: {n_fmt}/{total_fmt} points{postfix} |{bar}| "
+              "[{elapsed} elapsed, ETA {remaining}]")
+
+
+def progress_text(counts: dict) -> str:
+    """The progress bar's postfix: ``done D, running R, failed F`` (manifest counts)."""
+    return f"done {counts['done']}, running {counts['running']}, failed {counts['failed']}"
+
+
+def _write_point(ds, point, manifest, seconds: float, messages: list) -> Path:
+    """Write a point's file so that no kill can lose or double it: complete file under a
+    temporary name → its checksum in the manifest → rename → marked done (see ``manifest``)."""
+    from ..io import write_netcdf
+
+    ds.attrs.update({
+        "sweep_point": point.id,
+        "sweep_parameters": json.dumps(point.values),
+        "sweep_fingerprint": manifest.data["fingerprint"],
+    })
+    staged = write_netcdf(ds, manifest.staged_path(point.id))  # itself atomic
+    manifest.mark_staged(point.id, sha256_file(staged), seconds, messages)
+    manifest.save()
+    _test_pause("staged", point.id)
+    path = manifest.point_path(point.id)
+    os.replace(staged, path)
+    _test_pause("renamed", point.id)
+    manifest.mark_done(point.id, path)
+    return path
+
+
 def _dispatch(pool, queue, spec, study, manifest, report, threads, show, step_warnings):
     """Keep ``pool.slots`` points running; record each outcome as it arrives."""
+    waiting = list(queue)
+    running = {}
+
+    def state() -> str:
+        counts = manifest.counts()
+        # failed in an earlier run and queued for a retry: not (yet) a failure of this run
+        counts["failed"] -= sum(manifest.entry(p.id)["status"] == "failed" for p in waiting)
+        return progress_text(counts)
+
     bar = None
     if show:
         from tqdm.auto import tqdm
 
+        # n counts finished points (done or failed, also those finished by earlier runs); the
+        # ETA is tqdm's, from the smoothed recent rate of points finished in this run
         bar = tqdm(total=report.n_points, initial=report.n_points - len(queue), unit="point",
-                   desc="sweep", dynamic_ncols=True, smoothing=0.1)
-    waiting = list(queue)
-    running = {}
-    n_failed = len(report.failed)
+                   desc="sweep", dynamic_ncols=True, smoothing=0.1, bar_format=BAR_FORMAT,
+                   postfix=state())
 
     def show_state():
         if bar is not None:
-            bar.set_postfix_str(f"running {len(running)}, failed {n_failed}", refresh=False)
+            bar.set_postfix_str(state(), refresh=True)
 
     try:
         while waiting or running:
@@ -203,40 +284,28 @@ def _dispatch(pool, queue, spec, study, manifest, report, threads, show, step_wa
                            "source_path": study.source_path, "workers": threads}
                 manifest.mark_running(point.id)
                 manifest.save()
+                _test_pause("running", point.id)
                 running[point.id] = point
                 pool.submit((point.index, point.id), compute_point, payload)
                 show_state()
-                if bar is not None:
-                    bar.refresh()
             (_, point_id), outcome = pool.next_done()
             point = running.pop(point_id)
             if outcome["ok"]:
-                ds = outcome["dataset"]
-                ds.attrs.update({
-                    "sweep_point": point.id,
-                    "sweep_parameters": json.dumps(point.values),
-                    "sweep_fingerprint": manifest.data["fingerprint"],
-                })
-                from ..io import write_netcdf
-
-                path = write_netcdf(ds, manifest.point_path(point.id))
                 messages = step_warnings(spec.point_study(point))
-                manifest.mark_done(point.id, path, sha256_file(path), outcome["seconds"],
-                                   messages)
+                _write_point(outcome["dataset"], point, manifest, outcome["seconds"], messages)
                 report.computed.append(point.id)
                 report.point_seconds.append(outcome["seconds"])
                 report.failed.pop(point.id, None)
             else:
                 manifest.mark_failed(point.id, outcome["error"], outcome["seconds"])
                 report.failed[point.id] = outcome["error"]
-                n_failed += 1
                 if bar is not None:
                     bar.write(f"point {point.id} ({point.describe(spec.axes)}) failed: "
-                              f"{outcome['error']}")
+                              f"{outcome['error']}", file=sys.stderr)  # beside the bar
             manifest.save()
-            show_state()
             if bar is not None:
                 bar.update(1)
+            show_state()
     except BaseException:
         # interrupted (Ctrl-C, an I/O error): running points go back to pending
         pool.cancel()

@@ -11,6 +11,16 @@ The manifest records the study's *fingerprint* (``SweepSpec.fingerprint``): a fo
 manifest carries another fingerprint belongs to another study and is refused, never overwritten.
 A point counts as complete only when its file exists and its sha256 matches the manifest; a
 file that was changed or damaged afterwards is recomputed.
+
+Writing a point is two renames with a manifest save in between: the result goes (atomically) to
+a *staged* file ``points/.<id>.nc.staged.part``, its sha256 (with the point's run time and
+warnings) is recorded in the entry's ``staged`` field and the manifest saved, and only then is
+the staged file renamed to ``points/<id>.nc`` and the entry marked done.  A run killed after
+that rename but before the final manifest save leaves a complete file for a point still marked
+"running"; on resume, :meth:`Manifest.adopt_written` accepts it as done because its checksum
+equals the recorded one, so it is not computed again.  A file under a point's name without
+such a record, or with any other content (torn, replaced, from another point), is never
+adopted: the point is recomputed.
 """
 
 from __future__ import annotations
@@ -28,7 +38,8 @@ MANIFEST_NAME = "sweep-manifest.json"
 POINTS_DIR = "points"
 LOCK_NAME = ".sweep-lock"
 FORMAT = "eddyhop sweep manifest"
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2  # 2: entries carry ``staged`` (checksum recorded before the final rename)
+READABLE_VERSIONS = (1, 2)  # version 1 is version 2 without ``staged``
 STATUSES = ("pending", "running", "done", "failed")
 
 
@@ -42,8 +53,6 @@ def sha256_file(path) -> str:
         for block in iter(lambda: stream.read(1 << 20), b""):
             digest.update(block)
     return digest.hexdigest()
-
-
 
 
 @contextlib.contextmanager
@@ -107,10 +116,13 @@ class Manifest:
         if not isinstance(data, dict) or data.get("format") != FORMAT:
             raise EddyhopError(f"{str(path)!r} is not an eddyhop sweep manifest; refusing to "
                                "touch the folder")
-        if data.get("format_version") != FORMAT_VERSION:
+        if data.get("format_version") not in READABLE_VERSIONS:
             raise EddyhopError(f"{str(path)!r} has manifest format version "
                                f"{data.get('format_version')!r}; this eddyhop reads "
-                               f"version {FORMAT_VERSION}")
+                               "versions " + ", ".join(map(str, READABLE_VERSIONS)))
+        for entry in data.get("points", []):
+            entry.setdefault("staged", None)
+        data["format_version"] = FORMAT_VERSION  # written back in this version's layout
         return cls(directory, data)
 
     @classmethod
@@ -125,7 +137,8 @@ class Manifest:
         _refuse_foreign(directory)
         points = [{"id": p.id, "index": p.index, "parameters": p.values, "status": "pending",
                    "file": None, "sha256": None, "attempts": 0, "seconds": None,
-                   "finished": None, "error": None, "warnings": []} for p in spec.points()]
+                   "finished": None, "error": None, "warnings": [], "staged": None}
+                  for p in spec.points()]
         from .. import __version__
 
         data = {
@@ -190,6 +203,11 @@ class Manifest:
     def point_path(self, point_id: str) -> Path:
         return self.directory / POINTS_DIR / f"{point_id}.nc"
 
+    def staged_path(self, point_id: str) -> Path:
+        """Where a point's file waits (complete) while its checksum is recorded; the name
+        matches the '.*.part' pattern of :meth:`remove_stale_temporaries`."""
+        return self.directory / POINTS_DIR / f".{point_id}.nc.staged.part"
+
     def counts(self) -> dict:
         out = dict.fromkeys(STATUSES, 0)
         for e in self.points:
@@ -207,6 +225,26 @@ class Manifest:
                     path.unlink()
                     removed += 1
         return removed
+
+    def adopt_written(self) -> list[str]:
+        """Mark done every 'running' point whose file was renamed into place but not yet
+        recorded (the run stopped between the rename and the manifest save): the file must
+        exist and match the checksum recorded, before the rename, in the entry's ``staged``
+        field.  Returns the ids adopted; any other 'running' point is left to
+        :meth:`reconcile`, which recomputes it."""
+        adopted = []
+        for e in self.points:
+            staged = e.get("staged")
+            if e["status"] != "running" or not staged:
+                continue
+            path = self.point_path(e["id"])
+            if path.is_file() and sha256_file(path) == staged["sha256"]:
+                e.update(status="done", file=path.relative_to(self.directory).as_posix(),
+                         sha256=staged["sha256"], seconds=staged["seconds"],
+                         finished=staged["written"], error=None,
+                         warnings=list(staged["warnings"]), staged=None)
+                adopted.append(e["id"])
+        return adopted
 
     def reconcile(self, retry_failed: bool = True) -> dict[str, str]:
         """Decide what to (re)compute: ``{point id: reason}``.  A 'done' point stays done only
@@ -234,27 +272,38 @@ class Manifest:
                 e["status"] = "pending"
             elif e["status"] == "running":
                 e["status"] = "pending"
+            e["staged"] = None
         return todo
 
     def mark_running(self, point_id: str) -> None:
+        """One more attempt at the point (``attempts`` counts every computation started)."""
         e = self.entry(point_id)
-        e["status"] = "running"
+        e.update(status="running", staged=None)
         e["attempts"] += 1
 
-    def mark_done(self, point_id: str, path: Path, checksum: str, seconds: float,
-                  warnings: list) -> None:
+    def mark_staged(self, point_id: str, checksum: str, seconds: float,
+                    warnings: list) -> None:
+        """Record the checksum of the point's complete staged file before it is renamed
+        into place (see the module docstring)."""
+        self.entry(point_id)["staged"] = {"sha256": checksum, "seconds": seconds,
+                                          "warnings": list(warnings), "written": now()}
+
+    def mark_done(self, point_id: str, path: Path) -> None:
+        """The staged file is now ``path``: the point is complete."""
         e = self.entry(point_id)
+        staged = e["staged"]
         e.update(status="done", file=path.relative_to(self.directory).as_posix(),
-                 sha256=checksum, seconds=seconds, finished=now(), error=None,
-                 warnings=list(warnings))
+                 sha256=staged["sha256"], seconds=staged["seconds"],
+                 finished=staged["written"], error=None, warnings=list(staged["warnings"]),
+                 staged=None)
 
     def mark_failed(self, point_id: str, error: str, seconds: float | None) -> None:
         e = self.entry(point_id)
         e.update(status="failed", file=None, sha256=None, seconds=seconds, finished=now(),
-                 error=error)
+                 error=error, staged=None)
 
     def mark_pending(self, point_id: str) -> None:
-        self.entry(point_id)["status"] = "pending"
+        self.entry(point_id).update(status="pending", staged=None)
 
     def save(self) -> None:
         self.data["updated"] = now()

@@ -5,12 +5,13 @@ Power law.  ``y = A Pe^β`` is fitted as a straight line in log–log coordinate
 squares, each point weighted by 1/σ² with σ = se(y)/y, the standard error of ln y to first order
 (delta method); points without a standard error get equal weights (ordinary least squares).
 The slope's standard error comes from the weighted normal equations, multiplied by the Birge
-ratio sqrt(χ²/(n − 2)) when that exceeds one (common practice: the scatter of the points, not
-only their stated errors, limits the fit: the "scale factor" of the Particle Data Group's
-averages, Review of Particle Physics, Workman et al. 2022, Prog. Theor. Exp. Phys. 083C01,
-Introduction; cited from memory) and the
-interval is slope ± z · se (normal quantile).  Without standard errors the fit is ordinary least
-squares and the interval slope ± t_{n−2} · se (Student t).
+ratio sqrt(χ²/(n − 2)) when that exceeds one, so that the scatter of the points, not only
+their stated errors, limits the interval.  This is common practice in the statistics of fits;
+the Particle Data Group's Review of Particle Physics, for example, scales the error of an
+average of N measurements by S = sqrt(χ²/(N − 1)) when S > 1 — here with the n − 2 degrees
+of freedom of a two-parameter fit.  The interval is slope ± z · se (normal quantile).
+Without standard errors the fit is ordinary least squares and the interval slope ± t_{n−2} · se
+(Student t).
 
 Effective diffusivity.  The fitted quantity is the enhancement ``D/κ``, independent of whether
 Pe was varied through κ or U.  Only points whose D estimate reached the diffusive regime
