@@ -231,19 +231,44 @@ def test_default_tolerances_find_the_superdiffusive_interval():
 
 def test_deff_removes_a_mean_drift_and_flags_a_short_run():
     """Brownian motion with drift V: Var Δx = 2Dt exactly, so D_xx = D whatever V; D_xy = 0.
-    Tolerance: 4 jackknife standard errors."""
+    Tolerance: 4 jackknife standard errors.  With 8000 paths the slope ratio's se is ≈ 0.036
+    (measured; it scales as N^{-1/2}: 0.056 at N = 3000), so 3 se < deff_tolerance = 0.15 and
+    the run can be confirmed diffusive."""
     rng = np.random.default_rng(3)
     t = np.geomspace(0.1, 100.0, 40)
-    dx, dy = brownian_paths(rng, 3000, t, 0.25, drift=(2.0, -1.0))
+    dx, dy = brownian_paths(rng, 8000, t, 0.25, drift=(2.0, -1.0))
     out = effective_diffusivity(ensemble_dataset(dx, dy, t))
     for name, truth in (("D_xx", 0.25), ("D_yy", 0.25), ("D_xy", 0.0)):
         assert abs(float(out[name]) - truth) < 4 * float(out[f"{name}_se"]), name
+    assert 3 * float(out["deff_slope_ratio_se"]) < 0.15
     assert int(out["deff_converged"]) == 1
     assert float(out["D_eff_over_kappa"]) == pytest.approx(float(out["D_eff"]) / 0.01)
     # ballistic spreading never becomes diffusive: flagged, with a warning
     dx, dy = brownian_paths(rng, 3000, t, 0.01, velocity_spread=1.0)
     with pytest.warns(UserWarning, match="too short"):
         out = effective_diffusivity(ensemble_dataset(dx, dy, t))
+    assert int(out["deff_converged"]) == 0
+
+
+def test_deff_flag_is_undetermined_when_the_run_is_too_noisy():
+    """The same diffusive process with 300 paths: the slope ratio's se (≈ 0.16, measured) is
+    so large that 3 se > deff_tolerance = 0.15; the run is neither confirmed diffusive nor
+    shown too short, so deff_converged = 2 (undetermined) with a ShortRunWarning — never 1.
+    A ballistic run just as noisy is still shown too short: its ratio (≈ 1.8) is more than
+    3 se from 1."""
+    rng = np.random.default_rng(12)
+    t = np.geomspace(0.1, 100.0, 40)
+    with pytest.warns(UserWarning, match="too noisy to tell"):
+        out = effective_diffusivity(ensemble_dataset(*brownian_paths(rng, 300, t, 0.25), t))
+    ratio, ratio_se = float(out["deff_slope_ratio"]), float(out["deff_slope_ratio_se"])
+    assert 3 * ratio_se > 0.15 and abs(ratio - 1) <= 3 * ratio_se
+    assert int(out["deff_converged"]) == 2
+    assert list(out["deff_converged"].attrs["flag_values"]) == [0, 1, 2]
+    assert out["deff_converged"].attrs["flag_meanings"] == "too_short diffusive undetermined"
+    dx, dy = brownian_paths(rng, 300, t, 0.01, velocity_spread=1.0)
+    with pytest.warns(UserWarning, match="too short"):
+        out = effective_diffusivity(ensemble_dataset(dx, dy, t))
+    assert abs(float(out["deff_slope_ratio"]) - 1) > 3 * float(out["deff_slope_ratio_se"])
     assert int(out["deff_converged"]) == 0
 
 
