@@ -7,16 +7,27 @@ From the streamed aged MSD ⟨|X(t_a+τ) − X(t_a)|²⟩ (dims ``aging_time``, 
 * ``aged_alpha``: local exponent d ln aged MSD / d ln τ (same estimator as α(t)).
 * a weighted least-squares fit of the aging form  aged MSD ≈ A [(t_a + τ)^β − t_a^β]
   across all (t_a, τ) — the renewal form of a continuous-time random walk with waiting-time
-  exponent β < 1 (Barkai 2003, Phys. Rev. Lett. 90, 104101; the aged MSD grows as the mean
-  number of jumps in [t_a, t_a + τ], ∝ (t_a + τ)^β − t_a^β).  β = 1 means no aging.
+  exponent β < 1: each renewal adds an independent jump, so the aged MSD is proportional to
+  the mean number of renewals in [t_a, t_a + τ], and ⟨n(t)⟩ ∝ t^β/Γ(1+β) at long times
+  (Barkai 2003, Phys. Rev. Lett. 90, 104101; Barkai & Cheng 2003, "Aging continuous time
+  random walks", J. Chem. Phys.; references and equation numbers from memory, the form is
+  derived in tests/test_analysis_aging.py).  β = 1 means no aging.
+
+Errors: with per-batch aged MSD (``batch_aged_msd``, written by the engine) the ratio and the
+fit are recomputed on every delete-one-batch replicate, aged and unaged MSD from the same
+batches (they come from the same particles and are correlated, strongly once τ > t_a), and
+the jackknife spread is the standard error.  Without batches the ratio's error combines the
+two relative errors as if independent and the fit's error comes from the Jacobian; the
+``estimator`` attribute says which was used.
 
 From tracked trajectories (``track_x``, ``track_y`` on a linear grid of spacing δ, duration
 T), for lags Δ = jδ: the time-averaged MSD of each particle,
     δ²ᵢ(Δ) = 1/(T − Δ) ∫₀^{T−Δ} |Xᵢ(t + Δ) − Xᵢ(t)|² dt   (discrete mean over all windows),
 its ensemble mean, and the ergodicity-breaking parameter EB(Δ) = ⟨(δ²)²⟩/⟨δ²⟩² − 1 (variance
-over mean squared; He, Burov, Metzler & Barkai 2008, Phys. Rev. Lett. 101, 058101).  For
-Brownian motion in d dimensions EB ≈ 4Δ/(3dT) for Δ ≪ T (1-D result of that paper, from
-memory; independent components divide it by d).
+over mean squared; He, Burov, Metzler & Barkai 2008, Phys. Rev. Lett. 101, 058101, from
+memory).  For Brownian motion in d dimensions EB ≈ 4Δ/(3dT) for Δ ≪ T (the 1-D result of that
+paper; independent components divide it by d); the exact value for sampled tracks at any lag
+is derived in tests/test_analysis_aging.py (``exact_brownian_eb``).
 """
 
 from __future__ import annotations
