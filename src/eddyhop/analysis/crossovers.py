@@ -154,7 +154,7 @@ def _crossover(lt, alpha, replicates, left, right, b, d, half):
         return boundary, "boundary", resolution, 0, level
     if replicates is None:
         return value, "threshold", np.nan, 0, level
-    reps = refine(lt, replicates, level, upward, first_pass, half, left.first, right.last)
+    reps = refine(lt, replicates, level, upward, value, half, left.first, right.last)
     missing = int(np.isnan(reps).sum())
     spread = float(jackknife_se(reps)) if missing == 0 else np.nan
     return value, "threshold", spread, missing, level
