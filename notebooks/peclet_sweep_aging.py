@@ -95,7 +95,8 @@ display(plots.deff_peclet_figure(merged))
 ratio = merged["D_eff"] / merged["kappa"]
 for pe, value, flag in zip(merged["peclet"].values, ratio.values,
                            merged["deff_converged"].values):
-    print(f"Pe = {pe:7.3g}: D_eff/κ = {value:7.3f}   diffusive regime reached: {bool(flag)}")
+    reached = {1: "yes", 2: "undetermined"}.get(int(flag), "no")
+    print(f"Pe = {pe:7.3g}: D_eff/κ = {value:7.3f}   diffusive regime reached: {reached}")
 if "D_eff_exponent" in merged:
     print("fitted D_eff/κ ∝ Pe^β, β =", float(merged["D_eff_exponent"]),
           "(1/2 expected at large Pe)")

@@ -124,7 +124,8 @@ print(f"high-Pe prediction D_eff/κ ≈ {predicted:.2f}")
 for start in analysed["start"].values:
     part = analysed.sel(start=start)
     low, high = float(part["D_eff_lower"]) / kappa, float(part["D_eff_upper"]) / kappa
-    converged = "yes" if int(part["deff_converged"]) else "no (run longer)"
+    converged = {1: "yes", 2: "undetermined (too noisy to tell)"}.get(
+        int(part["deff_converged"]), "no (run longer)")
     print(f"{start:>13}: D_eff/κ = {float(part['D_eff']) / kappa:6.2f}  "
           f"95% CI [{low:.2f}, {high:.2f}]  diffusive regime reached: {converged}")
 

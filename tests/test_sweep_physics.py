@@ -24,7 +24,7 @@ k = 1.0
 [noise]
 peclet = 2.0
 [run]
-particles = 2000
+particles = 10000
 dt = 0.02
 t_end = 200.0
 n_times = 40
@@ -45,7 +45,9 @@ def test_shear_sweep_matches_taylor_dispersion(tmp_path):
     pe = ds["peclet"].values
     kappa = ds["kappa"].values
     exact = kappa * (1.0 + pe**2 / 2.0)
-    assert (ds["deff_converged"].values == 1).all()  # t_end = 200 ≥ 12 cell-diffusion times
+    # t_end = 200 ≥ 12 cell-diffusion times; 10⁴ particles make the slope ratio's se ≈ 0.04,
+    # small enough (3 se < deff_tolerance = 0.15) for the flag to be decided (2000 gave 2)
+    assert (ds["deff_converged"].values == 1).all()
     # each D_xx within 4 jackknife standard errors of the formula (statistical tolerance)
     deviation = (ds["D_xx"].values - exact) / ds["D_xx_se"].values
     assert np.all(np.abs(deviation) < 4), deviation

@@ -161,6 +161,16 @@ def run_warnings(ds) -> list[str]:
             messages.append(f"Run too short at {where}: the spread has not reached linear "
                             f"growth over the D_eff fit window{ratio}, so D_eff is not yet a "
                             "long-time limit; increase run.t_end.")
+        for index in np.argwhere(values == 2) if values.ndim else \
+                ([()] if values == 2 else []):
+            index = tuple(index)
+            where = ", ".join(f"{dim} = {_short(ds[dim].values[i]) if dim in ds.coords else i}"
+                              for dim, i in zip(flags.dims, index)) or "this run"
+            messages.append(f"Diffusive regime undetermined at {where}: the growth rate of "
+                            "the spread is too noisy (3 standard errors exceed the tolerance) "
+                            "to show linear growth over the D_eff fit window; use more "
+                            "particles or a longer run before treating D_eff as a long-time "
+                            "limit.")
     elif "msd" in ds and "time" in ds.coords and set(ds["msd"].dims) <= {"time", "start"}:
         spread = (ds["var_x"] + ds["var_y"]) if "var_x" in ds and "var_y" in ds else ds["msd"]
         for start in _starts(ds):
@@ -391,8 +401,9 @@ def deff_html(ds) -> str:
         d_eff = _scalar(part, "D_eff")
         row.append(_number(d_eff / kappa) if d_eff is not None and kappa and kappa > 0 else "")
         converged = _scalar(part, "deff_converged")
-        row.append("" if converged is None else ("yes" if converged == 1 else
-                                                 "<b>no — run too short</b>"))
+        row.append("" if converged is None else {
+            1: "yes", 2: "<b>undetermined — too noisy to tell</b>"}.get(
+                int(converged) if np.isfinite(converged) else 0, "<b>no — run too short</b>"))
         rows.append(row)
     units = _units(ds, "D_xx")
     header = ["", f"D_xx{units}", f"D_yy{units}", f"D_xy{units}", f"D_eff{units}", "D_eff/κ",

@@ -26,6 +26,8 @@ _BATCH_SOURCES = {
     "msd_xy": ("batch_msd_xy",),
     "mean_dx": ("batch_mean_dx",),
     "mean_dy": ("batch_mean_dy",),
+    "aged_msd": ("batch_aged_msd",),
+    "abs_moment": ("batch_abs_moment",),
 }
 
 
@@ -76,15 +78,26 @@ def local_log_slope(t: np.ndarray, y: np.ndarray, window: float) -> np.ndarray:
     return out.reshape(shape)
 
 
-def batch_replicates(ds, name: str):
-    """Delete-one-batch replicates (B, time) of variable ``name``, or None without batches."""
+def batch_replicates(ds, name: str, dims=None):
+    """Delete-one-batch replicates (B, …) of variable ``name`` (dims ``dims`` after
+    ``batch``, default the batch variables' own order), or None without batches."""
     sources = _BATCH_SOURCES.get(name)
     if sources is None or "batch_count" not in ds.variables or any(
             s not in ds.variables for s in sources):
         return None
     counts = np.asarray(ds["batch_count"].values, dtype=np.float64)
-    means = sum(np.asarray(ds[s].transpose("batch", ...).values, dtype=np.float64)
+    order = ("batch", ...) if dims is None else ("batch", *dims)
+    means = sum(np.asarray(ds[s].transpose(*order).values, dtype=np.float64)
                 for s in sources)
+    return pooled_replicates(counts, means)
+
+
+def pooled_replicates(counts, means):
+    """Delete-one replicates of a pooled mean from per-batch ``counts`` (B,) and ``means``
+    (B, …): (Σ n_c m_c − n_b m_b)/(N − n_b).  Empty batches are dropped; None if fewer than
+    2 remain.  NaN entries (e.g. invalid aged lags) stay NaN."""
+    counts = np.asarray(counts, dtype=np.float64)
+    means = np.asarray(means, dtype=np.float64)
     keep = counts > 0
     counts = counts[keep]
     means = means[keep]

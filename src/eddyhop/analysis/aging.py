@@ -7,16 +7,27 @@ From the streamed aged MSD ⟨|X(t_a+τ) − X(t_a)|²⟩ (dims ``aging_time``, 
 * ``aged_alpha``: local exponent d ln aged MSD / d ln τ (same estimator as α(t)).
 * a weighted least-squares fit of the aging form  aged MSD ≈ A [(t_a + τ)^β − t_a^β]
   across all (t_a, τ) — the renewal form of a continuous-time random walk with waiting-time
-  exponent β < 1 (Barkai 2003, Phys. Rev. Lett. 90, 104101; the aged MSD grows as the mean
-  number of jumps in [t_a, t_a + τ], ∝ (t_a + τ)^β − t_a^β).  β = 1 means no aging.
+  exponent β < 1: each renewal adds an independent jump, so the aged MSD is proportional to
+  the mean number of renewals in [t_a, t_a + τ], and ⟨n(t)⟩ ∝ t^β/Γ(1+β) at long times
+  (Barkai 2003, Phys. Rev. Lett. 90, 104101; Barkai & Cheng 2003, "Aging continuous time
+  random walks", J. Chem. Phys.; references and equation numbers from memory, the form is
+  derived in tests/test_analysis_aging.py).  β = 1 means no aging.
+
+Errors: with per-batch aged MSD (``batch_aged_msd``, written by the engine) the ratio and the
+fit are recomputed on every delete-one-batch replicate, aged and unaged MSD from the same
+batches (they come from the same particles and are correlated, strongly once τ > t_a), and
+the jackknife spread is the standard error.  Without batches the ratio's error combines the
+two relative errors as if independent and the fit's error comes from the Jacobian; the
+``estimator`` attribute says which was used.
 
 From tracked trajectories (``track_x``, ``track_y`` on a linear grid of spacing δ, duration
 T), for lags Δ = jδ: the time-averaged MSD of each particle,
     δ²ᵢ(Δ) = 1/(T − Δ) ∫₀^{T−Δ} |Xᵢ(t + Δ) − Xᵢ(t)|² dt   (discrete mean over all windows),
 its ensemble mean, and the ergodicity-breaking parameter EB(Δ) = ⟨(δ²)²⟩/⟨δ²⟩² − 1 (variance
-over mean squared; He, Burov, Metzler & Barkai 2008, Phys. Rev. Lett. 101, 058101).  For
-Brownian motion in d dimensions EB ≈ 4Δ/(3dT) for Δ ≪ T (1-D result of that paper, from
-memory; independent components divide it by d).
+over mean squared; He, Burov, Metzler & Barkai 2008, Phys. Rev. Lett. 101, 058101, from
+memory).  For Brownian motion in d dimensions EB ≈ 4Δ/(3dT) for Δ ≪ T (the 1-D result of that
+paper; independent components divide it by d); the exact value for sampled tracks at any lag
+is derived in tests/test_analysis_aging.py (``exact_brownian_eb``).
 """
 
 from __future__ import annotations
@@ -26,7 +37,7 @@ import xarray as xr
 
 from ..errors import InputDataError
 from ._common import check_range, msd_units, per_start, require, time_units, var
-from ._stats import local_log_slope
+from ._stats import batch_replicates, jackknife_se, local_log_slope
 from .exponents import DEFAULT_WINDOW
 
 DEFAULT_TAMSD_LAGS = 30
@@ -43,50 +54,64 @@ def _interp_loglog(x_new, x, y):
     return out
 
 
-def fit_aging_form(aging_time, lag, aged, aged_se):
+def fit_aging_form(aging_time, lag, aged, aged_se, replicates=None):
     """Weighted least squares of ln aged MSD against ln(A[(t_a+τ)^β − t_a^β]).
 
     Residuals are weighted by the relative standard error of each point (or equally without
-    errors).  Returns dict with beta, amplitude, their standard errors (from the Jacobian,
-    scaled by the reduced χ²; points at different lags share particles, so these are
-    indicative) and the reduced χ².
+    errors).  Returns dict with beta, amplitude, their standard errors, how these were
+    obtained (``se_method``) and the reduced χ².  With delete-one-batch ``replicates`` of the
+    aged MSD (B, aging_time, lag) the fit is repeated on every replicate (same points and
+    weights) and the errors are the jackknife spread — honest although the points share
+    particles.  Without them the errors come from the Jacobian scaled by the reduced χ²,
+    which treats the points as independent (they are not: indicative only).
     """
-    from scipy.optimize import least_squares
-
     ta, tau = np.meshgrid(aging_time, lag, indexing="ij")
     good = np.isfinite(aged) & (aged > 0)
     if aged_se is not None:
         good &= np.isfinite(aged_se) & (aged_se > 0)
+    if replicates is not None:
+        good &= np.all(np.isfinite(replicates) & (replicates > 0), axis=0)
     result = {"beta": np.nan, "amplitude": np.nan, "beta_se": np.nan, "amplitude_se": np.nan,
-              "reduced_chi2": np.nan, "points": int(good.sum())}
+              "reduced_chi2": np.nan, "points": int(good.sum()),
+              "se_method": "no fit (fewer than 3 points)"}
     if good.sum() < 3:
         return result
-    ta, tau, y = ta[good], tau[good], np.log(aged[good])
-    sigma = aged_se[good] / aged[good] if aged_se is not None else np.ones(y.size)
+    ta, tau = ta[good], tau[good]
+    sigma = aged_se[good] / aged[good] if aged_se is not None else np.ones(ta.size)
+    fit = _fit_form(ta, tau, np.log(aged[good]), sigma)
+    dof = max(ta.size - 2, 1)
+    chi2 = float((fit.fun ** 2).sum() / dof)
+    amplitude = float(np.exp(fit.x[0]))
+    if replicates is not None:
+        reps = np.array([_fit_form(ta, tau, np.log(r[good]), sigma, fit.x).x
+                         for r in replicates])
+        beta_se = float(jackknife_se(reps[:, 1]))
+        amplitude_se = float(jackknife_se(np.exp(reps[:, 0])))
+        method = "jackknife over particle batches (the fit repeated on every replicate)"
+    else:
+        try:
+            cov = np.linalg.inv(fit.jac.T @ fit.jac) * max(chi2, 1.0)
+            errors = np.sqrt(np.diag(cov))
+        except np.linalg.LinAlgError:
+            errors = np.array([np.nan, np.nan])
+        beta_se, amplitude_se = float(errors[1]), float(amplitude * errors[0])
+        method = ("least squares, scaled by the reduced chi-square; treats points that share "
+                  "particles as independent (indicative only; no batches)")
+    result.update(beta=float(fit.x[1]), amplitude=amplitude, beta_se=beta_se,
+                  amplitude_se=amplitude_se, reduced_chi2=chi2, se_method=method)
+    return result
 
-    def model(p):
-        beta = p[1]
-        return p[0] + np.log((ta + tau) ** beta - ta ** beta)
+
+def _fit_form(ta, tau, y, sigma, start=None):
+    from scipy.optimize import least_squares
 
     def residual(p):
-        return (y - model(p)) / sigma
+        return (y - p[0] - np.log((ta + tau) ** p[1] - ta ** p[1])) / sigma
 
-    start_beta = 1.0
-    start = np.array([np.median(y - np.log((ta + tau) ** start_beta - ta ** start_beta)),
-                      start_beta])
-    fit = least_squares(residual, start, bounds=([-np.inf, 1e-3], [np.inf, 3.0]),
-                        x_scale=[1.0, 0.1])
-    dof = max(y.size - 2, 1)
-    chi2 = float((fit.fun ** 2).sum() / dof)
-    try:
-        cov = np.linalg.inv(fit.jac.T @ fit.jac) * max(chi2, 1.0)
-        errors = np.sqrt(np.diag(cov))
-    except np.linalg.LinAlgError:
-        errors = np.array([np.nan, np.nan])
-    amplitude = float(np.exp(fit.x[0]))
-    result.update(beta=float(fit.x[1]), amplitude=amplitude, beta_se=float(errors[1]),
-                  amplitude_se=float(amplitude * errors[0]), reduced_chi2=chi2)
-    return result
+    if start is None:
+        start = np.array([np.median(y - np.log(tau)), 1.0])  # β = 1: (t_a + τ) − t_a = τ
+    return least_squares(residual, start, bounds=([-np.inf, 1e-3], [np.inf, 3.0]),
+                         x_scale=[1.0, 0.1])
 
 
 def _aged_part(part, window, tunits, munits):
@@ -98,36 +123,48 @@ def _aged_part(part, window, tunits, munits):
                if "aged_msd_se" in part.variables else None)
     out = {}
     dims = ("aging_time", "lag")
+    aged_reps = batch_replicates(part, "aged_msd", ("aging_time", "lag"))
     if "msd" in part.variables:
-        reference = _interp_loglog(lag, part["time"].values, part["msd"].values)
-        ratio = aged / reference[None, :]
-        if aged_se is not None:
-            ref_se = (_interp_loglog(lag, part["time"].values, part["msd_se"].values)
+        t = part["time"].values
+        reference = _interp_loglog(lag, t, part["msd"].values)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ratio = aged / reference[None, :]
+        msd_reps = batch_replicates(part, "msd")
+        if aged_reps is not None and msd_reps is not None:
+            ref_reps = np.stack([_interp_loglog(lag, t, row) for row in msd_reps])
+            with np.errstate(divide="ignore", invalid="ignore"):
+                ratio_se = jackknife_se(aged_reps / ref_reps[:, None, :])
+            how = "jackknife over particle batches: aged and unaged MSD from the same batches"
+        elif aged_se is not None:
+            ref_se = (_interp_loglog(lag, t, part["msd_se"].values)
                       if "msd_se" in part.variables else np.zeros_like(reference))
             with np.errstate(divide="ignore", invalid="ignore"):
                 ratio_se = np.abs(ratio) * np.sqrt((aged_se / aged) ** 2
                                                    + (ref_se / reference)[None, :] ** 2)
+            how = ("no batches: aged and unaged errors combined as if independent, which "
+                   "they are not (same particles)")
         else:
             ratio_se = np.full(ratio.shape, np.nan)
+            how = "no batches or errors: NaN"
         out["aged_msd_ratio"] = var(dims, ratio, "aged MSD over the MSD at the same lag "
                                     "(1 for stationary increments)", "1")
-        out["aged_msd_ratio_se"] = var(dims, ratio_se, "standard error of aged_msd_ratio "
-                                       "(independent errors assumed)", "1")
+        out["aged_msd_ratio_se"] = var(dims, ratio_se, "standard error of aged_msd_ratio", "1",
+                                       estimator=how)
     out["aged_alpha"] = var(dims, local_log_slope(lag, aged, window), "local exponent d ln "
                             "aged_msd / d ln lag", "1")
-    fit = fit_aging_form(ta, lag, aged, aged_se)
+    fit = fit_aging_form(ta, lag, aged, aged_se, aged_reps)
     beta = fit["beta"]
     amp_units = munits if tunits == "1" or not np.isfinite(beta) else \
         f"{munits} {tunits}-{beta:.4g}"
     text = "A [(t_a + lag)^beta - t_a^beta]"
     out["aging_exponent"] = var((), beta, f"exponent beta of the aging form {text} fitted to "
                                 "aged_msd (1: no aging)", "1")
-    out["aging_exponent_se"] = var((), fit["beta_se"], "standard error of aging_exponent "
-                                   "(least squares, scaled by the reduced chi-square)", "1")
+    out["aging_exponent_se"] = var((), fit["beta_se"], "standard error of aging_exponent",
+                                   "1", estimator=fit["se_method"])
     out["aging_amplitude"] = var((), fit["amplitude"], f"amplitude A of the aging form {text}",
                                  amp_units)
     out["aging_amplitude_se"] = var((), fit["amplitude_se"], "standard error of "
-                                    "aging_amplitude", amp_units)
+                                    "aging_amplitude", amp_units, estimator=fit["se_method"])
     out["aging_fit_reduced_chi2"] = var((), fit["reduced_chi2"], "reduced chi-square of the "
                                         "aging-form fit (about 1 when the form fits)", "1")
     return out

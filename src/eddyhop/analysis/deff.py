@@ -9,12 +9,17 @@ homogenization defines (e.g. Majda & Kramer 1999, Phys. Rep. 314, 237, §2.1).  
 jackknife over particle batches; the confidence interval is D ± t₍B−1₎ · se.
 Convergence: in the diffusive regime Var Δx + Var Δy grows linearly (whatever its offset),
 so the slopes fitted separately over the early and late halves of the window (split at its
-geometric middle) agree.  Their ratio ``deff_slope_ratio`` (late/early) must be within
-``deff_tolerance`` of 1, or within 3 jackknife standard errors; otherwise ``deff_converged``
-= 0 and a :class:`ShortRunWarning` says the run is too short to have reached the diffusive
-regime.  (A ballistic remainder gives a ratio near 1.8 over half a decade, a subdiffusive
-plateau a ratio well below 1.)  The log-log slope ``deff_alpha`` over the window is reported
-as well; it approaches 1 only as slowly as the offset becomes negligible.
+geometric middle) agree.  Their ratio r = ``deff_slope_ratio`` (late/early, jackknife
+standard error s) decides the flag ``deff_converged``: 1 (diffusive) when |r − 1| ≤
+``deff_tolerance`` and 3 s ≤ ``deff_tolerance``; 0 (too short) when |r − 1| exceeds both
+the tolerance and 3 s; 2 (undetermined) when 3 s > ``deff_tolerance`` but |r − 1| ≤ 3 s —
+the data are too noisy to show linear growth at the stated tolerance, and a noisy run is
+not called diffusive.  Flags 0 and 2 come with a :class:`ShortRunWarning`.  (A ballistic
+remainder gives a ratio near 1.8 over half a decade, a subdiffusive plateau a ratio well
+below 1.  The ratio's se falls as N^{-1/2}: for Brownian motion over the default window it
+is ≈ 0.056 at 3000 particles, so 3 s ≤ 0.15 needs about 4000 particles or more.)  The
+log-log slope ``deff_alpha`` over the window is reported as well; it approaches 1 only as
+slowly as the offset becomes negligible.
 
 Research estimate from a model flow: for design of real mixing or heat-transfer equipment use
 validated methods and the applicable codes.
@@ -33,8 +38,30 @@ from ._stats import batch_replicates, jackknife_se, late_window, ols_slope, stud
 DEFAULT_FIT_DECADES = 0.5
 
 
+# values of the ``deff_converged`` flag
+TOO_SHORT, DIFFUSIVE, UNDETERMINED = 0, 1, 2
+
+
 class ShortRunWarning(UserWarning):
-    """The run has not reached the diffusive regime; D_eff is not yet a long-time limit."""
+    """The run has not reached the diffusive regime (or the data cannot show that it has);
+    D_eff is not yet a confirmed long-time limit."""
+
+
+def convergence_flag(ratio: float, ratio_se: float, tolerance: float) -> int:
+    """``deff_converged`` from the slope ratio r and its standard error s.
+
+    A check that 1 − tol ≤ r ≤ 1 + tol needs s small against tol: when 3 s > tol a run can
+    be neither confirmed diffusive nor shown too short unless |r − 1| > 3 s (then it is
+    too short at 3 standard errors).  So: UNDETERMINED if 3 s > tol and |r − 1| ≤ 3 s;
+    otherwise DIFFUSIVE if |r − 1| ≤ tol, else TOO_SHORT.  Without an error (no batches) the
+    tolerance alone decides.
+    """
+    if not np.isfinite(ratio):
+        return TOO_SHORT
+    deviation = abs(ratio - 1.0)
+    if np.isfinite(ratio_se) and 3 * ratio_se > tolerance:
+        return TOO_SHORT if deviation > 3 * ratio_se else UNDETERMINED
+    return DIFFUSIVE if deviation <= tolerance else TOO_SHORT
 
 
 def _covariances(get):
@@ -73,7 +100,7 @@ def effective_diffusivity(ds: xr.Dataset, *, fit_decades: float = DEFAULT_FIT_DE
         kappa = float(kappa)
     except (TypeError, ValueError):
         kappa = np.nan
-    not_converged = []
+    not_converged, undetermined = [], []
 
     def one(part):
         t = part["time"].values
@@ -143,16 +170,16 @@ def effective_diffusivity(ds: xr.Dataset, *, fit_decades: float = DEFAULT_FIT_DE
                               / ols_slope(tw[early], rw[:, early])[0])
                 ratio_se = float(jackknife_se(ratio_reps))
         if late.sum() >= 2:
-            allowed = max(deff_tolerance, 3 * ratio_se) if np.isfinite(ratio_se) else \
-                deff_tolerance
-            converged = bool(np.isfinite(ratio_value) and abs(ratio_value - 1.0) <= allowed)
+            flag = convergence_flag(ratio_value, ratio_se, deff_tolerance)
         else:
             ratio_value = np.nan
-            converged = bool(np.isfinite(slope) and abs(slope - 1.0) <= deff_tolerance)
-        if not converged:
+            flag = DIFFUSIVE if np.isfinite(slope) and abs(slope - 1.0) <= deff_tolerance \
+                else TOO_SHORT
+        if flag != DIFFUSIVE:
             label = part["start"].values.item() if "start" in part.coords else ""
-            text = f"slope ratio {ratio_value:.3g}, log-log slope {slope:.3g}"
-            not_converged.append(f"{label} ({text})" if label else text)
+            text = f"slope ratio {ratio_value:.3g} ± {ratio_se:.2g}, log-log slope {slope:.3g}"
+            (not_converged if flag == TOO_SHORT else undetermined).append(
+                f"{label} ({text})" if label else text)
         out["deff_slope_ratio"] = var((), float(ratio_value), "slope of Var dx + Var dy over "
                                       "the late half of the D_eff window over that of the early "
                                       "half (1 when diffusive)", "1")
@@ -162,12 +189,16 @@ def effective_diffusivity(ds: xr.Dataset, *, fit_decades: float = DEFAULT_FIT_DE
                                 "D_eff fit window (1 when diffusive)", "1")
         out["deff_alpha_se"] = var((), slope_se, "standard error of deff_alpha (jackknife)",
                                    "1")
-        out["deff_converged"] = var((), np.int8(converged), "1 if the run reached the "
-                                    "diffusive regime in the D_eff fit window, else 0", "1",
-                                    flag_values=np.array([0, 1], dtype=np.int8),
-                                    flag_meanings="too_short diffusive",
-                                    criterion=f"|deff_slope_ratio - 1| <= "
-                                    f"max({deff_tolerance:g}, 3 deff_slope_ratio_se)")
+        out["deff_converged"] = var((), np.int8(flag), "1 if the run reached the diffusive "
+                                    "regime in the D_eff fit window, 0 if it is too short, "
+                                    "2 if the data are too noisy to tell", "1",
+                                    flag_values=np.array([TOO_SHORT, DIFFUSIVE, UNDETERMINED],
+                                                         dtype=np.int8),
+                                    flag_meanings="too_short diffusive undetermined",
+                                    criterion=f"r = deff_slope_ratio, s = deff_slope_ratio_se, "
+                                    f"tol = {deff_tolerance:g}: undetermined if 3 s > tol and "
+                                    f"|r - 1| <= 3 s; otherwise diffusive if |r - 1| <= tol, "
+                                    f"else too_short")
         out["deff_fit_start"] = var((), float(tw[0]), "first time in the D_eff fit window",
                                     tunits)
         out["deff_fit_end"] = var((), float(tw[-1]), "last time in the D_eff fit window",
@@ -175,6 +206,12 @@ def effective_diffusivity(ds: xr.Dataset, *, fit_decades: float = DEFAULT_FIT_DE
         return xr.Dataset(out)
 
     out = per_start(ds, one)
+    if undetermined:
+        warnings.warn("the run is too noisy to tell whether it reached the diffusive regime "
+                      f"(3 standard errors of the slope ratio exceed deff_tolerance = "
+                      f"{deff_tolerance:g}): " + ", ".join(undetermined) + "; "
+                      "deff_converged = 2 (undetermined) — use more particles or a longer "
+                      "fit window", ShortRunWarning, stacklevel=2)
     if not_converged:
         warnings.warn("the run is too short to have reached the diffusive regime (the "
                       "variance does not yet grow linearly over the D_eff window): "

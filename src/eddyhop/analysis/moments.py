@@ -8,6 +8,9 @@ For the absolute moments ⟨|Δx|^q⟩, ⟨|Δy|^q⟩, ⟨|ΔX|^q⟩ (dims ``ord
   i.e. ν(q)/q constant; a spectrum bending away from that line is *strong anomalous
   diffusion* (Castiglione, Mazzino, Muratore-Ginanneschi & Vulpiani 1999, Physica D 134, 75,
   "On strong anomalous diffusion").  ``moment_exponent_over_order`` reports ν(q)/q.
+  Standard errors (``moment_exponent_se``, ``moment_exponent_over_order_se``): the fit
+  repeated on every delete-one-batch pooled moment (``batch_abs_moment``), jackknife spread;
+  the per-component spectra have no per-batch data and no error.
 
 Displacement PDFs come from tracked trajectories: at chosen times, histograms of the scaled
 displacement ξ = Δx/σ_x(t) (σ the standard deviation over the tracked particles), so shapes at
@@ -22,7 +25,7 @@ import xarray as xr
 
 from ..errors import InputDataError
 from ._common import AnalysisOptionError, check_range, per_start, require, var
-from ._stats import late_window, local_log_slope, ols_slope
+from ._stats import batch_replicates, jackknife_se, late_window, local_log_slope, ols_slope
 from .deff import DEFAULT_FIT_DECADES
 from .exponents import DEFAULT_WINDOW
 
@@ -79,9 +82,23 @@ def moment_spectrum(ds: xr.Dataset, *, window: float = DEFAULT_WINDOW,
                 ("order",), nu, f"late-time scaling exponent nu(q) of <{what}^q> ~ t^nu(q)",
                 "1")
         nu = out["moment_exponent"].values
+        orders = part["order"].values
         out["moment_exponent_over_order"] = var(
-            ("order",), nu / part["order"].values, "nu(q)/q (constant for self-similar "
-            "transport)", "1")
+            ("order",), nu / orders, "nu(q)/q (constant for self-similar transport)", "1")
+        # jackknife over particle batches (only the total moment has per-batch means)
+        reps = batch_replicates(part, "abs_moment", ("order", "time"))
+        if reps is None:
+            se = np.full(nu.shape, np.nan)
+        else:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                rep_logs = np.log(np.where(reps > 0, reps, np.nan))[:, :, window_mask]
+            se = jackknife_se(ols_slope(lt, rep_logs)[0])
+        how = "jackknife over particle batches; NaN without batch_abs_moment"
+        out["moment_exponent_se"] = var(("order",), se, "standard error of moment_exponent",
+                                        "1", estimator=how)
+        out["moment_exponent_over_order_se"] = var(
+            ("order",), se / orders, "standard error of moment_exponent_over_order", "1",
+            estimator=how)
         return xr.Dataset(out, coords={"order": part["order"], "time": part["time"]})
 
     return per_start(ds, one)

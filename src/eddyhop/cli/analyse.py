@@ -88,8 +88,9 @@ def print_analysis(ds) -> None:
                        f"{float(part['crossover_time_se'][i]):.2g}{shown_units} = "
                        f"{float(part['crossover_time_advective'][i]):.3g}/(Uk)")
         if "D_eff" in part:
-            flag = "" if int(part["deff_converged"].values) else \
-                "  (run too short: not yet diffusive)"
+            flag = {0: "  (run too short: not yet diffusive)",
+                    2: "  (undetermined: too noisy to show the diffusive regime)"}.get(
+                int(part["deff_converged"].values), "")
             click.echo(f"  D_xx = {float(part['D_xx']):.4g} [{float(part['D_xx_lower']):.4g}, "
                        f"{float(part['D_xx_upper']):.4g}], D_yy = {float(part['D_yy']):.4g} "
                        f"[{float(part['D_yy_lower']):.4g}, {float(part['D_yy_upper']):.4g}], "
