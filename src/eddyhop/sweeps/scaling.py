@@ -14,8 +14,9 @@ Without standard errors the fit is ordinary least squares and the interval slope
 (Student t).
 
 Effective diffusivity.  The fitted quantity is the enhancement ``D/κ``, independent of whether
-Pe was varied through κ or U.  Only points whose D estimate reached the diffusive regime
-(``deff_converged`` = 1, when the analysis provides it) enter the fit.  Reference exponents at
+Pe was varied through κ or U.  Points whose run was shown too short for the diffusive regime
+(``deff_converged`` = 0) are left out; undetermined points (2: too noisy to confirm either way)
+enter with their standard errors, which already weight them down.  Reference exponents at
 large Pe: 1/2 for closed cellular flow (boundary-layer transport across the separatrices;
 Shraiman 1987, Phys. Rev. A 36, 261; Rosenbluth, Berk, Doxas & Horton 1987, Phys. Fluids 30,
 2636); 2 for a parallel shear u = U sin ky, where D_xx = κ + U²/(2κk²) (Taylor dispersion by
@@ -215,7 +216,7 @@ def scaling_summary(ds, *, peclet_range=None, confidence: float = 0.95):
         mask = None
         if "deff_converged" in ds.data_vars:
             converged = ds["deff_converged"].fillna(0)
-            mask = (converged == 1).broadcast_like(ds[name])
+            mask = (converged >= 1).broadcast_like(ds[name])  # 1 diffusive, 2 undetermined
         se = ds[f"{name}_se"] / kappa if f"{name}_se" in ds.data_vars else None
         values, errors, dims = arrays((ds[name] / kappa).broadcast_like(ds[name]),
                                       None if se is None else se.broadcast_like(ds[name]), mask)
