@@ -90,7 +90,8 @@ def test_cellular_sweep_deff_exponent_is_one_half(tmp_path):
     Five points Pe = 30 … 300, each run for ≥ 2 cell-diffusion times 1/(κk²) = Pe/(Uk) so that
     no D_eff is flagged too short (with 800 particles the slope-ratio test is undetermined,
     flag 2, and such points stay in the fit); the fitted exponent's 95 % interval (jackknife
-    standard errors, Birge-widened) must contain 1/2 and be informative (exclude 0, 1 and the shear's 2)."""
+    standard errors, Birge-widened) must contain 1/2 and be informative (exclude 0, 1 and the
+    shear's 2)."""
     pytest.importorskip("eddyhop.analysis")
     path = tmp_path / "cellular.toml"
     path.write_text(CELLULAR, encoding="utf-8")
