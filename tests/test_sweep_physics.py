@@ -35,13 +35,18 @@ progress = false
 """
 
 
-def test_shear_sweep_matches_taylor_dispersion(tmp_path):
+def _merged_sweep(tmp_path, name, text):
+    """Run the sweep study ``text`` serially and open its merged, analysed result."""
     pytest.importorskip("eddyhop.analysis")
-    path = tmp_path / "shear.toml"
-    path.write_text(STUDY, encoding="utf-8")
+    path = tmp_path / name
+    path.write_text(text, encoding="utf-8")
     report = run_sweep(path, tmp_path / "out", backend="serial", progress=False)
     assert report.complete
-    ds = xr.open_dataset(report.merged)
+    return xr.open_dataset(report.merged)
+
+
+def test_shear_sweep_matches_taylor_dispersion(tmp_path):
+    ds = _merged_sweep(tmp_path, "shear.toml", STUDY)
     pe = ds["peclet"].values
     kappa = ds["kappa"].values
     exact = kappa * (1.0 + pe**2 / 2.0)
@@ -92,12 +97,7 @@ def test_cellular_sweep_deff_exponent_is_one_half(tmp_path):
     flag 2, and such points stay in the fit); the fitted exponent's 95 % interval (jackknife
     standard errors, Birge-widened) must contain 1/2 and be informative (exclude 0, 1 and the
     shear's 2)."""
-    pytest.importorskip("eddyhop.analysis")
-    path = tmp_path / "cellular.toml"
-    path.write_text(CELLULAR, encoding="utf-8")
-    report = run_sweep(path, tmp_path / "out", backend="serial", progress=False)
-    assert report.complete
-    ds = xr.open_dataset(report.merged)
+    ds = _merged_sweep(tmp_path, "cellular.toml", CELLULAR)
     assert np.allclose(ds["peclet"].values, 30.0 * 10.0 ** (np.arange(5) / 4))
     assert (ds["deff_converged"].values != 0).all()
     assert int(ds["D_eff_fit_points"]) == 5

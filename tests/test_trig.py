@@ -21,6 +21,7 @@ from eddyhop.flows import get_family
 from eddyhop.flows._trig import LIMIT, sincos
 from eddyhop.flows.compiled import evaluate_velocity
 from eddyhop.integrators import tile_velocity
+from tests.test_kernel_tiles import FLOWS as TILE_FLOWS
 
 ULP_TOLERANCE = 2.0
 
@@ -147,14 +148,8 @@ def test_property_agrees_with_the_library_and_is_on_the_unit_circle(x):
     assert abs(s[0] * s[0] + c[0] * c[0] - 1.0) <= 4.5e-16
 
 
-FAST_FAMILIES = [
-    ("cellular", {}),
-    ("cats_eye", {"epsilon": 0.3}),
-    ("shear", {}),
-    ("drifting_cellular", {"drift_x": 0.2, "drift_y": -0.1}),
-    ("oscillating_cellular", {"B": 0.4, "omega": 2.0}),
-    ("fourier", {"modes": [[1, -1, 0.5, 0.0], [1, 1, -0.5, 0.0], [2, 1, 0.1, 0.2]]}),
-]
+# the closed-form families of the tile tests (obstacles take the generic branch: no sincos)
+FAST_FAMILIES = [flow for flow in TILE_FLOWS if flow[0] != "obstacles"]
 
 
 @pytest.mark.parametrize("name, params", FAST_FAMILIES, ids=[f[0] for f in FAST_FAMILIES])
