@@ -164,11 +164,35 @@ def write_netcdf(ds, path) -> Path:
 
 
 def open_result(path):
-    """Open a result file fully into memory (the file is closed afterwards)."""
+    """Open a result file fully into memory (the file is closed afterwards).
+
+    Anything that is not a readable netCDF file (missing, empty, truncated, a study's TOML
+    text, a directory) raises :class:`~eddyhop.errors.InputDataError` whose one-line message
+    names the file, so every command reading results reports it the same way.
+    """
     import xarray as xr
 
+    from .errors import InputDataError
+
     path = Path(path)
+    name = repr(str(path))
     if not path.exists():
-        raise EddyhopError(f"result file {str(path)!r} does not exist")
-    with xr.open_dataset(path, engine="netcdf4") as ds:
-        return ds.load()
+        raise InputDataError(f"result file {name} does not exist")
+    if path.is_dir():
+        raise InputDataError(f"result file {name} is a directory, not a netCDF file")
+    if path.stat().st_size == 0:
+        raise InputDataError(f"result file {name} is empty (0 bytes), not a netCDF file; "
+                             "was its run interrupted?")
+    hint = ("it looks like a study file: run it with `eddyhop run` first"
+            if path.suffix.lower() == ".toml" else
+            "give a netCDF file written by eddyhop (run, analyse, merge or reference)")
+    try:
+        with xr.open_dataset(path, engine="netcdf4") as ds:
+            return ds.load()
+    except (OSError, ValueError, RuntimeError, KeyError, IndexError) as exc:
+        # netCDF4/HDF5 report a wrong or damaged file as OSError ("Unknown file format",
+        # "HDF error"); xarray as ValueError; decoding a truncated variable can raise others
+        text = exc.strerror if isinstance(exc, OSError) and exc.strerror else str(exc)
+        reason = text.strip().splitlines()[0] if text.strip() else type(exc).__name__
+        raise InputDataError(f"result file {name} is not a readable netCDF file ({reason}); "
+                             f"{hint}") from None
