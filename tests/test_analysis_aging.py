@@ -240,6 +240,9 @@ def test_ctrw_aged_msd_follows_the_renewal_aging_form():
         4 * float(out["aging_amplitude_se"]) + amplitude_bias)
     # aging is visible: at short lags the aged MSD falls with t_a
     assert np.all(np.diff(out["aged_msd_ratio"].values[:, 0]) < 0)
+    # the renewal form holds (up to the t^(-1/2) term above): the fit is accepted (5 % test
+    # at this fixed seed; measured p ≈ 0.53)
+    assert int(out["aging_fit_verdict"]) == 0, float(out["aging_fit_p_value"])
 
 
 def brownian_aged_dataset(rng, n, kappa, aging_times, lags, batches=20):
@@ -319,3 +322,92 @@ def test_aging_bad_inputs(free_diffusion):
     with pytest.raises(InputDataError, match=r"aged_msd.*\[aging\]"):
         aging(plain)
     assert list(aging(ds, aging_times=[10.0])["aging_time"].values) == [10.0]
+
+
+# ---- the aging-form fit is judged ------------------------------------------------------------
+def trapped_aged_dataset(rng, n, kappa, relaxation, aging_times, lags, batches=20):
+    """Engine-shaped Dataset of 2-D particles in a harmonic trap (Ornstein–Uhlenbeck position,
+    dX = −X/τ_c dt + √(2κ) dW per component), started in equilibrium and advanced with the
+    exact Gaussian transition X(t+Δ) = X e^(−Δ/τ_c) + √(κτ_c(1 − e^(−2Δ/τ_c))) ξ (Uhlenbeck
+    & Ornstein 1930, Phys. Rev. 36, 823).  Increments are stationary and bounded: the aged
+    MSD is 4κτ_c(1 − e^(−τ/τ_c)) for every t_a, which no A[(t_a+τ)^β − t_a^β] can follow."""
+    aging_times = np.asarray(aging_times, dtype=float)
+    lags = np.asarray(lags, dtype=float)
+    queries = np.unique(np.concatenate([[0.0], lags, aging_times,
+                                        np.add.outer(aging_times, lags).ravel()]))
+    positions = np.empty((2, n, queries.size))
+    positions[:, :, 0] = rng.standard_normal((2, n)) * math.sqrt(kappa * relaxation)
+    for j, step in enumerate(np.diff(queries), start=1):
+        decay = math.exp(-step / relaxation)
+        positions[:, :, j] = (positions[:, :, j - 1] * decay + rng.standard_normal((2, n))
+                              * math.sqrt(kappa * relaxation * (1 - decay * decay)))
+
+    def at(t):
+        return positions[:, :, np.searchsorted(queries, t)]
+
+    origin = at(0.0)
+    ds = ensemble_dataset(*(at(lags) - origin[:, :, None]), lags, batches=batches)
+    r2 = np.array([[np.sum((at(ta + lag) - at(ta)) ** 2, axis=0) for lag in lags]
+                   for ta in aging_times])
+    bounds = np.linspace(0, n, batches + 1).astype(int)
+    dims = ("aging_time", "lag")
+    ds = ds.assign_coords(aging_time=aging_times, lag=lags)
+    ds["aged_msd"] = (dims, r2.mean(axis=-1))
+    ds["aged_msd_se"] = (dims, r2.std(axis=-1, ddof=1) / math.sqrt(n))
+    ds["batch_aged_msd"] = (("batch", *dims), np.array(
+        [r2[..., lo:hi].mean(axis=-1) for lo, hi in itertools.pairwise(bounds)]))
+    return ds
+
+
+def test_aging_fit_of_brownian_motion_is_accepted():
+    """Brownian motion obeys the aging form exactly with β = 1 (aged MSD = 4κτ for every t_a;
+    Einstein 1905), so the goodness-of-fit test must accept it (seed 11; a 5 % test run on a
+    true model at a fixed seed), keep the jackknife error unscaled, and find β within 4 se
+    of 1."""
+    ds = brownian_aged_dataset(np.random.default_rng(11), 2000, 0.5, [0.5, 5.0],
+                               np.geomspace(0.1, 50.0, 12))
+    out = aging(ds)
+    verdict = out["aging_fit_verdict"]
+    assert verdict.attrs["flag_meanings"] == "accepted rejected undetermined"
+    assert int(verdict) == 0, float(out["aging_fit_p_value"])
+    assert float(out["aging_fit_p_value"]) >= 0.05
+    assert float(out["aging_exponent_se"].attrs["error_scale"]) == 1.0
+    assert abs(float(out["aging_exponent"]) - 1) < 4 * float(out["aging_exponent_se"])
+    assert "jackknife covariance" in out["aging_fit_p_value"].attrs["test"]
+
+
+def test_aging_fit_of_a_trapped_particle_is_rejected_with_a_widened_error():
+    """Bounded, stationary increments (harmonic trap, τ_c = 1, lags 0.1…50) are not of the
+    renewal aging form: the test must reject it (p far below 1e-6 here), and the stored
+    standard error must be the jackknife error times √(T/E[T]) — never the tight jackknife
+    spread alone (which describes the scatter of a wrong model's parameters)."""
+    ds = trapped_aged_dataset(np.random.default_rng(12), 2000, 0.5, 1.0, [0.5, 5.0],
+                              np.geomspace(0.1, 50.0, 12))
+    out = aging(ds)
+    assert int(out["aging_fit_verdict"]) == 1
+    assert float(out["aging_fit_p_value"]) < 1e-6
+    ratio = float(out["aging_fit_reduced_chi2"])
+    scale = float(out["aging_exponent_se"].attrs["error_scale"])
+    assert ratio > 10 and scale == pytest.approx(math.sqrt(ratio))
+    assert "reject" in out["aging_exponent_se"].attrs["estimator"]
+    assert "reject" in out["aging_exponent"].attrs["long_name"]
+
+
+@pytest.mark.slow
+def test_aging_fit_test_is_calibrated_on_brownian_ensembles():
+    """The test's p-values are approximate (a two-moment match of the correlated-points
+    statistic; see fit_aging_form).  On 200 independent Brownian ensembles (1000 paths,
+    seeds 700…899, 20 batches) where the form holds exactly, the fraction rejected at the
+    5 % level must be 5 % within 3 binomial standard errors (√(0.05·0.95/200) ≈ 1.5 %), and
+    the mean of T/E[T] must be 1 within 4 standard errors of that mean."""
+    p_values, ratios = [], []
+    for k in range(200):
+        ds = brownian_aged_dataset(np.random.default_rng(700 + k), 1000, 0.5, [0.5, 5.0],
+                                   np.geomspace(0.1, 50.0, 12))
+        out = aging(ds)
+        p_values.append(float(out["aging_fit_p_value"]))
+        ratios.append(float(out["aging_fit_reduced_chi2"]))
+    rate = np.mean(np.array(p_values) < 0.05)
+    assert abs(rate - 0.05) < 3 * math.sqrt(0.05 * 0.95 / 200), rate
+    ratios = np.array(ratios)
+    assert abs(ratios.mean() - 1) < 4 * ratios.std(ddof=1) / math.sqrt(ratios.size)

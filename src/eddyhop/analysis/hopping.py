@@ -10,7 +10,12 @@ maximum likelihood, each truncated to [t_min, t_max] (t_max: last edge):
 * power law, density ∝ t^(−μ): bin probabilities from the truncated Pareto CDF.
 
 Both are reported (parameter, standard error from the observed Fisher information, maximised
-log-likelihood, Pearson χ² goodness-of-fit p-value with bins merged to ≥ 5 expected counts).
+log-likelihood, Pearson χ² goodness-of-fit statistic with bins merged to ≥ 5 expected counts,
+its degrees of freedom — merged bins − 2 — and p-value) with a verdict per model
+(``residence_exp_verdict``, ``residence_pow_verdict``: accepted, rejected at
+``significance``, or undetermined when too few bins remain for the test).  A rejected model's
+standard error is multiplied by √(χ²/dof) (stated in its ``error_scale`` attribute): its
+parameter describes a law the data refuse, and is never shown as a tight number.
 The comparison is Vuong's normalised log-likelihood ratio z for non-nested models (Vuong 1989,
 Econometrica 57, 307; applied to tails as in Clauset, Shalizi & Newman 2009, SIAM Rev. 51,
 661): z > 0 favours the exponential; the preferred model is named when the two-sided p-value
@@ -25,8 +30,24 @@ import numpy as np
 import xarray as xr
 
 from ._common import check_range, per_start, require, time_units, var
+from .verdicts import (
+    DEFAULT_SIGNIFICANCE,
+    REJECTED,
+    UNDETERMINED,
+    verdict_attrs,
+    verdict_from_p,
+)
 
 _MIN_TAIL_COUNT = 20
+_TEST = ("Pearson chi-square of the binned tail, bins merged to >= 5 expected counts, "
+         "merged bins - 2 degrees of freedom")
+
+
+def _scaled_text(scale: float) -> str:
+    if scale > 1.0:
+        return (f"observed Fisher information, multiplied by sqrt(chi2/dof) = {scale:.3g} "
+                "because the goodness-of-fit test rejects this tail model")
+    return "observed Fisher information"
 
 
 def _exp_probabilities(rate, left, right, low, high):
@@ -77,8 +98,9 @@ def _fit(family, counts, left, right, low, high):
     return z, se_z, -best.fun, probabilities
 
 
-def _gof_p(counts, probabilities):
-    """Pearson χ² p-value, adjacent bins merged until each expects ≥ 5 (1 fitted parameter)."""
+def _gof(counts, probabilities):
+    """Pearson χ², its degrees of freedom and p-value, adjacent bins merged until each expects
+    ≥ 5 (1 fitted parameter and the fixed total: groups − 2 degrees of freedom)."""
     from scipy import stats
 
     n = counts.sum()
@@ -97,22 +119,29 @@ def _gof_p(counts, probabilities):
         expected_groups[-1] += e_acc
     dof = len(expected_groups) - 2
     if dof < 1:
-        return math.nan
+        return math.nan, math.nan, math.nan
     o = np.array(observed_groups)
     e = np.array(expected_groups)
-    return float(stats.chi2.sf(((o - e) ** 2 / e).sum(), dof))
+    chi2 = float(((o - e) ** 2 / e).sum())
+    return chi2, float(dof), float(stats.chi2.sf(chi2, dof))
 
 
-def fit_tails(counts, edges, tail_start=None, significance=0.05) -> dict:
-    """Both tail fits and their comparison for binned data (see the module docstring)."""
+def fit_tails(counts, edges, tail_start=None, significance=DEFAULT_SIGNIFICANCE) -> dict:
+    """Both tail fits, their verdicts and their comparison for binned data (see the module
+    docstring).  Per model (prefix ``exp_`` / ``pow_``): the parameter and its standard error,
+    ``loglik``, ``chi2``, ``dof``, ``gof_p``, ``verdict`` (0 accepted, 1 rejected,
+    2 undetermined at ``significance``) and ``error_scale`` (√(χ²/dof) for a rejected fit,
+    by which its standard error has been multiplied; 1 otherwise)."""
     from scipy import stats
 
     counts = np.asarray(counts, dtype=np.float64)
     edges = np.asarray(edges, dtype=np.float64)
     out = dict.fromkeys(("tail_start", "tail_count", "exp_rate", "exp_rate_se", "exp_loglik",
-                         "exp_gof_p", "pow_exponent", "pow_exponent_se", "pow_loglik",
-                         "pow_gof_p", "loglik_ratio", "vuong_z", "vuong_p"), math.nan)
-    out["preferred"] = "undecided"
+                         "exp_gof_p", "exp_chi2", "exp_dof", "pow_exponent", "pow_exponent_se",
+                         "pow_loglik", "pow_gof_p", "pow_chi2", "pow_dof", "loglik_ratio",
+                         "vuong_z", "vuong_p"), math.nan)
+    out.update(preferred="undecided", exp_verdict=UNDETERMINED, pow_verdict=UNDETERMINED,
+               exp_error_scale=1.0, pow_error_scale=1.0)
     total = counts.sum()
     if total <= 0:
         out["tail_count"] = 0.0
@@ -139,17 +168,24 @@ def fit_tails(counts, edges, tail_start=None, significance=0.05) -> dict:
     spread = math.sqrt(float((tail * (per_bin - mean) ** 2).sum() / n))
     z = ratio / (math.sqrt(n) * spread) if spread > 0 else 0.0
     p_value = float(2 * stats.norm.sf(abs(z)))
-    out.update(exp_rate=rate, exp_rate_se=rate_se, exp_loglik=ll_exp,
-               exp_gof_p=_gof_p(tail, p_exp), pow_exponent=mu, pow_exponent_se=mu_se,
-               pow_loglik=ll_pow, pow_gof_p=_gof_p(tail, p_pow), loglik_ratio=ratio,
-               vuong_z=z, vuong_p=p_value)
+    out.update(exp_rate=rate, exp_rate_se=rate_se, exp_loglik=ll_exp, pow_exponent=mu,
+               pow_exponent_se=mu_se, pow_loglik=ll_pow, loglik_ratio=ratio, vuong_z=z,
+               vuong_p=p_value)
+    for prefix, probabilities, parameter in (("exp", p_exp, "exp_rate_se"),
+                                             ("pow", p_pow, "pow_exponent_se")):
+        chi2, dof, p_fit = _gof(tail, probabilities)
+        verdict = verdict_from_p(p_fit, significance)
+        scale = max(1.0, math.sqrt(chi2 / dof)) if verdict == REJECTED else 1.0
+        out.update({f"{prefix}_chi2": chi2, f"{prefix}_dof": dof, f"{prefix}_gof_p": p_fit,
+                    f"{prefix}_verdict": verdict, f"{prefix}_error_scale": scale})
+        out[parameter] *= scale
     if p_value < significance:
         out["preferred"] = "exponential" if z > 0 else "power_law"
     return out
 
 
 def hopping(ds: xr.Dataset, *, tail_start: float | None = None,
-            significance: float = 0.05) -> xr.Dataset:
+            significance: float = DEFAULT_SIGNIFICANCE) -> xr.Dataset:
     """Residence-time tail fits and flight statistics of every start region."""
     significance = check_range("significance", significance, 0.0, 1.0, low_open=True,
                                high_open=True)
@@ -180,8 +216,10 @@ def hopping(ds: xr.Dataset, *, tail_start: float | None = None,
                                       "tail fit, density ~ exp(-lambda t)",
                                       "1" if tunits == "1" else f"{tunits}-1"),
             "residence_exp_rate_se": var((), fit["exp_rate_se"], "standard error of "
-                                         "residence_exp_rate", "1" if tunits == "1" else
-                                         f"{tunits}-1"),
+                                         "residence_exp_rate (observed Fisher information)",
+                                         "1" if tunits == "1" else f"{tunits}-1",
+                                         error_scale=fit["exp_error_scale"],
+                                         estimator=_scaled_text(fit["exp_error_scale"])),
             "residence_decay_time": var((), 1.0 / fit["exp_rate"] if fit["exp_rate"] > 0
                                         else np.nan, "decay time 1/lambda of the exponential "
                                         "residence-time tail", tunits),
@@ -189,14 +227,29 @@ def hopping(ds: xr.Dataset, *, tail_start: float | None = None,
                                         "the exponential tail (binned)", "1"),
             "residence_exp_gof_p": var((), fit["exp_gof_p"], "Pearson chi-square p-value of "
                                        "the exponential tail", "1"),
+            "residence_exp_reduced_chi2": var((), fit["exp_chi2"] / fit["exp_dof"],
+                                              "Pearson chi-square per degree of freedom of "
+                                              "the exponential tail", "1"),
+            "residence_exp_verdict": var((), np.int8(fit["exp_verdict"]), "verdict of the "
+                                         "goodness-of-fit test of the exponential tail", "1",
+                                         **verdict_attrs(_TEST, significance)),
             "residence_pow_exponent": var((), fit["pow_exponent"], "exponent mu of the "
                                           "power-law tail fit, density ~ t^-mu", "1"),
             "residence_pow_exponent_se": var((), fit["pow_exponent_se"], "standard error of "
-                                             "residence_pow_exponent", "1"),
+                                             "residence_pow_exponent (observed Fisher "
+                                             "information)", "1",
+                                             error_scale=fit["pow_error_scale"],
+                                             estimator=_scaled_text(fit["pow_error_scale"])),
             "residence_pow_loglik": var((), fit["pow_loglik"], "maximised log-likelihood of "
                                         "the power-law tail (binned)", "1"),
             "residence_pow_gof_p": var((), fit["pow_gof_p"], "Pearson chi-square p-value of "
                                        "the power-law tail", "1"),
+            "residence_pow_reduced_chi2": var((), fit["pow_chi2"] / fit["pow_dof"],
+                                              "Pearson chi-square per degree of freedom of "
+                                              "the power-law tail", "1"),
+            "residence_pow_verdict": var((), np.int8(fit["pow_verdict"]), "verdict of the "
+                                         "goodness-of-fit test of the power-law tail", "1",
+                                         **verdict_attrs(_TEST, significance)),
             "residence_loglik_ratio": var((), fit["loglik_ratio"], "log-likelihood ratio "
                                           "exponential minus power law", "1"),
             "residence_vuong_z": var((), fit["vuong_z"], "Vuong normalised log-likelihood "
