@@ -25,7 +25,7 @@ def test_analyse_command_writes_labelled_variables(tmp_path):
     answer = CliRunner().invoke(main, ["analyse", str(result), "--out", str(out),
                                        "--window", "0.5", "--pdf-time", "30"])
     assert answer.exit_code == 0, answer.output
-    assert "start 'edge':" in answer.output and "crossover" in answer.output
+    assert "start 'edge' (256 particles):" in answer.output and "crossovers" in answer.output
     analysed = xr.open_dataset(out)
     try:
         for name in ("alpha", "regime_label", "crossover_time", "D_xx", "D_xx_lower",

@@ -22,6 +22,7 @@ from pathlib import Path
 import numpy as np
 
 from . import __version__
+from .analysis.verdicts import flag_meaning
 from .errors import EddyhopError
 from .io import atomic_write_text
 
@@ -120,26 +121,14 @@ def _start_name(ds, start) -> str:
 
 
 # ---- warnings --------------------------------------------------------------------------------
-def late_slope(time, msd) -> float:
-    """Least-squares log-log slope of ``msd`` over the last half-decade of ``time``."""
-    time = np.asarray(time, dtype=float)
-    msd = np.asarray(msd, dtype=float)
-    good = np.isfinite(msd) & (msd > 0) & (time > 0)
-    time, msd = time[good], msd[good]
-    if time.size < 3:
-        return float("nan")
-    tail = time >= time[-1] / 10**0.5
-    if tail.sum() < 3:
-        tail = np.arange(time.size) >= time.size - 3
-    return float(np.polyfit(np.log(time[tail]), np.log(msd[tail]), 1)[0])
-
-
 def run_warnings(ds) -> list[str]:
     """Plain-language warnings: step size (recorded at run time), run length, sweep notes.
 
     Run length: from the analysis's ``deff_converged`` flag when present (Var Δx + Var Δy must
-    grow linearly over the D_eff window), otherwise from the late log-log slope of the spread
-    computed here (a stricter test: an offset left by the early transient also fails it).
+    grow linearly over the D_eff window; flag words from its own flag_meanings), otherwise
+    from the late log-log slope ``deff_alpha`` (:func:`eddyhop.presentation.late_slopes`, the
+    one definition every command uses; a stricter test: an offset left by the early
+    transient also fails it).
     """
     messages = []
     for key, prefix in (("step_size_warnings", "Large time step: "), ("sweep_warnings", "")):
@@ -150,36 +139,44 @@ def run_warnings(ds) -> list[str]:
         flags = ds["deff_converged"]
         ratios = ds["deff_slope_ratio"] if "deff_slope_ratio" in ds.variables else None
         values = np.asarray(flags.values)
-        for index in np.argwhere(values == 0) if values.ndim else \
-                ([()] if values == 0 else []):
-            index = tuple(index)
-            where = ", ".join(f"{dim} = {_short(ds[dim].values[i]) if dim in ds.coords else i}"
-                              for dim, i in zip(flags.dims, index)) or "this run"
+        meanings = np.vectorize(lambda v: flag_meaning(flags, v), otypes=[object])(values) \
+            if values.size else values
+
+        def places(meaning):
+            if values.ndim == 0:
+                return [()] if meanings == meaning else []
+            return [tuple(i) for i in np.argwhere(meanings == meaning)]
+
+        def where(index):
+            return ", ".join(f"{dim} = {_short(ds[dim].values[i]) if dim in ds.coords else i}"
+                             for dim, i in zip(flags.dims, index)) or "this run"
+
+        for index in places("too_short"):
             ratio = "" if ratios is None else (
                 f" (growth rate of var_x + var_y in the late half of the window over the "
                 f"early half: {float(ratios.values[index]):.2f}, not 1)")
-            messages.append(f"Run too short at {where}: the spread has not reached linear "
-                            f"growth over the D_eff fit window{ratio}, so D_eff is not yet a "
-                            "long-time limit; increase run.t_end.")
-        for index in np.argwhere(values == 2) if values.ndim else \
-                ([()] if values == 2 else []):
-            index = tuple(index)
-            where = ", ".join(f"{dim} = {_short(ds[dim].values[i]) if dim in ds.coords else i}"
-                              for dim, i in zip(flags.dims, index)) or "this run"
-            messages.append(f"Diffusive regime undetermined at {where}: the growth rate of "
-                            "the spread is too noisy (3 standard errors exceed the tolerance) "
-                            "to show linear growth over the D_eff fit window; use more "
-                            "particles or a longer run before treating D_eff as a long-time "
-                            "limit.")
+            messages.append(f"Run too short at {where(index)}: the spread has not reached "
+                            f"linear growth over the D_eff fit window{ratio}, so D_eff is not "
+                            "yet a long-time limit; increase run.t_end.")
+        for index in places("undetermined"):
+            messages.append(f"Diffusive regime undetermined at {where(index)}: the growth rate "
+                            "of the spread is too noisy (3 standard errors exceed the "
+                            "tolerance) to show linear growth over the D_eff fit window; use "
+                            "more particles or a longer run before treating D_eff as a "
+                            "long-time limit.")
+        for index in places("bounded"):
+            messages.append(f"Bounded spread at {where(index)}: the variance stops growing, "
+                            "so no effective diffusivity is claimed.")
     elif "msd" in ds and "time" in ds.coords and set(ds["msd"].dims) <= {"time", "start"}:
-        spread = (ds["var_x"] + ds["var_y"]) if "var_x" in ds and "var_y" in ds else ds["msd"]
-        for start in _starts(ds):
-            slope = late_slope(ds["time"].values, _part(spread, start).values)
+        from .presentation import late_slopes
+
+        for start, (slope, _se) in late_slopes(ds).items():
             if np.isfinite(slope) and abs(slope - 1.0) > 0.1:
+                name = start if start is not None else _start_name(ds, None)
                 messages.append(
-                    f"Run may be too short for start '{_start_name(ds, start)}': the spread "
-                    f"(var_x + var_y) still grows as t^{slope:.2f} over the last half-decade "
-                    f"of time, not as t^1, so the long-time effective-diffusion regime is not "
+                    f"Run may be too short for start '{name}': the late log-log slope "
+                    f"deff_alpha of the spread (var_x + var_y) is {slope:.2f}, not 1, over the "
+                    f"D_eff fit window, so the long-time effective-diffusion regime is not "
                     f"reached; increase run.t_end.")
     return messages
 
@@ -250,21 +247,25 @@ def _results_section(ds) -> str:
     """Per start region: particles, final MSD, late slope; then regimes, crossovers, D_eff."""
     parts = ["<h2 id='results'>Results</h2>"]
     if "msd" in ds and "time" in ds.coords and set(ds["msd"].dims) <= {"time", "start"}:
+        from .presentation import LATE_SLOPE_NAME, LATE_SLOPE_TEXT, late_slopes
+
         t_end = float(ds["time"].values[-1])
+        slopes = late_slopes(ds)
         rows = []
         for start in _starts(ds):
             part = _part(ds, start)
             msd = part["msd"].values
             se = part["msd_se"].values[-1] if "msd_se" in part else np.nan
+            slope, slope_se = slopes.get(start, slopes.get(None, (np.nan, np.nan)))
             rows.append((_e(_start_name(ds, start)),
                          _number(part["n_particles"].values) if "n_particles" in part else "",
                          f"{_number(msd[-1])} ± {_number(se, 2)}",
-                         _number(late_slope(part["time"].values, msd), 3)))
+                         _with_error(slope, slope_se) if np.isfinite(slope) else "n/a"))
         parts.append(_table(("start region", "particles", f"MSD at t = {t_end:g} (± 1 SE)",
-                             "late log-log slope of the MSD"), rows)
-                     + "<p class='meta'>The log-log slope tends to 1 in the diffusive regime, "
-                       "but only as fast as the offset left by the early transient becomes "
-                       "negligible; the D_eff table's last column tests linear growth "
+                             f"{LATE_SLOPE_NAME} (± SE)"), rows)
+                     + f"<p class='meta'>{_e(LATE_SLOPE_TEXT)}. It tends to 1 in the diffusive "
+                       "regime, but only as fast as the offset left by the early transient "
+                       "becomes negligible; the D_eff table's last column tests linear growth "
                        "directly.</p>")
     parts.append(regimes_html(ds))
     parts.append(crossovers_html(ds))
@@ -400,10 +401,14 @@ def deff_html(ds) -> str:
             row.append(text)
         d_eff = _scalar(part, "D_eff")
         row.append(_number(d_eff / kappa) if d_eff is not None and kappa and kappa > 0 else "")
-        converged = _scalar(part, "deff_converged")
-        row.append("" if converged is None else {
-            1: "yes", 2: "<b>undetermined — too noisy to tell</b>"}.get(
-                int(converged) if np.isfinite(converged) else 0, "<b>no — run too short</b>"))
+        meaning = flag_meaning(part["deff_converged"]) if "deff_converged" in part.variables \
+            else None
+        row.append("" if meaning is None else {
+            "diffusive": "yes (diffusive)",
+            "undetermined": "<b>undetermined — too noisy to tell</b>",
+            "too_short": "<b>no — too_short: run too short, no diffusivity claimed</b>",
+            "bounded": "<b>no — bounded spread, no diffusivity claimed</b>"}.get(
+                meaning, f"<b>{_e(meaning or 'unknown')}</b>"))
         rows.append(row)
     units = _units(ds, "D_xx")
     header = ["", f"D_xx{units}", f"D_yy{units}", f"D_xy{units}", f"D_eff{units}", "D_eff/κ",
@@ -415,7 +420,9 @@ def deff_html(ds) -> str:
 
 
 def scaling_html(ds) -> str:
-    """Power-law fits against Pe of a merged sweep (``*_exponent`` with bounds)."""
+    """Power-law fits against Pe of a merged sweep (``*_exponent`` with bounds), with each
+    fit's verdict and how many of its points are undetermined (the same words as
+    :func:`eddyhop.presentation.scaling_lines`)."""
     rows = []
     for name in ("D_xx", "D_yy", "D_eff", "crossover_time"):
         key = f"{name}_exponent"
@@ -423,13 +430,31 @@ def scaling_html(ds) -> str:
             continue
         low = ds[f"{key}_lower"].values if f"{key}_lower" in ds.variables else np.nan
         high = ds[f"{key}_upper"].values if f"{key}_upper" in ds.variables else np.nan
+        verdict = flag_meaning(ds[f"{name}_fit_verdict"]) if f"{name}_fit_verdict" in ds \
+            else ""
+        judged = _e(verdict) if verdict != "rejected" else "<b>rejected</b> (interval " \
+            "widened by sqrt(chi2/dof))"
+        if f"{name}_fit_reduced_chi2" in ds and np.isfinite(float(ds[f"{name}_fit_reduced_chi2"])):
+            judged += f" (χ²/dof = {_number(ds[f'{name}_fit_reduced_chi2'].values, 3)}, " \
+                      f"p = {_number(ds[f'{name}_fit_p_value'].values, 2)})"
+        points = int(ds[f"{name}_fit_points"]) if f"{name}_fit_points" in ds else None
+        undetermined = int(ds[f"{name}_undetermined_points"]) \
+            if f"{name}_undetermined_points" in ds else 0
+        counted = "" if points is None else str(points)
+        if undetermined:
+            counted += (f"; <b>{undetermined} undetermined</b> (no confirmed diffusive regime"
+                        + (": not a confirmed long-time scaling" if verdict == "undetermined"
+                           else "") + ")")
         rows.append((_e(ds[key].attrs.get("long_name", key)),
                      f"{_number(ds[key].values, 3)} [{_number(low, 3)}, {_number(high, 3)}]",
-                     _e(ds[key].attrs.get("reference", ""))))
+                     counted, judged, _e(ds[key].attrs.get("reference", ""))))
     if not rows:
         return ""
-    return "<h3>Scaling with the Péclet number</h3>" + _table(
-        ("fit", "exponent [confidence interval]", "reference"), rows, 1)
+    status = ds.attrs.get("sweep_deff_status")
+    return ("<h3>Scaling with the Péclet number</h3>"
+            + (f"<p>D_eff convergence across the sweep: {_e(status)}.</p>" if status else "")
+            + _table(("fit", "exponent [confidence interval]", "points", "verdict",
+                      "reference"), rows, 1))
 
 
 def _figures_section(ds, names=None) -> tuple[str, list[str]]:

@@ -38,13 +38,26 @@ def _default_out(result: str) -> str:
               help="Times of the displacement PDFs (repeatable). [default: T/100, T/10, T]")
 @click.option("--tail-start", type=float, default=None,
               help="Start of the fitted residence-time tail. [default: median residence]")
+@click.option("--significance", type=float, default=None,
+              help="Level of the goodness-of-fit tests of the aging and tail fits. "
+                   "[default: 0.05]")
+@click.option("--no-reference", is_flag=True,
+              help="Do not solve the cell problem for the summary's reference D_eff.")
 @click.option("--quiet", "-q", is_flag=True, help="Do not print the summary.")
 @friendly_errors
-def command(result, out, quiet, **chosen):
+def command(result, out, quiet, no_reference, **chosen):
     """Analyse RESULT (a netCDF file from `eddyhop run`, a sweep point or the
     reference solver): local exponent alpha(t), regimes, crossover times,
     effective diffusivity with confidence interval, aging, moment spectrum,
     displacement PDFs and cell hopping, as far as RESULT holds the inputs.
+
+    \b
+    The summary gives, per start region, the regime sequence, each regime's
+    exponent, crossover times (model time, 1/(Uk), 1/(kappa k^2) and
+    boundary-layer times), D_eff with its confidence interval and convergence
+    verdict, D/kappa and D/(kappa Pe^1/2), the cell-problem D_eff and the
+    distance from it in standard errors (skip with --no-reference), and the
+    verdicts of the step check and of the fits.
 
     \b
     Example:  eddyhop analyse lattice.nc --out lattice.analysed.nc
@@ -59,39 +72,13 @@ def command(result, out, quiet, **chosen):
     write_netcdf(ds, target)
     click.echo(f"wrote {target}")
     if not quiet:
-        print_analysis(ds)
+        print_analysis(ds, reference=not no_reference)
 
 
-def print_analysis(ds) -> None:
-    """Regimes, crossovers and D_eff of every start region, one block each."""
-    import numpy as np
+def print_analysis(ds, reference: bool = True) -> None:
+    """Per start region: regimes, crossovers, D_eff and its verdicts
+    (:func:`eddyhop.presentation.analysis_lines`)."""
+    from ..presentation import analysis_lines
 
-    tunits = ds["time"].attrs.get("units", "1")
-    shown_units = "" if tunits == "1" else f" {tunits}"
-    multi = "start" in ds.dims
-    labels = [str(v) for v in np.atleast_1d(ds["start"].values)] if "start" in ds.coords \
-        else [""]
-    for label in labels:
-        part = ds.sel(start=label) if multi else ds
-        click.echo(f"start '{label}':")
-        count = int(part["regime_count"].values) if "regime_count" in part else 0
-        for i in range(count):
-            click.echo(f"  {part['regime_label'].values[i]!s:<16} "
-                       f"t = {float(part['regime_start'][i]):<10.4g}… "
-                       f"{float(part['regime_end'][i]):<10.4g} alpha = "
-                       f"{float(part['regime_alpha'][i]):.3f} ± "
-                       f"{float(part['regime_alpha_se'][i]):.2g}")
-        for i in range(max(count - 1, 0)):
-            click.echo(f"  crossover {part['crossover_from'].values[i]!s} → "
-                       f"{part['crossover_to'].values[i]!s}: t = "
-                       f"{float(part['crossover_time'][i]):.4g} ± "
-                       f"{float(part['crossover_time_se'][i]):.2g}{shown_units} = "
-                       f"{float(part['crossover_time_advective'][i]):.3g}/(Uk)")
-        if "D_eff" in part:
-            flag = {0: "  (run too short: not yet diffusive)",
-                    2: "  (undetermined: too noisy to show the diffusive regime)"}.get(
-                int(part["deff_converged"].values), "")
-            click.echo(f"  D_xx = {float(part['D_xx']):.4g} [{float(part['D_xx_lower']):.4g}, "
-                       f"{float(part['D_xx_upper']):.4g}], D_yy = {float(part['D_yy']):.4g} "
-                       f"[{float(part['D_yy_lower']):.4g}, {float(part['D_yy_upper']):.4g}], "
-                       f"D_xy = {float(part['D_xy']):.3g}{flag}")
+    for line in analysis_lines(ds, reference=reference):
+        click.echo(line)

@@ -23,8 +23,9 @@ def command(folder, out, no_analysis, fit_peclet):
     \b
     Every point file is checked against its manifest checksum first.  For a
     sweep over noise.peclet, a scaling summary is printed (exponent of D/kappa
-    against Pe with its confidence interval; crossover times against the
-    advective, boundary-layer and diffusive time scales) and stored in the file.
+    against Pe with its confidence interval and the verdict of the fit; how
+    many points are undetermined; crossover times against the advective,
+    boundary-layer and diffusive time scales) and stored in the file.
     Example:  eddyhop merge pan/ --out pan_sweep.nc
     """
     from ..io import check_output_path, write_netcdf
@@ -45,36 +46,9 @@ def command(folder, out, no_analysis, fit_peclet):
 
 
 def print_scaling(summary):
-    """Exponents with confidence intervals, one line per fitted quantity and start/slice."""
-    import numpy as np
+    """The scaling fits with their verdicts and undetermined counts
+    (:func:`eddyhop.presentation.scaling_lines`)."""
+    from ..presentation import scaling_lines
 
-    from ..sweeps.scaling import nearest_scale
-
-    fitted = str(summary.attrs.get("scaling_fits", "")).split()
-    if not fitted:
-        click.echo("  scaling: " + summary.attrs.get("scaling_note", "no fitted exponents"))
-        return
-    click.echo("  scaling across Pe (95% confidence intervals):")
-    for name in fitted:
-        exponent = summary[f"{name}_exponent"]
-        lower = summary[f"{name}_exponent_lower"].values
-        upper = summary[f"{name}_exponent_upper"].values
-        points = summary[f"{name}_fit_points"].values
-        what = f"{name}/kappa" if name.startswith("D") else name
-        for index in np.ndindex(exponent.shape):
-            value = float(exponent.values[index])
-            if not np.isfinite(value):
-                continue
-            parts = []
-            for d, i in zip(exponent.dims, index):
-                if d == "transition":
-                    parts.append(str(exponent[d].values[i]))
-                elif d in exponent.coords:
-                    parts.append(f"{d}={exponent[d].values[i]}")
-                else:
-                    parts.append(f"{d}[{i}]")
-            line = (f"    {what} ~ Pe^{value:.3f} [{lower[index]:.3f}, {upper[index]:.3f}]"
-                    f"  ({', '.join(parts) + ', ' if parts else ''}{int(points[index])} points)")
-            if name.startswith("crossover"):
-                line += "; " + nearest_scale(value, lower[index], upper[index])
-            click.echo(line)
+    for line in scaling_lines(summary):
+        click.echo(line)

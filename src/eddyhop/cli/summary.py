@@ -1,23 +1,12 @@
-"""Short human-readable summaries of a result Dataset (shared by run, demo and info)."""
+"""Short human-readable summaries of a result Dataset (shared by run, demo and info).
+
+The late log-log slope is the analysis's ``deff_alpha`` (one definition everywhere:
+:func:`eddyhop.presentation.late_slopes`), never a quick look of its own."""
 
 from __future__ import annotations
 
 import click
 import numpy as np
-
-
-def _slope(ds, name):
-    """Log-log slope of the last decade-ish of ``name`` (quick look, not the analysis)."""
-    t = ds["time"].values
-    y = ds[name].values
-    good = (t > 0) & (y > 0)
-    if good.sum() < 3:
-        return float("nan")
-    t, y = t[good], y[good]
-    tail = t >= t[-1] / 10
-    if tail.sum() < 2:
-        tail = np.arange(t.size) >= t.size - 3
-    return float(np.polyfit(np.log(t[tail]), np.log(y[tail]), 1)[0])
 
 
 def print_summary(ds, path=None):
@@ -33,6 +22,9 @@ def print_summary(ds, path=None):
     starts = [str(v) for v in np.atleast_1d(ds["start"].values)] if "start" in ds.coords else [""]
     multi = "start" in ds.dims
     t = ds["time"].values
+    from ..presentation import LATE_SLOPE_NAME, late_slopes
+
+    slopes = late_slopes(ds)
     for label in starts:
         part = ds.sel(start=label) if multi else ds
         final = float(part["msd"].values[-1])
@@ -41,5 +33,9 @@ def print_summary(ds, path=None):
             error = f" ± {float(part['msd_se'].values[-1]):.2g}"
         else:  # deterministic reference solution: no particles, no sampling error
             size, error = "noise-free reference", ""
-        click.echo(f"  start '{label}': {size}; MSD(t = {t[-1]:g}) = {final:.4g}{error}; "
-                   f"late log-log slope {_slope(part, 'msd'):.3f}")
+        line = f"  start '{label}': {size}; MSD(t = {t[-1]:g}) = {final:.4g}{error}"
+        slope, slope_se = slopes.get(label, slopes.get(None, (np.nan, np.nan)))
+        if np.isfinite(slope):
+            line += f"; {LATE_SLOPE_NAME} = {slope:.3f}"
+            line += f" ± {slope_se:.2g}" if np.isfinite(slope_se) else ""
+        click.echo(line)

@@ -224,6 +224,7 @@ def merge_sweep(directory, *, analyse: bool = True, verify: bool = True, scaling
             fitted = [str(n)[:-len("_exponent_lower")] for n in summary.data_vars
                       if str(n).endswith("_exponent_lower")]
             merged.attrs["scaling_fits"] = " ".join(fitted)
+            _note_undetermined(merged)
             if fitted:
                 merged.attrs["scaling_note"] = (
                     "fits against Pe of D/kappa and of crossover times: variables *_exponent "
@@ -233,6 +234,28 @@ def merge_sweep(directory, *, analyse: bool = True, verify: bool = True, scaling
                     "time scales only: no effective-diffusivity or crossover-time variables "
                     "to fit (the analysis package adds them per point)")
     return merged
+
+
+def _note_undetermined(merged) -> None:
+    """Say in the attributes how many results have no confirmed diffusive regime: counts per
+    ``deff_converged`` meaning (``sweep_deff_status``), ``sweep_undetermined_points``, and a
+    line in ``sweep_warnings`` when any D/kappa fit runs over undetermined points."""
+    from .scaling import convergence_counts, convergence_text
+
+    counts = convergence_counts(merged)
+    if not counts:
+        return
+    undetermined = counts.get("undetermined", 0)
+    merged.attrs["sweep_deff_status"] = convergence_text(counts)
+    merged.attrs["sweep_undetermined_points"] = undetermined
+    if undetermined:
+        message = (f"D_eff undetermined at {undetermined} of {sum(counts.values())} results "
+                   "(deff_converged = undetermined: too noisy to show the diffusive regime); "
+                   "the D/kappa scaling fits include them and say so "
+                   "(*_undetermined_points, *_fit_verdict)")
+        previous = str(merged.attrs.get("sweep_warnings", "none"))
+        merged.attrs["sweep_warnings"] = message if previous == "none" else \
+            f"{previous} | {message}"
 
 
 def _merged_attrs(manifest, datasets, notes, version, conventions) -> dict:

@@ -13,10 +13,20 @@ of freedom of a two-parameter fit.  The interval is slope ± z · se (normal qua
 Without standard errors the fit is ordinary least squares and the interval slope ± t_{n−2} · se
 (Student t).
 
+Goodness of fit.  Every fit with standard errors is tested: χ² = Σ wᵢ rᵢ² against the χ²
+distribution with n − 2 degrees of freedom; ``<name>_fit_reduced_chi2``, ``_fit_p_value`` and
+the flag ``_fit_verdict`` (accepted / rejected at 5 % / undetermined) are stored with each
+fit.  A rejected fit keeps its Birge-widened interval (above), so it is never a tight number.
+
 Effective diffusivity.  The fitted quantity is the enhancement ``D/κ``, independent of whether
-Pe was varied through κ or U.  Points whose run was shown too short for the diffusive regime
-(``deff_converged`` = 0) are left out; undetermined points (2: too noisy to confirm either way)
-enter with their standard errors, which already weight them down.  Reference exponents at
+Pe was varied through κ or U.  Points where no diffusivity is claimed (``deff_converged`` too
+short, or a bounded spread) are left out and counted in ``<name>_excluded_points``;
+undetermined points (too noisy to confirm the diffusive regime either way) enter with their
+standard errors, which already weight them down, and are counted in
+``<name>_undetermined_points``.  Flags are read through ``deff_converged``'s own
+flag_meanings.  With fewer than 3 confirmed-diffusive points the fit's verdict is
+undetermined whatever its χ²: it is a fit over numbers that are not shown to be long-time
+limits, and the printouts say so.  Reference exponents at
 large Pe: 1/2 for closed cellular flow (boundary-layer transport across the separatrices;
 Shraiman 1987, Phys. Rev. A 36, 261; Rosenbluth, Berk, Doxas & Horton 1987, Phys. Fluids 30,
 2636); 2 for a parallel shear u = U sin ky, where D_xx = κ + U²/(2κk²) (Taylor dispersion by
@@ -39,6 +49,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..analysis.verdicts import (
+    DEFAULT_SIGNIFICANCE,
+    UNDETERMINED,
+    flag_value,
+    verdict_attrs,
+    verdict_from_p,
+)
 from ..errors import InputDataError
 
 PECLET_DIMS = ("peclet",)
@@ -55,7 +72,13 @@ REFERENCE_DEFF = ("large Pe: 1/2 for closed cells (Shraiman 1987; Rosenbluth et 
 
 @dataclass(frozen=True)
 class PowerLaw:
-    """Fit of ``y = prefactor · x^exponent``; [``lower``, ``upper``] bounds the exponent."""
+    """Fit of ``y = prefactor · x^exponent``; [``lower``, ``upper``] bounds the exponent.
+
+    Goodness of fit: ``chi2`` (weighted sum of squared residuals of ln y), ``dof`` = n − 2,
+    ``p_value`` = P(χ²_dof > chi2) when the points have standard errors (NaN without them:
+    the scatter then sets the errors and nothing is left to test), and ``verdict``
+    (0 accepted, 1 rejected at the significance level, 2 undetermined; see
+    :mod:`eddyhop.analysis.verdicts`)."""
 
     exponent: float
     lower: float
@@ -65,13 +88,22 @@ class PowerLaw:
     n: int
     birge: float
     confidence: float
+    chi2: float = math.nan
+    dof: int = 0
+    p_value: float = math.nan
+    verdict: int = 2
 
 
-def fit_power_law(x, y, se=None, *, confidence: float = 0.95) -> PowerLaw:
-    """Weighted log–log fit of ``y ∝ x^β`` (see the module docstring).
+def fit_power_law(x, y, se=None, *, confidence: float = 0.95,
+                  significance: float = DEFAULT_SIGNIFICANCE) -> PowerLaw:
+    """Weighted log–log fit of ``y ∝ x^β`` (see the module docstring), judged by χ².
 
     ``se``: optional standard errors of ``y``.  Points with non-finite or non-positive values
-    (or standard errors, when given) are left out; at least 3 must remain.
+    (or standard errors, when given) are left out; at least 3 must remain.  With errors the
+    fit is tested (χ² with n − 2 degrees of freedom) and ``verdict`` says accepted or
+    rejected at ``significance``; a rejected fit's interval is already widened by the Birge
+    ratio √(χ²/(n − 2)).  Without errors, or with no degree of freedom left, the verdict is
+    undetermined.
     """
     from scipy import stats
 
@@ -105,9 +137,11 @@ def fit_power_law(x, y, se=None, *, confidence: float = 0.95) -> PowerLaw:
     stderr = float(math.sqrt(covariance[1, 1]))
     half = float(quantile) * stderr
     slope = float(coefficients[1])
+    p_value = float(stats.chi2.sf(chi2, dof)) if se is not None and dof > 0 else math.nan
     return PowerLaw(exponent=slope, lower=slope - half, upper=slope + half,
                     prefactor=float(math.exp(coefficients[0])), stderr=stderr, n=n,
-                    birge=birge, confidence=confidence)
+                    birge=birge, confidence=confidence, chi2=chi2, dof=dof,
+                    p_value=p_value, verdict=verdict_from_p(p_value, significance))
 
 
 def peclet_dimension(ds) -> str:
@@ -135,18 +169,39 @@ def time_scales(ds) -> dict:
     }
 
 
-def _fit_grid(values, se, pe, confidence):
-    """Fit along the last axis for every index of the others → (..., 5) array of
-    (exponent, lower, upper, prefactor, n)."""
-    out = np.full((*values.shape[:-1], 5), np.nan)
+FIT_COLUMNS = ("exponent", "lower", "upper", "prefactor", "n", "reduced_chi2", "p_value",
+               "verdict", "undetermined", "excluded")
+MIN_CONFIRMED = 3  # diffusive points a D/kappa fit needs before its verdict can be a verdict
+
+
+def _fit_grid(values, se, pe, confidence, status=None):
+    """Fit along the last axis for every index of the others → (..., len(FIT_COLUMNS)).
+
+    ``status`` (same shape as ``values``, optional): per point 1 confirmed, 2 undetermined
+    (entered in the fit, counted), 0 left out (too short, bounded: NaN in ``values``).  A fit
+    with fewer than ``MIN_CONFIRMED`` confirmed points gets the verdict undetermined whatever
+    its χ²: it describes points that are not shown to be long-time limits."""
+    out = np.full((*values.shape[:-1], len(FIT_COLUMNS)), np.nan)
     for index in np.ndindex(*values.shape[:-1]):
+        row = out[index]
+        usable = np.isfinite(values[index]) & (values[index] > 0)
+        if se is not None:
+            usable &= np.isfinite(se[index]) & (se[index] > 0)
+        if status is not None:
+            row[8] = float(np.sum(usable & (status[index] == 2)))
+            row[9] = float(np.sum(status[index] == 0))
         try:
             fit = fit_power_law(pe, values[index], None if se is None else se[index],
                                 confidence=confidence)
         except InputDataError:
-            out[(*index, 4)] = 0
+            row[4] = 0
+            row[7] = UNDETERMINED
             continue
-        out[index] = (fit.exponent, fit.lower, fit.upper, fit.prefactor, fit.n)
+        verdict = fit.verdict
+        if status is not None and np.sum(usable & (status[index] == 1)) < MIN_CONFIRMED:
+            verdict = UNDETERMINED
+        row[:8] = (fit.exponent, fit.lower, fit.upper, fit.prefactor, fit.n,
+                   fit.chi2 / fit.dof if fit.dof > 0 else np.nan, fit.p_value, verdict)
     return out
 
 
@@ -159,13 +214,39 @@ def _store_fit(out, name, fits, dims, coords, what, reference, confidence, pe_us
               "exponent_upper": f"upper bound of the {confidence:.0%} confidence interval of "
                                 f"{name}_exponent",
               "prefactor": f"fitted prefactor A of {what} = A Pe^beta",
-              "fit_points": f"number of sweep points in the fit of {what} against Pe"}
-    for i, suffix in enumerate(labels):
-        data = fits[..., i] if suffix != "fit_points" else fits[..., i].astype(np.int64)
+              "fit_points": f"number of sweep points in the fit of {what} against Pe",
+              "fit_reduced_chi2": f"chi-square per degree of freedom of the fit of {what} "
+                                  "against Pe (NaN without standard errors)",
+              "fit_p_value": f"goodness-of-fit p-value of the fit of {what} against Pe "
+                             "(chi-square, n - 2 degrees of freedom)",
+              "fit_verdict": f"verdict of the fit of {what} against Pe"}
+    columns = {"exponent": 0, "exponent_lower": 1, "exponent_upper": 2, "prefactor": 3,
+               "fit_points": 4, "fit_reduced_chi2": 5, "fit_p_value": 6, "fit_verdict": 7}
+    for suffix, i in columns.items():
+        data = fits[..., i]
+        if suffix == "fit_points":
+            data = np.where(np.isfinite(data), data, 0).astype(np.int64)
+        elif suffix == "fit_verdict":
+            data = np.where(np.isfinite(data), data, UNDETERMINED).astype(np.int8)
         out[f"{name}_{suffix}"] = xr.DataArray(data, dims=dims, coords=coords,
                                                attrs={"long_name": labels[suffix]})
         if suffix != "prefactor":
             out[f"{name}_{suffix}"].attrs["units"] = "1"
+    out[f"{name}_fit_verdict"].attrs.update(verdict_attrs(
+        "chi-square of the weighted log-log fit, n - 2 degrees of freedom; undetermined "
+        "without standard errors, or for D/kappa with fewer than "
+        f"{MIN_CONFIRMED} points confirmed diffusive", DEFAULT_SIGNIFICANCE))
+    if name in DIFFUSIVITIES:
+        counted = {"undetermined_points": (8, "sweep points in the fit whose diffusive regime "
+                                              "is undetermined (deff_converged = "
+                                              "undetermined): not confirmed long-time limits"),
+                   "excluded_points": (9, "sweep points left out of the fit because no "
+                                          "diffusivity is claimed there (run too short, or "
+                                          "bounded spread)")}
+        for suffix, (i, text) in counted.items():
+            data = np.where(np.isfinite(fits[..., i]), fits[..., i], 0).astype(np.int64)
+            out[f"{name}_{suffix}"] = xr.DataArray(data, dims=dims, coords=coords,
+                                                   attrs={"long_name": text, "units": "1"})
     out[f"{name}_exponent"].attrs.update(
         confidence=confidence, method="weighted least squares of ln y on ln Pe (weights from the "
         "standard errors; interval widened by the Birge ratio when the scatter exceeds them); "
@@ -173,6 +254,22 @@ def _store_fit(out, name, fits, dims, coords, what, reference, confidence, pe_us
         fit_peclet_min=float(np.min(pe_used)) if pe_used.size else np.nan,
         fit_peclet_max=float(np.max(pe_used)) if pe_used.size else np.nan,
         reference=reference)
+
+
+def point_status(converged):
+    """Per-point status of a ``deff_converged`` DataArray for the fits: 1 diffusive
+    (confirmed), 2 undetermined (kept, counted), 0 anything else (too short, bounded,
+    missing: left out).  Read through the variable's own flag_meanings."""
+    values = np.asarray(converged.values, dtype=float)
+    status = np.zeros(values.shape, dtype=np.int8)
+    diffusive = flag_value(converged, "diffusive")
+    undetermined = flag_value(converged, "undetermined")
+    if diffusive is None:  # a file without flag attributes: 1 diffusive, 2 undetermined
+        diffusive, undetermined = 1, 2
+    status[values == float(diffusive)] = 1
+    if undetermined is not None:
+        status[values == float(undetermined)] = 2
+    return status
 
 
 def scaling_summary(ds, *, peclet_range=None, confidence: float = 0.95):
@@ -213,14 +310,18 @@ def scaling_summary(ds, *, peclet_range=None, confidence: float = 0.95):
     for name in DIFFUSIVITIES:
         if name not in ds.data_vars or pe_dim not in ds[name].dims:
             continue
-        mask = None
+        mask = status = None
         if "deff_converged" in ds.data_vars:
-            converged = ds["deff_converged"].fillna(0)
-            mask = (converged >= 1).broadcast_like(ds[name])  # 1 diffusive, 2 undetermined
+            converged = ds["deff_converged"].broadcast_like(ds[name])
+            flags = xr.DataArray(point_status(converged), dims=converged.dims,
+                                 coords=converged.coords)
+            mask = flags > 0  # diffusive and undetermined points enter the fit
         se = ds[f"{name}_se"] / kappa if f"{name}_se" in ds.data_vars else None
         values, errors, dims = arrays((ds[name] / kappa).broadcast_like(ds[name]),
                                       None if se is None else se.broadcast_like(ds[name]), mask)
-        fits = _fit_grid(values, errors, pe[keep], confidence)
+        if mask is not None:
+            status = flags.transpose(*dims, pe_dim).values[..., keep]
+        fits = _fit_grid(values, errors, pe[keep], confidence, status)
         coords = {d: ds[d] for d in dims if d in ds.coords}
         _store_fit(out, name, fits, dims, coords, f"{name}/kappa", REFERENCE_DEFF, confidence,
                    pe[keep])
@@ -303,3 +404,26 @@ def nearest_scale(exponent: float, lower: float, upper: float) -> str:
     name = min(SCALES, key=lambda n: abs(SCALES[n][1] - exponent))
     return f"closest to the {name.replace('_', '-')} scale (Pe^{SCALES[name][1]:g}) but " \
            "outside its interval"
+
+
+def convergence_counts(ds) -> dict:
+    """How many results of a merged sweep carry each ``deff_converged`` meaning (its own
+    flag_meanings: diffusive, undetermined, too_short, bounded …), plus "missing" for points
+    not computed.  Empty when the sweep was merged without the analysis."""
+    if "deff_converged" not in ds.variables:
+        return {}
+    flags = ds["deff_converged"]
+    values = np.asarray(flags.values, dtype=float).ravel()
+    meanings = str(flags.attrs.get("flag_meanings", "too_short diffusive undetermined")).split()
+    codes = np.atleast_1d(np.asarray(flags.attrs.get("flag_values",
+                                                     np.arange(len(meanings))), dtype=float))
+    counts = {meaning: int(np.sum(values == code)) for code, meaning in zip(codes, meanings)}
+    counts["missing"] = int(np.sum(~np.isfinite(values)))
+    return counts
+
+
+def convergence_text(counts: dict) -> str:
+    """One phrase: "8 results: 3 diffusive, 5 undetermined" (zero counts left out)."""
+    total = sum(counts.values())
+    parts = [f"{n} {meaning.replace('_', ' ')}" for meaning, n in counts.items() if n]
+    return f"{total} result{'s' if total != 1 else ''}: " + ", ".join(parts)
