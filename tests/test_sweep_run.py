@@ -498,3 +498,31 @@ def test_cli_sweep_and_merge(reference, tmp_path):
     study = parse_study_text(study_text().split("[sweep]")[0], "plain.toml")
     with pytest.raises(EddyhopError, match="no \\[sweep\\] table"):
         run_sweep(study, tmp_path / "y")
+
+
+def test_cli_merge_prints_convergence_counts_and_fit_verdicts(reference, tmp_path):
+    """With the per-point analysis, `eddyhop merge` says how many results are diffusive,
+    undetermined or too short (the counts of the merged deff_converged flags), and every
+    scaling line carries a verdict or says why there is no fit."""
+    pytest.importorskip("eddyhop.analysis")
+    from click.testing import CliRunner
+
+    from eddyhop.cli import main
+    from eddyhop.sweeps.scaling import convergence_counts
+
+    target = tmp_path / "analysed.nc"
+    result = CliRunner().invoke(main, ["merge", str(reference["report"].directory), "--out",
+                                       str(target)])
+    assert result.exit_code == 0, result.output
+    merged = xr.open_dataset(target)
+    try:
+        counts = convergence_counts(merged)
+        assert sum(counts.values()) == 6
+        assert merged.attrs["sweep_undetermined_points"] == counts.get("undetermined", 0)
+        for meaning, count in counts.items():
+            if count:
+                assert f"{count} {meaning.replace('_', ' ')}" in result.output
+        lines = [line for line in result.output.splitlines() if "/kappa" in line]
+        assert lines and all(("fit " in line) or ("no fit" in line) for line in lines), lines
+    finally:
+        merged.close()

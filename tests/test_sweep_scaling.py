@@ -171,3 +171,68 @@ def test_summary_needs_a_peclet_dimension():
     ds = merged_like([1.0, 2.0, 3.0]).rename({"peclet": "epsilon"})
     with pytest.raises(InputDataError, match=r"noise\.peclet"):
         scaling_summary(ds)
+
+
+# ---- every scaling fit is judged, and undetermined points are counted and said -----------------
+def test_power_law_fit_verdict_accepts_a_true_law_and_rejects_scatter():
+    """With errors equal to the true ones a pure power law passes the χ² test (n − 2 degrees
+    of freedom; seed 7, a 5 % test at a fixed seed); scatter 100× the stated errors fails it,
+    and its interval is widened by the Birge ratio (never a tight number)."""
+    x = np.geomspace(1.0, 1e3, 7)
+    sigma = 0.05
+    y = 0.8 * x**0.5 * np.exp(sigma * np.random.default_rng(7).standard_normal(x.size))
+    good = fit_power_law(x, y, se=sigma * y)
+    assert good.verdict == 0 and good.p_value >= 0.05 and good.dof == 5
+    bad = fit_power_law(x, y * np.array([1, 1.3, 0.8, 1.2, 0.75, 1.1, 1.0]), se=1e-3 * y)
+    assert bad.verdict == 1 and bad.p_value < 1e-6 and bad.birge > 10
+    plain = fit_power_law(x, y)  # no errors: nothing to test against
+    assert plain.verdict == 2 and math.isnan(plain.p_value)
+
+
+def test_fit_over_undetermined_points_is_counted_and_said():
+    """The case of the issue: every point has deff_converged = undetermined.  The fit is
+    made (the points carry errors) but its verdict is undetermined, the count of undetermined
+    points is stored, and the printed line says so instead of a bare interval."""
+    from eddyhop.presentation import scaling_lines
+
+    pe = [10.0, 30.0, 100.0, 300.0, 1000.0]
+    ds = merged_like(pe)
+    ds["deff_converged"][:] = 2
+    ds["deff_converged"].attrs.update(flag_values=np.array([0, 1, 2, 3], np.int8),
+                                      flag_meanings="too_short diffusive undetermined bounded")
+    ds["deff_converged"][0, 1] = 3  # bounded: no diffusivity claimed, left out
+    summary = scaling_summary(ds)
+    assert list(summary["D_eff_undetermined_points"].values) == [5, 4]
+    assert list(summary["D_eff_excluded_points"].values) == [0, 1]
+    assert list(summary["D_eff_fit_points"].values) == [5, 4]
+    assert list(summary["D_eff_fit_verdict"].values) == [2, 2]
+    assert summary["D_eff_fit_verdict"].attrs["flag_meanings"] == \
+        "accepted rejected undetermined"
+    merged = ds.assign(summary.data_vars)
+    merged.attrs["scaling_fits"] = "D_eff"
+    lines = scaling_lines(merged)
+    assert lines[0] == ("  D_eff convergence across the sweep: 10 results: 9 undetermined, "
+                        "1 bounded")
+    whole = next(line for line in lines if "start=whole" in line)
+    assert "5 of 5 points UNDETERMINED" in whole and "not a confirmed long-time scaling" in whole
+    corner = next(line for line in lines if "start=centre" in line)
+    assert "4 of 4 points UNDETERMINED" in corner and "1 point(s) left out" in corner
+    # with the points confirmed the same fit is judged on its chi-square
+    ds["deff_converged"][:] = 1
+    confirmed = scaling_summary(ds)
+    assert list(confirmed["D_eff_fit_verdict"].values) == [0, 0]
+    assert list(confirmed["D_eff_undetermined_points"].values) == [0, 0]
+
+
+def test_merge_attributes_count_undetermined_points():
+    from eddyhop.sweeps.merge import _note_undetermined
+
+    ds = merged_like([10.0, 30.0, 100.0])
+    ds["deff_converged"][:2, 0] = 2
+    ds["deff_converged"].attrs.update(flag_values=np.array([0, 1, 2], np.int8),
+                                      flag_meanings="too_short diffusive undetermined")
+    ds.attrs["sweep_warnings"] = "none"
+    _note_undetermined(ds)
+    assert ds.attrs["sweep_undetermined_points"] == 2
+    assert ds.attrs["sweep_deff_status"] == "6 results: 4 diffusive, 2 undetermined"
+    assert ds.attrs["sweep_warnings"].startswith("D_eff undetermined at 2 of 6 results")

@@ -458,8 +458,11 @@ def _fit_lines(ds, name, nearest_scale):
             else:
                 where.append(f"{d}[{i}]")
         context = ", ".join([*where, f"{points} points"])
+        excluded = int(get("excluded_points", index, 0))
         if not np.isfinite(value):
-            out.append(f"    {what}: no fit ({context})")
+            left_out = f"; {excluded} point(s) left out: too short or bounded" if excluded \
+                else ""
+            out.append(f"    {what}: no fit, fewer than 3 usable points ({context}{left_out})")
             continue
         lower, upper = float(get("exponent_lower", index)), float(get("exponent_upper", index))
         line = f"    {what} ~ Pe^{value:.3f} [{lower:.3f}, {upper:.3f}]  ({context})"
@@ -467,7 +470,6 @@ def _fit_lines(ds, name, nearest_scale):
             if f"{name}_fit_verdict" in ds.variables else ""
         chi2, p_value = get("fit_reduced_chi2", index), get("fit_p_value", index)
         undetermined = int(get("undetermined_points", index, 0))
-        excluded = int(get("excluded_points", index, 0))
         if undetermined:
             line += (f" — {undetermined} of {points} points UNDETERMINED (no confirmed "
                      "diffusive regime)")

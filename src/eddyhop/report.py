@@ -260,7 +260,9 @@ def _results_section(ds) -> str:
             rows.append((_e(_start_name(ds, start)),
                          _number(part["n_particles"].values) if "n_particles" in part else "",
                          f"{_number(msd[-1])} ± {_number(se, 2)}",
-                         _with_error(slope, slope_se) if np.isfinite(slope) else "n/a"))
+                         (f"{slope:.3f}" + (f" ± {_number(slope_se, 2)}"
+                                            if np.isfinite(slope_se) else ""))
+                         if np.isfinite(slope) else "n/a"))  # as printed by every command
         parts.append(_table(("start region", "particles", f"MSD at t = {t_end:g} (± 1 SE)",
                              f"{LATE_SLOPE_NAME} (± SE)"), rows)
                      + f"<p class='meta'>{_e(LATE_SLOPE_TEXT)}. It tends to 1 in the diffusive "
