@@ -254,6 +254,12 @@ def test_residence_tail_fits_follow_the_analysis(analysed_ds):
     figure = plots.residence_figure(analysed_ds)
     fits = [line for line in figure.axes[0].get_lines() if str(line.get_gid()).startswith("fit_")]
     assert len(fits) == 4  # two models × two start regions
+    # a model rejected by its goodness-of-fit test says so in the legend
+    from eddyhop.analysis.verdicts import flag_meaning
+
+    for model, key in (("exponential", "exp"), ("power_law", "pow")):
+        verdict = flag_meaning(part[f"residence_{key}_verdict"])
+        assert (f"({verdict} by the χ² test)" in curves[model][2]) == (verdict != "accepted")
 
 
 def test_residence_figure_names_the_setting(run_ds):

@@ -51,7 +51,8 @@ def tail_fit_densities(part, edges):
     Both models are truncated to [t_min, t_max] and fitted to the tail's counts only, so on the
     whole distribution's density scale they are weighted by the tail fraction N_tail/N:
     exponential λ e^{−λ(t−t_min)} / (1 − e^{−λ(t_max−t_min)}), power law
-    (μ−1) t^{−μ} / (t_min^{1−μ} − t_max^{1−μ}).  Returns {model: (t, density, label)}.
+    (μ−1) t^{−μ} / (t_min^{1−μ} − t_max^{1−μ}).  Returns {model: (t, density, label)}; a
+    label says when the goodness-of-fit verdict of its model is rejected or undetermined.
     """
     low = _scalar(part, "residence_tail_start")
     n_tail = _scalar(part, "residence_tail_count")
@@ -76,8 +77,16 @@ def tail_fit_densities(part, edges):
             density = weight * (mu - 1.0) * t ** -mu / (low ** (1 - mu) - high ** (1 - mu))
         curves["power_law"] = (t, density, f"power-law tail, μ = {mu:.3g}")
     for model, (times, density, text) in list(curves.items()):
+        verdict_name = f"residence_{'exp' if model == 'exponential' else 'pow'}_verdict"
+        if verdict_name in part.variables:
+            from ..analysis.verdicts import flag_meaning
+
+            verdict = flag_meaning(part[verdict_name])
+            if verdict in ("rejected", "undetermined"):
+                text += f" ({verdict} by the χ² test)"  # never a bare number for a bad fit
         if model == preferred:
-            curves[model] = (times, density, text + " (preferred)")
+            text += " (preferred)"
+        curves[model] = (times, density, text)
     return curves
 
 
