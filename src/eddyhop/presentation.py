@@ -459,6 +459,8 @@ def _fit_lines(ds, name, nearest_scale):
                 where.append(f"{d}[{i}]")
         context = ", ".join([*where, f"{points} points"])
         excluded = int(get("excluded_points", index, 0))
+        if not np.isfinite(value) and points == 0 and not excluded and name == "crossover_time":
+            continue  # a transition this slice never shows: nothing to say
         if not np.isfinite(value):
             left_out = f"; {excluded} point(s) left out: too short or bounded" if excluded \
                 else ""

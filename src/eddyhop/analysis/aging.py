@@ -20,6 +20,11 @@ the jackknife spread is the standard error.  Without batches the ratio's error c
 two relative errors as if independent and the fit's error comes from the Jacobian; the
 ``estimator`` attribute says which was used.
 
+Goodness of fit: the fit is judged (``aging_fit_p_value``, ``aging_fit_verdict``: accepted,
+rejected or undetermined) by a test that accounts for the points sharing particles (the
+jackknife covariance of the points; see :func:`fit_aging_form`); a rejected fit's errors are
+widened by √(T/E[T]) and its ``long_name`` says it is rejected.
+
 From tracked trajectories (``track_x``, ``track_y`` on a linear grid of spacing δ, duration
 T), for lags Δ = jδ: the time-averaged MSD of each particle,
     δ²ᵢ(Δ) = 1/(T − Δ) ∫₀^{T−Δ} |Xᵢ(t + Δ) − Xᵢ(t)|² dt   (discrete mean over all windows),
