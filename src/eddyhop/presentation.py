@@ -19,12 +19,17 @@ from __future__ import annotations
 
 import math
 import time
+import warnings
 
 import numpy as np
 
 from .analysis.verdicts import flag_meaning
 
 ARROW = " → "
+# Fourier modes per direction the summary's cell-problem solve may use: at rtol 1e-4 this
+# covers the cellular flow up to Pe ≈ 3000 in a few seconds (docs/reference.md, "Cost");
+# beyond, the summary says so and `eddyhop reference` does the long solve.
+REFERENCE_MAX_MODES = 256
 
 
 # ---- number formatting -------------------------------------------------------------------------
@@ -324,12 +329,16 @@ def _cell_problem(ds):
         model = str(ds.attrs.get("noise_model", noise.get("model", "constant")))
         modulation = float(noise.get("modulation", 0.0) or 0.0)
         started = time.perf_counter()
-        result = effective_diffusivity(family, params, kappa=kappa, noise_model=model,
-                                       modulation=modulation, rtol=1e-4)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # a resolution note is not this summary's business
+            result = effective_diffusivity(family, params, kappa=kappa, noise_model=model,
+                                           modulation=modulation, rtol=1e-4,
+                                           max_modes=REFERENCE_MAX_MODES)
         seconds = time.perf_counter() - started
     except EddyhopError as exc:
-        return {"note": f"  (no cell-problem reference: {exc})"}
-    except (TypeError, ValueError, KeyError) as exc:
+        return {"note": f"  (no cell-problem reference: {exc}; `eddyhop reference` solves it "
+                        "with other settings)"}
+    except (TypeError, ValueError, KeyError, OSError) as exc:
         return {"note": f"  (no cell-problem reference: the file's provenance does not give "
                         f"its flow and noise: {exc})"}
     return {"tensor": np.asarray(result.tensor, dtype=float), "kappa": kappa,
