@@ -217,6 +217,14 @@ def test_fit_over_undetermined_points_is_counted_and_said():
     assert "5 of 5 points UNDETERMINED" in whole and "not a confirmed long-time scaling" in whole
     corner = next(line for line in lines if "start=centre" in line)
     assert "4 of 4 points UNDETERMINED" in corner and "1 point(s) left out" in corner
+    # the report's scaling table says the same
+    from eddyhop.report import scaling_html
+
+    page = scaling_html(merged.assign_attrs(sweep_deff_status="10 results: 9 undetermined, "
+                                            "1 bounded"))
+    assert page.count("not a confirmed long-time scaling") == 2
+    assert "<b>5 undetermined</b>" in page and "<b>4 undetermined</b>" in page
+    assert "1 left out (too short or bounded)" in page and "9 undetermined, 1 bounded" in page
     # with the points confirmed the same fit is judged on its chi-square
     ds["deff_converged"][:] = 1
     confirmed = scaling_summary(ds)

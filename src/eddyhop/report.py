@@ -422,34 +422,52 @@ def deff_html(ds) -> str:
 
 
 def scaling_html(ds) -> str:
-    """Power-law fits against Pe of a merged sweep (``*_exponent`` with bounds), with each
-    fit's verdict and how many of its points are undetermined (the same words as
-    :func:`eddyhop.presentation.scaling_lines`)."""
+    """Power-law fits against Pe of a merged sweep (``*_exponent`` with bounds), one row per
+    fit and slice (e.g. per start region), with each fit's verdict and how many of its points
+    are undetermined (the same words as :func:`eddyhop.presentation.scaling_lines`)."""
     rows = []
     for name in ("D_xx", "D_yy", "D_eff", "crossover_time"):
         key = f"{name}_exponent"
-        if key not in ds.variables or ds[key].ndim:
+        if key not in ds.variables:
             continue
-        low = ds[f"{key}_lower"].values if f"{key}_lower" in ds.variables else np.nan
-        high = ds[f"{key}_upper"].values if f"{key}_upper" in ds.variables else np.nan
-        verdict = flag_meaning(ds[f"{name}_fit_verdict"]) if f"{name}_fit_verdict" in ds \
-            else ""
-        judged = _e(verdict) if verdict != "rejected" else "<b>rejected</b> (interval " \
-            "widened by sqrt(chi2/dof))"
-        if f"{name}_fit_reduced_chi2" in ds and np.isfinite(float(ds[f"{name}_fit_reduced_chi2"])):
-            judged += f" (χ²/dof = {_number(ds[f'{name}_fit_reduced_chi2'].values, 3)}, " \
-                      f"p = {_number(ds[f'{name}_fit_p_value'].values, 2)})"
-        points = int(ds[f"{name}_fit_points"]) if f"{name}_fit_points" in ds else None
-        undetermined = int(ds[f"{name}_undetermined_points"]) \
-            if f"{name}_undetermined_points" in ds else 0
-        counted = "" if points is None else str(points)
-        if undetermined:
-            counted += (f"; <b>{undetermined} undetermined</b> (no confirmed diffusive regime"
-                        + (": not a confirmed long-time scaling" if verdict == "undetermined"
-                           else "") + ")")
-        rows.append((_e(ds[key].attrs.get("long_name", key)),
-                     f"{_number(ds[key].values, 3)} [{_number(low, 3)}, {_number(high, 3)}]",
-                     counted, judged, _e(ds[key].attrs.get("reference", ""))))
+        exponent = ds[key]
+
+        def at(suffix, index, default=np.nan, name=name):
+            variable = f"{name}_{suffix}"
+            return np.asarray(ds[variable].values)[index] if variable in ds.variables \
+                else default
+
+        for index in np.ndindex(exponent.shape):
+            value = float(np.asarray(exponent.values)[index])
+            points = int(at("fit_points", index, 0))
+            if not np.isfinite(value) and points == 0:
+                continue
+            where = ", ".join(
+                str(exponent[d].values[i]) if d == "transition" else
+                f"{d} = {_short(exponent[d].values[i])}" if d in exponent.coords else
+                f"{d}[{i}]" for d, i in zip(exponent.dims, index))
+            verdict = flag_meaning(ds[f"{name}_fit_verdict"], at("fit_verdict", index)) \
+                if f"{name}_fit_verdict" in ds.variables else ""
+            judged = "<b>rejected</b> (interval widened by sqrt(χ²/dof))" \
+                if verdict == "rejected" else _e(verdict)
+            chi2 = at("fit_reduced_chi2", index)
+            if np.isfinite(chi2):
+                judged += (f" (χ²/dof = {_number(chi2, 3)}, p = "
+                           f"{_number(at('fit_p_value', index), 2)})")
+            undetermined = int(at("undetermined_points", index, 0))
+            counted = str(points)
+            if undetermined:
+                counted += (f"; <b>{undetermined} undetermined</b> (no confirmed diffusive "
+                            "regime" + (": not a confirmed long-time scaling"
+                                        if verdict == "undetermined" else "") + ")")
+            excluded = int(at("excluded_points", index, 0))
+            if excluded:
+                counted += f"; {excluded} left out (too short or bounded)"
+            low, high = at("exponent_lower", index), at("exponent_upper", index)
+            rows.append((_e(exponent.attrs.get("long_name", key)) + (f" ({_e(where)})"
+                                                                     if where else ""),
+                         f"{_number(value, 3)} [{_number(low, 3)}, {_number(high, 3)}]",
+                         counted, judged, _e(exponent.attrs.get("reference", ""))))
     if not rows:
         return ""
     status = ds.attrs.get("sweep_deff_status")
