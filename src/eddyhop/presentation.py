@@ -432,7 +432,9 @@ def scaling_lines(ds) -> list[str]:
         out.append("  D_eff convergence across the sweep: " + convergence_text(counts))
     fitted = str(ds.attrs.get("scaling_fits", "")).split()
     if not fitted:
-        out.append("  scaling: " + str(ds.attrs.get("scaling_note", "no fitted exponents")))
+        if "peclet" in ds.dims:
+            out.append("  scaling: " + str(ds.attrs.get("scaling_note",
+                                                        "no fitted exponents")))
         return out
     confidence = float(ds.attrs.get("confidence", 0.95)) if "confidence" in ds.attrs else None
     for name in fitted:

@@ -24,11 +24,10 @@ def command(result, show_attrs):
         swept = [d for d in ds.dims if d in ds.coords and d not in ("time", "batch", "order",
                                                                     "lag", "aging_time")]
         click.echo("  sweep over: " + ", ".join(f"{d} ({ds.sizes[d]})" for d in swept))
-        if "peclet" in ds.dims:  # the same verdicts and counts that merge and sweep print
-            from ..presentation import scaling_lines
+        from ..presentation import scaling_lines
 
-            for line in scaling_lines(ds):
-                click.echo(line)
+        for line in scaling_lines(ds):  # the same counts and verdicts merge and sweep print
+            click.echo(line)
     elif "time" in ds.coords and "msd" in ds and isinstance(ds.attrs.get("kappa"),
                                                             (int, float)):
         print_summary(ds)

@@ -41,8 +41,7 @@ def command(folder, out, no_analysis, fit_peclet):
     if ds.attrs.get("sweep_warnings", "none") != "none":
         for message in ds.attrs["sweep_warnings"].split(" | "):
             click.secho(f"warning: {message}", fg="yellow", err=True)
-    if "peclet" in ds.dims:
-        print_scaling(ds)
+    print_scaling(ds)  # undetermined counts for every sweep; scaling fits over Pe
 
 
 def print_scaling(summary):

@@ -79,9 +79,7 @@ def command(study, out, backend, jobs, scheduler, workers, merged, no_merge, ret
         from .merge import print_scaling
 
         click.echo(f"wrote {report.merged}")
-        merged = open_result(report.merged)
-        if "peclet" in merged.dims:
-            print_scaling(merged)
+        print_scaling(open_result(report.merged))
     if report.failed:
         raise SystemExit(1)
 

@@ -210,6 +210,7 @@ def merge_sweep(directory, *, analyse: bool = True, verify: bool = True, scaling
         merged["point"].attrs = {"long_name": "index of the sweep point", "units": "1"}
     merged.attrs = _merged_attrs(manifest, list(loaded.values()), notes, __version__,
                                  CONVENTIONS)
+    _note_undetermined(merged)
     if scaling and "peclet" in merged.dims:
         from ..errors import InputDataError
         from .scaling import scaling_summary
@@ -224,7 +225,6 @@ def merge_sweep(directory, *, analyse: bool = True, verify: bool = True, scaling
             fitted = [str(n)[:-len("_exponent_lower")] for n in summary.data_vars
                       if str(n).endswith("_exponent_lower")]
             merged.attrs["scaling_fits"] = " ".join(fitted)
-            _note_undetermined(merged)
             if fitted:
                 merged.attrs["scaling_note"] = (
                     "fits against Pe of D/kappa and of crossover times: variables *_exponent "
