@@ -171,6 +171,11 @@ def test_summary_never_prints_a_diffusivity_that_is_not_claimed(small_run):
     assert "step check: passed" in core
     assert "mean velocity: u = 0.1 ± 0.001" in edge and "from the variance" in edge
     assert re.search(r"regimes: .+ \(final\)$", edge.splitlines()[1])
+    # a flow the cell-problem solver cannot be given: one line says why, nothing breaks
+    ds.attrs.pop("study_resolved")
+    lines = analysis_lines(ds, reference=True)
+    assert lines[-1].startswith("  (no cell-problem reference: ")
+    assert not any("Monte Carlo − cell problem" in line for line in lines)
 
 
 def test_one_late_slope_in_every_command(small_run, tmp_path):
