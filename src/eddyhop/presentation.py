@@ -377,6 +377,9 @@ def _drift_lines(part):
     if "mean_velocity_x" not in part.variables:
         return []
     moment = _scalar(part, "transport_moment")
+    if moment is None:  # stored as an attribute rather than a variable
+        moment = part.attrs.get("transport_moment", part["mean_velocity_x"].attrs.get(
+            "transport_moment"))
     u = _pm(_scalar(part, "mean_velocity_x"), _scalar(part, "mean_velocity_x_se"))
     v = _pm(_scalar(part, "mean_velocity_y"), _scalar(part, "mean_velocity_y_se"))
     text = f"  mean velocity: u = {u}, v = {v}"
