@@ -38,6 +38,8 @@ from IPython.display import display
 
 import eddyhop
 from eddyhop import plots
+from eddyhop.analysis.verdicts import flag_meaning
+from eddyhop.presentation import scaling_lines
 from eddyhop.sweep import run_sweep
 
 QUICK = os.environ.get("EDDYHOP_QUICK") == "1"
@@ -95,11 +97,11 @@ display(plots.deff_peclet_figure(merged))
 ratio = merged["D_eff"] / merged["kappa"]
 for pe, value, flag in zip(merged["peclet"].values, ratio.values,
                            merged["deff_converged"].values):
-    reached = {1: "yes", 2: "undetermined"}.get(int(flag), "no")
-    print(f"Pe = {pe:7.3g}: D_eff/κ = {value:7.3f}   diffusive regime reached: {reached}")
-if "D_eff_exponent" in merged:
-    print("fitted D_eff/κ ∝ Pe^β, β =", float(merged["D_eff_exponent"]),
-          "(1/2 expected at large Pe)")
+    verdict = flag_meaning(merged["deff_converged"], flag)  # the flag's own spelling
+    print(f"Pe = {pe:7.3g}: D_eff/κ = {value:7.3f}   deff_converged: {verdict}")
+# the fit with its verdict and how many of its points are undetermined (1/2 expected at
+# large Pe)
+print("\n".join(scaling_lines(merged)))
 
 # %% [markdown]
 # ## α(t, Pe)
