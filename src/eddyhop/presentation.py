@@ -17,6 +17,7 @@ undetermined are printed with that word beside them and never as a bare tight va
 
 from __future__ import annotations
 
+import contextvars
 import math
 import time
 import warnings
@@ -44,12 +45,19 @@ def _g(value, digits: int = 4) -> str:
     return f"{float(value):.{digits}g}" if _finite(value) else "n/a"
 
 
+# True while printing a noise-free (reference) result: no value has a sampling error, and the
+# header says so once instead of "(no error estimate)" beside every number.
+_NOISE_FREE = contextvars.ContextVar("noise_free", default=False)
+
+
 def _pm(value, se, digits: int = 4) -> str:
     """"v ± se" (se to 2 significant digits), or "v (no error estimate)"."""
     if not _finite(value):
         return "n/a"
     if _finite(se):
         return f"{_g(value, digits)} ± {_g(se, 2)}"
+    if _NOISE_FREE.get():
+        return _g(value, digits)
     return f"{_g(value, digits)} (no error estimate)"
 
 
@@ -87,7 +95,12 @@ def analysis_lines(ds, *, reference: bool = True) -> list[str]:
     cell = _cell_problem(ds) if reference and "D_eff" in ds.variables else None
     for label in starts:
         part = ds.sel(start=label) if multi and label is not None else ds
-        lines += _start_lines(ds, part, label, cell)
+        token = _NOISE_FREE.set("msd_se" not in part.variables
+                                and "batch_count" not in part.variables)
+        try:
+            lines += _start_lines(ds, part, label, cell)
+        finally:
+            _NOISE_FREE.reset(token)
     if cell is not None and cell.get("note"):
         lines.append(cell["note"])
     return lines
@@ -221,17 +234,21 @@ def _diffusivity_lines(ds, part, cell):
         return out  # no number: nothing is claimed
     tag = "  [undetermined]" if meaning == "undetermined" else ""
     components = []
+    intervals = False
     for name in ("D_xx", "D_yy", "D_xy"):
         value = _scalar(part, name)
         if value is None:
             continue
         low, high = _scalar(part, f"{name}_lower"), _scalar(part, f"{name}_upper")
         text = f"{name} = {_g(value)}"
-        text += f" [{_g(low)}, {_g(high)}]" if _finite(low) and _finite(high) else \
-            " (no error estimate)"
+        if _finite(low) and _finite(high):
+            text += f" [{_g(low)}, {_g(high)}]"
+            intervals = True
+        elif not _NOISE_FREE.get():
+            text += " (no error estimate)"
         components.append(text)
     confidence = ""
-    if "D_xx_lower" in ds.variables:
+    if "D_xx_lower" in ds.variables and intervals:
         long_name = str(ds["D_xx_lower"].attrs.get("long_name", ""))
         if "%" in long_name:
             confidence = " (" + long_name.split("the ", 1)[-1].split(" confidence")[0] + \
