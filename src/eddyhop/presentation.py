@@ -379,7 +379,8 @@ def _step_check_lines(part):
     elif meaning:
         text = meaning.upper() if meaning == "inconclusive" else meaning
         if meaning == "inconclusive":
-            text += ": the coupled coarse run cannot resolve the bias (too few particles)"
+            text += (": the measured bias is too uncertain to say whether it exceeds the "
+                     "statistical error")
     else:
         text = "unknown flag value"
     out = [f"  step check: {text}"]
