@@ -171,6 +171,16 @@ def run_warnings(ds) -> list[str]:
                             "to show linear growth over the D_eff fit window; use more "
                             "particles or a longer run before treating D_eff as a long-time "
                             "limit.")
+        for index in np.argwhere(values == 3) if values.ndim else \
+                ([()] if values == 3 else []):
+            index = tuple(index)
+            where = ", ".join(f"{dim} = {_short(ds[dim].values[i]) if dim in ds.coords else i}"
+                              for dim, i in zip(flags.dims, index)) or "this run"
+            messages.append(f"Bounded spread at {where}: the variance about the mean "
+                            "displacement does not grow at late times, so no effective "
+                            "diffusivity is claimed (D values are NaN). With molecular "
+                            "diffusion (kappa > 0) this is a plateau longer than the run; "
+                            "increase run.t_end.")
     elif "msd" in ds and "time" in ds.coords and set(ds["msd"].dims) <= {"time", "start"}:
         spread = (ds["var_x"] + ds["var_y"]) if "var_x" in ds and "var_y" in ds else ds["msd"]
         for start in _starts(ds):
@@ -402,7 +412,8 @@ def deff_html(ds) -> str:
         row.append(_number(d_eff / kappa) if d_eff is not None and kappa and kappa > 0 else "")
         converged = _scalar(part, "deff_converged")
         row.append("" if converged is None else {
-            1: "yes", 2: "<b>undetermined — too noisy to tell</b>"}.get(
+            1: "yes", 2: "<b>undetermined — too noisy to tell</b>",
+            3: "<b>no — bounded variance, no diffusivity</b>"}.get(
                 int(converged) if np.isfinite(converged) else 0, "<b>no — run too short</b>"))
         rows.append(row)
     units = _units(ds, "D_xx")

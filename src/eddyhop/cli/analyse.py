@@ -88,10 +88,19 @@ def print_analysis(ds) -> None:
                        f"{float(part['crossover_time_se'][i]):.2g}{shown_units} = "
                        f"{float(part['crossover_time_advective'][i]):.3g}/(Uk)")
         if "D_eff" in part:
-            flag = {0: "  (run too short: not yet diffusive)",
-                    2: "  (undetermined: too noisy to show the diffusive regime)"}.get(
-                int(part["deff_converged"].values), "")
-            click.echo(f"  D_xx = {float(part['D_xx']):.4g} [{float(part['D_xx_lower']):.4g}, "
-                       f"{float(part['D_xx_upper']):.4g}], D_yy = {float(part['D_yy']):.4g} "
-                       f"[{float(part['D_yy_lower']):.4g}, {float(part['D_yy_upper']):.4g}], "
-                       f"D_xy = {float(part['D_xy']):.3g}{flag}")
+            converged = int(part["deff_converged"].values)
+            if converged == 3:  # bounded variance: no diffusivity is claimed
+                click.echo("  no effective diffusivity: the displacement variance is bounded "
+                           "at late times (growth rate "
+                           f"{float(part['variance_growth_alpha']):.3g} ± "
+                           f"{float(part['variance_growth_alpha_se']):.2g}; deff_converged = 3)")
+            else:
+                flag = {0: "  (run too short: not yet diffusive)",
+                        2: "  (undetermined: too noisy to show the diffusive regime)"}.get(
+                    converged, "")
+                click.echo(f"  D_xx = {float(part['D_xx']):.4g} "
+                           f"[{float(part['D_xx_lower']):.4g}, "
+                           f"{float(part['D_xx_upper']):.4g}], D_yy = {float(part['D_yy']):.4g} "
+                           f"[{float(part['D_yy_lower']):.4g}, "
+                           f"{float(part['D_yy_upper']):.4g}], "
+                           f"D_xy = {float(part['D_xy']):.3g}{flag}")
