@@ -277,3 +277,23 @@ def test_golden_mean_drift_without_noise_is_bounded_not_ballistic():
     if _regime_labels_have_bounded():  # the significant-regimes work labels from this curve
         source = ds.isel(start=0) if "start" in ds.dims else ds
         assert _last_regime(source) not in ("ballistic", "super_ballistic")
+
+
+def test_summary_and_report_never_show_a_number_for_a_bounded_variance(capsys):
+    """Where D_eff is shown — the `eddyhop analyse` summary, the report's warnings and its
+    D_eff table — a bounded variance (Ornstein–Uhlenbeck positions, as above) reads as "no
+    diffusivity", never as a value."""
+    from eddyhop.cli.analyse import print_analysis
+    from eddyhop.report import run_warnings
+
+    rng = np.random.default_rng(25)
+    t = np.geomspace(0.1, 1000.0, 40)
+    ds = ensemble_dataset(*_ornstein_uhlenbeck(rng, 2000, t, 1.0, 1.0), t)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        out = analyse(ds)
+    assert int(out["deff_converged"]) == BOUNDED
+    print_analysis(out)
+    printed = capsys.readouterr().out
+    assert "no effective diffusivity" in printed and "D_xx =" not in printed
+    assert any(m.startswith("Bounded spread") for m in run_warnings(out))
