@@ -230,7 +230,9 @@ def effective_diffusivity(ds: xr.Dataset, *, fit_decades: float = DEFAULT_FIT_DE
     length_units = msd_units(ds)
     tunits = time_units(ds)
     d_units = per_time(length_units, tunits)
-    velocity_units = per_time(_root_units(length_units), tunits)
+    length = str(ds["mean_dx"].attrs.get("units", _root_units(length_units))) \
+        if "mean_dx" in ds.variables else _root_units(length_units)
+    velocity_units = per_time(length, tunits)
     scales = flow_scales(ds)
     kappa, peclet = scales["kappa"], scales["peclet"]
     not_converged, undetermined, bounded = [], [], []
