@@ -263,8 +263,9 @@ def test_deff_flag_is_undetermined_when_the_run_is_too_noisy():
     ratio, ratio_se = float(out["deff_slope_ratio"]), float(out["deff_slope_ratio_se"])
     assert 3 * ratio_se > 0.15 and abs(ratio - 1) <= 3 * ratio_se
     assert int(out["deff_converged"]) == 2
-    assert list(out["deff_converged"].attrs["flag_values"]) == [0, 1, 2]
-    assert out["deff_converged"].attrs["flag_meanings"] == "too_short diffusive undetermined"
+    assert list(out["deff_converged"].attrs["flag_values"]) == [0, 1, 2, 3]
+    assert out["deff_converged"].attrs["flag_meanings"] == \
+        "too_short diffusive undetermined bounded"
     dx, dy = brownian_paths(rng, 300, t, 0.01, velocity_spread=1.0)
     with pytest.warns(UserWarning, match="too short"):
         out = effective_diffusivity(ensemble_dataset(dx, dy, t))

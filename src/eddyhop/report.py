@@ -165,8 +165,11 @@ def run_warnings(ds) -> list[str]:
                             "more particles or a longer run before treating D_eff as a "
                             "long-time limit.")
         for index in places("bounded"):
-            messages.append(f"Bounded spread at {where(index)}: the variance stops growing, "
-                            "so no effective diffusivity is claimed.")
+            messages.append(f"Bounded spread at {where(index)}: the variance about the mean "
+                            "displacement does not grow at late times, so no effective "
+                            "diffusivity is claimed (D values are NaN). With molecular "
+                            "diffusion (kappa > 0) this is a plateau longer than the run; "
+                            "increase run.t_end.")
     elif "msd" in ds and "time" in ds.coords and set(ds["msd"].dims) <= {"time", "start"}:
         from .presentation import late_slopes
 

@@ -17,7 +17,7 @@ import xarray as xr
 from ._common import AnalysisOptionError, merge_into, require
 from .aging import aging
 from .crossovers import crossover_times
-from .deff import ShortRunWarning, effective_diffusivity
+from .deff import BoundedVarianceWarning, ShortRunWarning, effective_diffusivity
 from .exponents import local_exponent
 from .hopping import fit_tails, hopping
 from .moments import displacement_pdf, moment_spectrum
@@ -77,6 +77,7 @@ def analyse(ds: xr.Dataset, **options) -> xr.Dataset:
 
 __all__ = [
     "AnalysisOptionError",
+    "BoundedVarianceWarning",
     "ShortRunWarning",
     "aging",
     "analyse",
