@@ -45,29 +45,30 @@ import math
 import numpy as np
 import xarray as xr
 
-from ._common import flow_scales, per_start, require, var
+from ._common import check_range, flow_scales, per_start, require, var
 from ._stats import jackknife_se
-from .exponents import DEFAULT_WINDOW
-from .regimes import DEFAULT_MIN_POINTS, DEFAULT_TOLERANCE, LABELS, check_options, regime_table
+from .exponents import DEFAULT_WINDOW, alpha_with_replicates
+from .regimes import (
+    DEFAULT_BOUNDED_TOLERANCE,
+    DEFAULT_CONFIDENCE,
+    DEFAULT_MIN_POINTS,
+    DEFAULT_MIN_SPAN,
+    DEFAULT_MISFIT_FLOOR,
+    DEFAULT_TOLERANCE,
+    check_options,
+    regime_segments,
+    representative_exponent,
+)
 
 
-def class_edges(ballistic_tolerance: float, diffusive_tolerance: float):
-    """(lower, upper) α edge of every class code 0…4 under :func:`regimes.classify`."""
-    b, d = ballistic_tolerance, diffusive_tolerance
-    if 1 + d < 2 - b:
-        diffusive_top, ballistic_bottom = 1 + d, 2 - b
-    else:  # no superdiffusive band: the nearer reference wins inside the overlap
-        diffusive_top = ballistic_bottom = min(max(1.5, 2 - b), 1 + d)
-    return ((-math.inf, 1 - d), (1 - d, diffusive_top), (diffusive_top, ballistic_bottom),
-            (ballistic_bottom, 2 + b), (2 + b, math.inf))
-
-
-def threshold(from_code: int, to_code: int, ballistic_tolerance: float,
-              diffusive_tolerance: float) -> float:
-    """The level α* separating two classes: midpoint of the gap between them."""
-    edges = class_edges(ballistic_tolerance, diffusive_tolerance)
-    low, high = sorted((from_code, to_code))
-    return 0.5 * (edges[low][1] + edges[high][0])
+def threshold(left, right, options) -> float:
+    """The level α* between two regimes: the mean of their classes' representative
+    exponents (:func:`eddyhop.analysis.regimes.representative_exponent`), or of their fitted
+    exponents when either class is undetermined."""
+    pair = [representative_exponent(s.code, options) for s in (left, right)]
+    if not all(math.isfinite(v) for v in pair):
+        pair = [left.alpha, right.alpha]
+    return 0.5 * (pair[0] + pair[1])
 
 
 def crossings(lt, alpha, level, upward, first, last):
@@ -138,10 +139,10 @@ def refine(lt, alpha, level, upward, centre, half, first, last, iterations=50):
     return np.where(ok, c, np.nan)
 
 
-def _crossover(lt, alpha, replicates, left, right, b, d, half):
+def _crossover(lt, alpha, replicates, left, right, options, half):
     """(ln t_c, method, jackknife se of ln t_c, missing replicates, α*) of one crossover."""
-    level = threshold(left.code, right.code, b, d)
-    upward = right.code > left.code
+    level = threshold(left, right, options)
+    upward = right.alpha > left.alpha
     boundary = 0.5 * (lt[left.last] + lt[right.first])
     values, valid = crossings(lt, alpha, level, upward, left.first, right.last)
     first_pass = float(nearest(values, valid, boundary))
@@ -163,28 +164,36 @@ def _crossover(lt, alpha, replicates, left, right, b, d, half):
 def crossover_times(ds: xr.Dataset, *, window: float = DEFAULT_WINDOW,
                     ballistic_tolerance: float = DEFAULT_TOLERANCE,
                     diffusive_tolerance: float = DEFAULT_TOLERANCE,
-                    min_points: int = DEFAULT_MIN_POINTS) -> xr.Dataset:
-    """Crossover times on a ``crossover`` dimension (one fewer than the regimes)."""
-    b, d, m = check_options(ballistic_tolerance, diffusive_tolerance, min_points)
+                    bounded_tolerance: float = DEFAULT_BOUNDED_TOLERANCE,
+                    min_span: float = DEFAULT_MIN_SPAN, min_points: int = DEFAULT_MIN_POINTS,
+                    misfit_floor: float = DEFAULT_MISFIT_FLOOR,
+                    confidence: float = DEFAULT_CONFIDENCE) -> xr.Dataset:
+    """Crossover times on a ``crossover`` dimension (one fewer than the regimes); the regime
+    options are those of :func:`eddyhop.analysis.regimes.regimes`, ``window`` (decades)
+    that of the local exponent α(t) whose crossing locates each crossover."""
+    options = check_options(ballistic_tolerance, diffusive_tolerance, bounded_tolerance,
+                            min_span, min_points, misfit_floor, confidence)
+    window = check_range("window", window, 0.05, 3.0)
     require(ds, ["time", "msd"], "crossover_times")
     units = str(ds["time"].attrs.get("units", "1"))
     scales = flow_scales(ds)
 
     def one(part):
         t = part["time"].values
-        segments, alpha, replicates = regime_table(part, window, b, d, m)
+        segments, _, _ = regime_segments(part, options)
+        alpha, replicates, _ = alpha_with_replicates(part, "total", window)
         with np.errstate(divide="ignore", invalid="ignore"):
             lt = np.log(t)
         half = window * math.log(10.0)
         values, errors, methods, froms, tos, missing, levels = [], [], [], [], [], [], []
         for left, right in itertools.pairwise(segments):
             value, method, spread, lost, level = _crossover(lt, alpha, replicates, left,
-                                                            right, b, d, half)
+                                                            right, options, half)
             values.append(math.exp(value))
             errors.append(math.exp(value) * spread)
             methods.append(method)
-            froms.append(LABELS[left.code])
-            tos.append(LABELS[right.code])
+            froms.append(left.label)
+            tos.append(right.label)
             missing.append(lost)
             levels.append(level)
         values = np.array(values, dtype=np.float64)

@@ -11,14 +11,12 @@ import math
 
 import numpy as np
 
-# Light tints, one per regime class (pale versions of the Okabe–Ito colours).
-TINTS = {
-    "subdiffusive": "#cfe3f3",
-    "diffusive": "#cdeee3",
-    "superdiffusive": "#fbe6c2",
-    "ballistic": "#f6d3c0",
-    "super_ballistic": "#eedbe7",
-}
+from ..analysis.regimes import LABELS
+
+# Light tints, one per regime class in the order of LABELS (the one spelling of the labels):
+# pale versions of the Okabe–Ito colours, grey for undetermined.
+TINTS = dict(zip(LABELS, ("#e4e4f7", "#cfe3f3", "#cdeee3", "#fbe6c2", "#f6d3c0", "#eedbe7",
+                          "#e6e6e6"), strict=True))
 REGIME_VARIABLES = ("regime_label", "regime_start", "regime_end")
 
 
