@@ -177,6 +177,20 @@ def test_labels_come_from_the_confidence_interval():
                            "ballistic", "super_ballistic"}
 
 
+def test_an_intermediate_power_law_is_a_regime_but_a_passage_is_not():
+    """A sharp broken power law t → t^1.5 (two decades) → t² keeps its superdiffusive middle
+    regime: no crossover A t + B t² describes two decades of t^1.5.  The smooth sum
+    t + t² (α passing 1.5 on its way) has no such regime."""
+    knee1, knee2 = 0.1, 10.0
+    broken = np.where(TIMES < knee1, TIMES / knee1,
+                      np.where(TIMES < knee2, (TIMES / knee1) ** 1.5,
+                               (knee2 / knee1) ** 1.5 * (TIMES / knee2) ** 2))
+    labels, table = _table(_exact_dataset(broken))
+    assert labels == ["diffusive", "superdiffusive", "ballistic"]
+    assert float(table["regime_alpha"][1]) == pytest.approx(1.5, abs=0.05)
+    assert _table(_exact_dataset(TIMES + TIMES**2))[0] == ["diffusive", "ballistic"]
+
+
 # ---- the cellular flow at Pe = 100: Monte Carlo against the noise-free moment evolution ----
 def _cellular_study(particles, starts):
     """The README worked example (Pe = 100, dt = 0.05, t_end = 1500, 90 output times,

@@ -42,9 +42,15 @@ the one spelling of the labels for the whole package (index = ``code``).
 Regimes and crossovers.  Adjacent segments with the same label are one regime (their
 breakpoint is removed and the fit repeated).  An interior segment whose exponent lies
 strictly between its neighbours' is the MSD passing *through* a class on its way from one
-regime to the next (α crossing 1 between ballistic and trapped spreading) unless the
-power law holds on both halves of it: the exponents fitted (same covariance) to its first
-and to its second half in ln t must each get the segment's own label.  A passage is a
+regime to the next (α crossing 1 between ballistic and trapped spreading) unless a power
+law of its own describes it clearly better than a smooth crossover between its neighbours'
+power laws, MSD = A t^p + B t^q (p, q the neighbours' exponents, A, B fitted): the
+crossover's χ² over the segment (same covariance) must exceed the power law's by more than
+ln n, one BIC parameter's worth (both models have two free parameters) — and its exponent
+does not drift: the exponent fitted to its second half in ln t may not differ from that of
+its first half in the direction of the passage by more than z times their combined
+standard error (an exponential approach, e.g. to a bounded moment, is sharper than any
+sum of two power laws and is caught by this drift).  A passage is a
 crossover interval, not a regime, and is left out of the table (the crossover between its
 neighbours is located inside it, :mod:`eddyhop.analysis.crossovers`).
 
@@ -164,27 +170,28 @@ def label_code(alpha: float, lower: float, upper: float, options: Options) -> in
 
 # ---- generalised least squares under Σ = Ĉ + f² I ---------------------------------------------
 class _Whitener:
-    """Solves with the Cholesky factor of Σ = Ĉ + f² I over the selected output times."""
+    """Σ = Ĉ + f² I over the selected output times and the whitened (L⁻¹·, Σ = LLᵀ) data,
+    columns 1 and x, and hinge (x − x_c)₊ of every candidate breakpoint c, computed once."""
 
-    def __init__(self, y, replicates, floor):
+    def __init__(self, x, y, replicates, floor):
+        from scipy.linalg import solve_triangular
+
         n = y.size
         cov = np.zeros((n, n))
         if replicates is not None:
             b = replicates.shape[0]
             deviation = replicates - replicates.mean(axis=0)
             cov = (b - 1) / b * deviation.T @ deviation
-        self.factor = np.linalg.cholesky(cov + floor**2 * np.eye(n))
         self.sigma = cov + floor**2 * np.eye(n)
+        factor = np.linalg.cholesky(self.sigma)
+        self.solve = lambda a: solve_triangular(factor, a, lower=True)
+        self.base = self.solve(np.stack([np.ones(n), x], axis=1))
+        self.hinges = self.solve(np.maximum(x[:, None] - x[None, :], 0.0))
+        self.y = self.solve(y)
 
-    def __call__(self, a):
-        from scipy.linalg import solve_triangular
-
-        return solve_triangular(self.factor, a, lower=True)
-
-
-def _design(x, breaks):
-    """Columns 1, x and the hinges (x − x_c)₊ of a continuous broken line."""
-    return np.stack([np.ones_like(x), x] + [np.maximum(x - x[c], 0.0) for c in breaks], axis=1)
+    def design(self, breaks):
+        """Whitened design of the continuous broken line with the given breakpoints."""
+        return np.concatenate([self.base, self.hinges[:, list(breaks)]], axis=1)
 
 
 def _residual_norm(xw, yw):
@@ -204,14 +211,14 @@ def _allowed(x, breaks, min_ln, min_points):
     return ok
 
 
-def _best_addition(x, whiten, yw, breaks, min_ln, min_points):
+def _best_addition(x, whiten, breaks, min_ln, min_points):
     """(index, χ²) of the single breakpoint whose addition lowers χ² most, or (None, inf)."""
     candidates = np.flatnonzero(_allowed(x, breaks, min_ln, min_points))
     if candidates.size == 0:
         return None, math.inf
-    q, _ = np.linalg.qr(whiten(_design(x, breaks)))
-    residual = yw - q @ (q.T @ yw)
-    hinges = whiten(np.maximum(x[:, None] - x[candidates][None, :], 0.0))
+    q, _ = np.linalg.qr(whiten.design(breaks))
+    residual = whiten.y - q @ (q.T @ whiten.y)
+    hinges = whiten.hinges[:, candidates]
     hinges = hinges - q @ (q.T @ hinges)
     norm = (hinges * hinges).sum(axis=0)
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -220,15 +227,15 @@ def _best_addition(x, whiten, yw, breaks, min_ln, min_points):
     return int(candidates[best]), float(residual @ residual - gain[best])
 
 
-def _refine(x, whiten, yw, breaks, min_ln, min_points, passes=10):
+def _refine(x, whiten, breaks, min_ln, min_points, passes=10):
     """Move each breakpoint to its best position given the others, until none moves."""
     breaks = sorted(breaks)
-    current = _residual_norm(whiten(_design(x, breaks)), yw)
+    current = _residual_norm(whiten.design(breaks), whiten.y)
     for _ in range(passes):
         moved = False
         for j in range(len(breaks)):
             others = breaks[:j] + breaks[j + 1:]
-            index, cost = _best_addition(x, whiten, yw, others, min_ln, min_points)
+            index, cost = _best_addition(x, whiten, others, min_ln, min_points)
             if index is not None and index != breaks[j] and cost < current * (1 - 1e-12):
                 breaks = sorted([*others, index])
                 current = cost
@@ -238,17 +245,17 @@ def _refine(x, whiten, yw, breaks, min_ln, min_points, passes=10):
     return breaks, current
 
 
-def choose_breakpoints(x, whiten, yw, min_ln, min_points):
+def choose_breakpoints(x, whiten, min_ln, min_points):
     """(breakpoint indices, table of (k, χ², BIC)) minimising BIC over k = 0 … 12."""
     n = x.size
     breaks: list[int] = []
-    table = [(0, _residual_norm(whiten(_design(x, breaks)), yw))]
+    table = [(0, _residual_norm(whiten.design(breaks), whiten.y))]
     fits = {0: []}
     for k in range(1, MAX_BREAKPOINTS + 1):
-        index, _ = _best_addition(x, whiten, yw, breaks, min_ln, min_points)
+        index, _ = _best_addition(x, whiten, breaks, min_ln, min_points)
         if index is None:
             break
-        breaks, chi2 = _refine(x, whiten, yw, [*breaks, index], min_ln, min_points)
+        breaks, chi2 = _refine(x, whiten, [*breaks, index], min_ln, min_points)
         table.append((k, chi2))
         fits[k] = breaks
     scored = [(k, chi2, chi2 + (2 + 2 * k) * math.log(n)) for k, chi2 in table]
@@ -256,18 +263,18 @@ def choose_breakpoints(x, whiten, yw, min_ln, min_points):
     return list(fits[best]), scored
 
 
-def _broken_line(x, whiten, y, replicates, breaks):
+def _broken_line(whiten, replicates, breaks):
     """Exponents of the segments of the GLS broken line (k + 1,), their GLS standard errors
     under Σ, and their delete-one-batch replicates (B, k + 1) or None."""
-    xw = whiten(_design(x, breaks))
+    xw = whiten.design(breaks)
     pinv = np.linalg.pinv(xw)
     cumulative = np.tril(np.ones((len(breaks) + 1,) * 2))
-    slopes = cumulative @ (pinv @ whiten(y))[1:]
+    slopes = cumulative @ (pinv @ whiten.y)[1:]
     covariance = np.linalg.inv(xw.T @ xw)[1:, 1:]
     se = np.sqrt(np.diag(cumulative @ covariance @ cumulative.T))
     reps = None
     if replicates is not None:
-        reps = (cumulative @ (pinv @ whiten(replicates.T))[1:]).T
+        reps = (cumulative @ (pinv @ whiten.solve(replicates.T))[1:]).T
     return slopes, se, reps
 
 
@@ -292,6 +299,34 @@ def _halves(x, sigma, y, first, last, min_points):
     if early.size < max(min_points, 2) or late.size < max(min_points, 2):
         return None
     return _line(x, sigma, y, early), _line(x, sigma, y, late)
+
+
+def _passage(x, sigma, y, first, last, p, q) -> bool:
+    """True when the samples first…last are explained about as well by a smooth crossover
+    between the neighbouring power laws, MSD = A t^p + B t^q (A, B ≥ 0 free; p, q the
+    neighbours' exponents), as by a power law of their own: χ²(crossover) − χ²(power law)
+    ≤ ln n under the covariance Σ restricted to these samples (both models have two free
+    parameters; a regime must win by one BIC parameter's worth, ln n, n = all output
+    times)."""
+    from scipy.linalg import solve_triangular
+    from scipy.optimize import least_squares
+
+    index = np.arange(first, last + 1)
+    factor = np.linalg.cholesky(sigma[np.ix_(index, index)])
+    xs, ys = x[index], y[index]
+    line = solve_triangular(factor, np.stack([np.ones(index.size), xs], axis=1), lower=True)
+    target = solve_triangular(factor, ys, lower=True)
+    power_law = _residual_norm(line, target)
+
+    def residual(params):
+        low, high = params[0] + p * xs, params[1] + q * xs  # ln A t^p, ln B t^q
+        top = np.maximum(low, high)
+        model = top + np.log(np.exp(low - top) + np.exp(high - top))
+        return solve_triangular(factor, model - ys, lower=True)
+
+    start = np.array([ys[0] - p * xs[0], ys[-1] - q * xs[-1]])
+    crossover = least_squares(residual, start, method="lm").fun
+    return float(crossover @ crossover) - power_law <= math.log(y.size)
 
 
 @dataclass(frozen=True)
@@ -338,14 +373,14 @@ def segment_curve(t, values, replicates, options: Options):
     reps = None if replicates is None else np.log(replicates[:, index])
     if reps is not None and reps.shape[0] < 2:
         reps = None
-    whiten = _Whitener(y, reps, options.misfit_floor)
+    whiten = _Whitener(x, y, reps, options.misfit_floor)
     min_ln = options.min_span * math.log(10.0)
-    breaks, table = choose_breakpoints(x, whiten, whiten(y), min_ln, options.min_points)
+    breaks, table = choose_breakpoints(x, whiten, min_ln, options.min_points)
     info = {"breakpoints_bic": len(breaks), "bic": table}
     z = options.z
 
     def fitted(breaks):
-        slopes, model_se, slope_reps = _broken_line(x, whiten, y, reps, breaks)
+        slopes, model_se, slope_reps = _broken_line(whiten, reps, breaks)
         codes = [label_code(a, a - z * s, a + z * s, options) for a, s in zip(slopes, model_se)]
         return slopes, model_se, slope_reps, codes
 
@@ -367,9 +402,16 @@ def segment_curve(t, values, replicates, options: Options):
         falling = slopes[j - 1] > slopes[j] > slopes[j + 1]
         if not (rising or falling):
             continue
-        halves = _halves(x, whiten.sigma, y, *bounds[j], options.min_points)
-        if halves is None or any(label_code(a, a - z * s, a + z * s, options) != codes[j]
-                                 for a, s in halves):
+        first, last = bounds[j]
+        if _passage(x, whiten.sigma, y, first, last, slopes[j - 1], slopes[j + 1]):
+            passing.add(j)
+            continue
+        halves = _halves(x, whiten.sigma, y, first, last, options.min_points)
+        if halves is None:
+            passing.add(j)
+            continue
+        (early, early_se), (late, late_se) = halves
+        if (late - early if rising else early - late) > z * math.hypot(early_se, late_se):
             passing.add(j)
     out = []
     for j, (first, last) in enumerate(bounds):
