@@ -33,7 +33,9 @@ floor).  Reference exponents 0 (the moment stays bounded), 1 (diffusive) and 2 (
 have bands of half-width ``bounded_tolerance``, ``diffusive_tolerance`` and
 ``ballistic_tolerance`` (0.2 each; the bounded band also takes every α below it: a
 shrinking moment is bounded).  A segment whose interval meets exactly one band gets that
-reference label (the data are consistent with it); an interval meeting two bands is
+reference label (the data are consistent with it) — except ``bounded``, the claim that the
+moment stops growing, which needs the whole interval within its band (an interval
+straddling its top is ``subdiffusive``); an interval meeting two bands is
 ``undetermined``; an interval meeting none lies wholly in a gap between bands and gets the
 gap's anomalous label: ``subdiffusive`` (between bounded and diffusive, trapped),
 ``superdiffusive`` or ``super_ballistic`` (wholly above 2 + tolerance).  :data:`LABELS` is
@@ -161,10 +163,15 @@ def label_code(alpha: float, lower: float, upper: float, options: Options) -> in
     edges = class_edges(options)
     met = [code for code in (CODES["bounded"], CODES["diffusive"], CODES["ballistic"])
            if upper >= edges[code][0] and lower <= edges[code][1]]
-    if len(met) == 1:
-        return met[0]
     if len(met) > 1:
         return UNDETERMINED
+    if met == [CODES["bounded"]]:
+        # bounded is the claim that the moment stops growing: the whole interval must lie
+        # at or below the band's top; an interval straddling it is (weakly) subdiffusive
+        return CODES["bounded"] if upper <= edges[CODES["bounded"]][1] else \
+            CODES["subdiffusive"]
+    if met:
+        return met[0]
     return next(code for code, (low, high) in enumerate(edges) if low < alpha <= high)
 
 
