@@ -1,26 +1,27 @@
 """Crossover times between successive regimes, with jackknife errors and in natural units.
 
-Definition: the crossover between regimes i and i+1 is the time where the local exponent
-α(t) crosses the level α* that separates the two regimes' classes: the midpoint of the gap
-between the upper edge of the lower class and the lower edge of the higher one (class edges
-1 − d, 1 + d, 2 − b, 2 + b of :mod:`eddyhop.analysis.regimes`; adjacent classes share an
-edge, which is then α*).  E.g. diffusive → superdiffusive at α* = 1 + d, superdiffusive →
-ballistic at 2 − b, and diffusive → ballistic at α* = (1 + d + 2 − b)/2 = 1.5 for b = d (the
-superdiffusive band absent or merged away).  For MSD = A t^p + B t^q the exponent is
-α = (pA t^p + qB t^q)/(A t^p + B t^q), so α = (p + q)/2 exactly where A t^p = B t^q: at the
-midpoint of two reference exponents (diffusive 1, ballistic 2) the crossing is the
-intersection of the asymptotes (t* = 4D/A for A t² meeting 4Dt).
+Definition: the crossover between regimes i and i+1 (:mod:`eddyhop.analysis.regimes`) is
+the time where the local exponent α(t) crosses the level α* = (a_i + a_{i+1})/2, the mean
+of the two classes' representative exponents
+(:func:`~eddyhop.analysis.regimes.representative_exponent`: 0 bounded, 0.5 subdiffusive,
+1 diffusive, 1.5 superdiffusive, 2 ballistic, 2.4 super-ballistic with the default
+tolerances; the regimes' fitted exponents when a class is undetermined).  The level
+depends only on the labels, so an ensemble and the exact curve with the same regimes use the
+same α*.  For MSD = A t^p + B t^q the exponent is α = (pA t^p + qB t^q)/(A t^p + B t^q), so
+α = (p + q)/2 exactly where A t^p = B t^q: between reference exponents the crossing is the
+intersection of the asymptotes (t* = 4D/A for A t² meeting 4Dt, ballistic ↔ diffusive at
+α* = 1.5).
 
-Location: a first crossing of α* in the direction from the earlier class to the later one is
-found by linear interpolation between the bracketing samples, searched between the first
-sample of regime i and the last of regime i+1 (nearest to the regime boundary if there are
-several).  It is then refined to the fixed point c of "fit the line α ≈ a₀ + a₁ (ln t − c)
-by tricube-weighted least squares over ±``window`` decades around c, and move c to where the
-line reaches α*", which smooths the noise of α over the fit and depends smoothly on the data.
-If α never crosses α* there (possible only when undefined α was merged into a regime) or the
-refinement leaves the interval, the geometric mean of the last sample of i and the first of
-i+1 is used (``crossover_method`` = "boundary"; its error is half the log spacing of the two
-samples).
+Location: a crossing of α* in the direction from the earlier regime's exponent to the later
+one's is found by linear interpolation between the bracketing samples, searched between the
+first sample of regime i and the last of regime i+1 — which includes any passage between
+them that was not a regime — nearest to the middle of the gap between the two regimes if
+there are several.  It is then refined to the fixed point c of "fit the line
+α ≈ a₀ + a₁ (ln t − c) by tricube-weighted least squares over ±``window`` decades around c,
+and move c to where the line reaches α*", which smooths the noise of α over the fit and
+depends smoothly on the data.  If α never crosses α* there or the refinement leaves the
+interval, the geometric mean of the last sample of i and the first of i+1 is used
+(``crossover_method`` = "boundary"; its error is half the log spacing of the two samples).
 
 Uncertainty: the delete-one-batch jackknife of the whole estimator.  On every replicate (the
 pooled MSD of all batches but one) α(t) is recomputed and the same fixed point is iterated
@@ -202,16 +203,16 @@ def crossover_times(ds: xr.Dataset, *, window: float = DEFAULT_WINDOW,
         out = {
             "crossover_time": var(dims, values, "crossover time between successive regimes",
                                   units, method="time where the local exponent alpha crosses "
-                                  "the level between the two regimes' classes (linear "
-                                  "interpolation in ln t)"),
+                                  "alpha* between the two regimes (interpolated in ln t, "
+                                  "refined by a local line fit)"),
             "crossover_time_se": var(dims, errors, "standard error of crossover_time "
                                      "(jackknife over particle batches with alpha and the "
                                      "crossing recomputed on every replicate; NaN without "
                                      "batches or when a replicate has no crossing)", units),
             "crossover_alpha_level": var(dims, np.array(levels, dtype=np.float64),
                                          "local exponent alpha* whose crossing defines the "
-                                         "crossover (midpoint of the gap between the two "
-                                         "regimes' classes)", "1"),
+                                         "crossover (mean of the two regimes' "
+                                         "representative exponents)", "1"),
             "crossover_missing_replicates": var(dims, np.array(missing, dtype=np.int64),
                                                 "delete-one-batch replicates in which alpha "
                                                 "does not cross alpha* between the two "
