@@ -21,7 +21,9 @@ there are several.  It is then refined to the fixed point c of "fit the line
 and move c to where the line reaches α*", which smooths the noise of α over the fit and
 depends smoothly on the data.  If α never crosses α* there or the refinement leaves the
 interval, the geometric mean of the last sample of i and the first of i+1 is used
-(``crossover_method`` = "boundary"; its error is half the log spacing of the two samples).
+(``crossover_method`` = "boundary"): the data do not locate the crossover, and its standard
+error is NaN (undetermined) — a sampling-resolution error bar would understate it when α
+hovers near α* (e.g. a regime whose early exponent sits close to the level).
 
 Uncertainty: the delete-one-batch jackknife of the whole estimator.  On every replicate (the
 pooled MSD of all batches but one) α(t) is recomputed and the same fixed point is iterated
@@ -147,8 +149,9 @@ def _crossover(lt, alpha, replicates, left, right, options, half):
     boundary = 0.5 * (lt[left.last] + lt[right.first])
     values, valid = crossings(lt, alpha, level, upward, left.first, right.last)
     first_pass = float(nearest(values, valid, boundary))
-    # a "boundary" crossover is only known to the sampling resolution
-    resolution = 0.5 * (lt[right.first] - lt[left.last])
+    # a "boundary" crossover is not located by the data (α does not settle on a crossing of
+    # α* there): its value is the regime boundary and its standard error undetermined
+    resolution = np.nan
     if not np.isfinite(first_pass):
         return boundary, "boundary", resolution, 0, level
     value = float(refine(lt, alpha, level, upward, first_pass, half, left.first, right.last))
@@ -208,7 +211,8 @@ def crossover_times(ds: xr.Dataset, *, window: float = DEFAULT_WINDOW,
             "crossover_time_se": var(dims, errors, "standard error of crossover_time "
                                      "(jackknife over particle batches with alpha and the "
                                      "crossing recomputed on every replicate; NaN without "
-                                     "batches or when a replicate has no crossing)", units),
+                                     "batches, when a replicate has no crossing, or for a "
+                                     "boundary crossover)", units),
             "crossover_alpha_level": var(dims, np.array(levels, dtype=np.float64),
                                          "local exponent alpha* whose crossing defines the "
                                          "crossover (mean of the two regimes' "

@@ -349,7 +349,6 @@ class Segment:
     lower: float = math.nan
     upper: float = math.nan
     final: bool = False
-    alpha_replicates: object = None  # (B,) delete-one-batch exponents, or None
 
     @property
     def size(self) -> int:
@@ -427,8 +426,7 @@ def segment_curve(t, values, replicates, options: Options):
         se = math.nan if slope_reps is None else float(jackknife_se(slope_reps[:, j]))
         out.append(Segment(codes[j], int(index[first]), int(index[last]), float(slopes[j]),
                            se, float(slopes[j] - z * model_se[j]),
-                           float(slopes[j] + z * model_se[j]), False,
-                           None if slope_reps is None else slope_reps[:, j].copy()))
+                           float(slopes[j] + z * model_se[j])))
     if out and out[-1].last == index[-1]:
         first = int(np.searchsorted(index, out[-1].first))
         halves = _halves(x, whiten.sigma, y, first, x.size - 1, options.min_points)
@@ -438,7 +436,7 @@ def segment_curve(t, values, replicates, options: Options):
                     out[-1].code:
                 last = out[-1]
                 out[-1] = Segment(last.code, last.first, last.last, last.alpha, last.alpha_se,
-                                  last.lower, last.upper, True, last.alpha_replicates)
+                                  last.lower, last.upper, True)
     return out, info
 
 
