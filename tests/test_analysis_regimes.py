@@ -280,3 +280,13 @@ def test_readme_worked_example_prints_its_regime_sequence():
         assert not part["regime_final"].values[: n - 1].any()
     assert sequences == {"edges": ["superdiffusive", "ballistic", "subdiffusive", "diffusive"],
                          "cores": ["diffusive", "ballistic", "diffusive"]}
+
+
+def test_bad_regime_options_name_the_option_and_the_range():
+    from eddyhop.analysis import AnalysisOptionError
+
+    exact = _exact_dataset(TIMES)
+    for name, value in (("min_span", 0.0), ("misfit_floor", -1.0), ("bounded_tolerance", 0.7),
+                        ("confidence", 1.0)):
+        with pytest.raises(AnalysisOptionError, match=f"option {name} = .* is outside"):
+            regimes(exact, **{name: value})
