@@ -81,6 +81,11 @@ STRIP_HEIGHT = 0.035  # axes fraction per start
 STRIP_GAP = 0.01
 
 
+def strips_top(count: int) -> float:
+    """Axes fraction just above ``count`` strips (where a legend may start)."""
+    return STRIP_GAP + count * (STRIP_HEIGHT + STRIP_GAP)
+
+
 def strips(ax, ds, starts, colours):
     """Each start's regimes as a strip at the bottom of ``ax`` (one strip per start, in the
     order of ``starts``, edged in the matching colour of ``colours``) and its crossover times
@@ -102,6 +107,10 @@ def strips(ax, ds, starts, colours):
             seen.add(name)
             band.set_gid(f"regime_{start}_{index}_{name}")
             bands.append(band)
+        if start is not None:
+            ax.text(0.004, 0.5 * (bottom + top), str(start), transform=ax.transAxes,
+                    fontsize=6, color=colour, fontweight="bold", va="center", ha="left",
+                    zorder=4, gid=f"regime_strip_label_{start}")
         for index, value in enumerate(crossovers_of(ds, start)):
             line = ax.axvline(value, ymin=bottom, ymax=top, color="#444444", lw=1.0,
                               zorder=3, label="crossover time" if row == 0 and index == 0

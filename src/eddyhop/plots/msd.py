@@ -47,8 +47,11 @@ def _regime_note(ax, ds, start, where="lower right", starts=None):
             heading = "regimes (strip per start)"
         else:
             heading = f"regimes (start {start_name(ds, start)})"
-        legend = ax.legend(handles=handles, loc=where, fontsize=7, title=heading,
-                           title_fontsize=7, framealpha=0.9)
+        placement = {"loc": where}
+        if start is None and starts is not None:  # keep the strips visible
+            placement["bbox_to_anchor"] = (1.0, _regimes.strips_top(len(starts)))
+        legend = ax.legend(handles=handles, fontsize=7, title=heading, title_fontsize=7,
+                           framealpha=0.9, **placement)
         ax.add_artist(legend)
     return bands
 
