@@ -169,6 +169,7 @@ def _exact_crossovers(msd, t, **options):
         out["crossover_from"].values, out["crossover_to"].values, out["crossover_time"].values)}
 
 
+@pytest.mark.slow  # 200 ensembles, each segmented by BIC: ~30-50 s
 def test_crossover_jackknife_is_calibrated():
     """Crossover times of 200 independent ensembles (2000 paths each, seeds 10000…10199) of
     X = v t + B(t) (MSD = 2σ²t² + 4Dt, D = σ = 0.5, t* = 4) with the default options: one
