@@ -131,13 +131,18 @@ def test_regimes_and_crossover_of_a_diffusive_to_ballistic_ensemble():
     assert list(table["regime_label"].values) == ["diffusive", "ballistic"]
     # regime means against the exact α = (2at + b)/(at + b), a = 2σ², b = 4D, averaged over
     # the same samples; tolerance 4 jackknife errors + 0.02 (estimator bias, see above)
+    # each regime's fitted power-law exponent against the exact α = (2at + b)/(at + b),
+    # a = 2σ², b = 4D, over the same samples: a least-squares slope of ln MSD on ln t lies
+    # within the range of the exact local slope over the fitted interval; tolerance 4
+    # jackknife errors
     a, b = 2 * spread**2, 4 * diffusivity
     exact = (2 * a * LOG_T + b) / (a * LOG_T + b)
     for i in range(2):
         inside = (LOG_T >= float(table["regime_start"][i])) & (
             LOG_T <= float(table["regime_end"][i]))
-        allowed = 4 * float(table["regime_alpha_se"][i]) + 0.02
-        assert abs(float(table["regime_alpha"][i]) - exact[inside].mean()) < allowed
+        allowed = 4 * float(table["regime_alpha_se"][i])
+        value = float(table["regime_alpha"][i])
+        assert exact[inside].min() - allowed < value < exact[inside].max() + allowed
     crossing = crossover_times(ds, **options)
     t_star = 2 * diffusivity / spread**2
     assert str(crossing["crossover_method"].values[0]) == "threshold"
@@ -164,12 +169,12 @@ def _exact_crossovers(msd, t, **options):
         out["crossover_from"].values, out["crossover_to"].values, out["crossover_time"].values)}
 
 
+@pytest.mark.slow  # 200 ensembles, each segmented by BIC: ~30-50 s
 def test_crossover_jackknife_is_calibrated():
     """Crossover times of 200 independent ensembles (2000 paths each, seeds 10000…10199) of
-    X = v t + B(t) (MSD = 2σ²t² + 4Dt, D = σ = 0.5, t* = 4), with tolerances 0.5 (one
-    crossover, diffusive → ballistic at α* = 1.5) and the default 0.2 (diffusive →
-    superdiffusive at α* = 1.2, superdiffusive → ballistic at α* = 1.8), crossovers matched
-    by their (from, to) labels.  For each crossover:
+    X = v t + B(t) (MSD = 2σ²t² + 4Dt, D = σ = 0.5, t* = 4) with the default options: one
+    crossover, diffusive → ballistic at α* = 1.5 (the passage through α = 1.5 is not a
+    regime; tolerances 0.5 give the same table), matched by its (from, to) labels:
 
     * the standard deviation s of the 200 estimates agrees with the mean reported se within
       4 combined standard errors of the ratio: the sampling error of a standard deviation,
@@ -180,19 +185,19 @@ def test_crossover_jackknife_is_calibrated():
       0.95 − 4 √(0.95·0.05/N) = 88.8% of ensembles (binomial 4σ band);
     * the crossover is resolved (finite se) in at least 95% of ensembles.
 
-    Measured when written: s / mean se = 1.009, 1.006, 1.024; coverage 0.935, 0.925, 0.945.
-    The estimator with the regime boundaries held fixed in the jackknife reported a se
-    3–4 times too small on this problem.  On the exact MSD the α* = 1.5 crossing is t* to
-    1e-5 (α = 1.5 exactly at t*, crossovers.py docstring)."""
+    Measured when written: s / mean se = 1.009, coverage 0.935, resolved in all 200
+    (with the earlier threshold-and-merge regimes and three crossovers: 1.009, 1.006, 1.024;
+    0.935, 0.925, 0.945).  The estimator with the regime boundaries held fixed in the
+    jackknife reported a se 3–4 times too small on this problem.  On the exact MSD the
+    α* = 1.5 crossing is t* to 1e-5 (α = 1.5 exactly at t*, crossovers.py docstring)."""
     diffusivity, spread, n_ensembles = 0.5, 0.5, 200
     exact_msd = 2 * spread**2 * LOG_T**2 + 4 * diffusivity * LOG_T
-    settings = {"wide": {"ballistic_tolerance": 0.5, "diffusive_tolerance": 0.5},
-                "default": {}}
+    settings = {"default": {}}
     expected = {name: _exact_crossovers(exact_msd, LOG_T, **options)
                 for name, options in settings.items()}
-    assert expected["wide"]["diffusive", "ballistic"] == pytest.approx(4.0, rel=1e-4)
-    assert set(expected["default"]) == {("diffusive", "superdiffusive"),
-                                        ("superdiffusive", "ballistic")}
+    assert expected["default"] == pytest.approx({("diffusive", "ballistic"): 4.0}, rel=1e-4)
+    assert _exact_crossovers(exact_msd, LOG_T, ballistic_tolerance=0.5,
+                             diffusive_tolerance=0.5) == pytest.approx(expected["default"])
     found = {(name, key): [] for name in settings for key in expected[name]}
     for k in range(n_ensembles):
         rng = np.random.default_rng(10_000 + k)
@@ -222,11 +227,17 @@ def test_crossover_jackknife_is_calibrated():
         assert covered.mean() >= 0.95 - 4 * math.sqrt(0.95 * 0.05 / finite.sum()), (name, key)
 
 
-def test_default_tolerances_find_the_superdiffusive_interval():
+def test_default_options_see_a_passage_not_a_superdiffusive_regime():
+    """MSD = 2σ²t² + 4Dt passes through α = 1.5 on its way from diffusive to ballistic: a
+    crossover, not a regime (regimes.py: a segment between its neighbours' exponents whose
+    halves do not keep its label is a passage).  The same holds on the exact curve."""
     rng = np.random.default_rng(2)
     dx, dy = brownian_paths(rng, 4000, LOG_T, 0.5, velocity_spread=0.5)
     labels = list(regimes(ensemble_dataset(dx, dy, LOG_T))["regime_label"].values)
-    assert labels == ["diffusive", "superdiffusive", "ballistic"]
+    assert labels == ["diffusive", "ballistic"]
+    exact = xr.Dataset({"msd": (("time",), 0.5 * LOG_T**2 + 2.0 * LOG_T)},
+                       coords={"time": LOG_T})
+    assert list(regimes(exact)["regime_label"].values) == ["diffusive", "ballistic"]
 
 
 def test_deff_removes_a_mean_drift_and_flags_a_short_run():
@@ -312,10 +323,10 @@ def test_start_dimension_stacks_ragged_regime_tables():
     ds = xr.concat([a, b], dim="start").assign_coords(start=["still", "moving"])
     out = analyse(ds)
     assert out["regime_label"].dims == ("start", "regime")
-    assert list(out["regime_count"].values) == [1, 3]
-    assert list(out["regime_label"].sel(start="still").values) == ["diffusive", "", ""]
+    assert list(out["regime_count"].values) == [1, 2]
+    assert list(out["regime_label"].sel(start="still").values) == ["diffusive", ""]
     assert np.isnan(out["regime_start"].sel(start="still").values[1:]).all()
-    assert out["crossover_time"].sizes == {"start": 2, "crossover": 2}
+    assert out["crossover_time"].sizes == {"start": 2, "crossover": 1}
     # each start analysed as if alone
     alone = analyse(b)
     assert np.allclose(out["alpha"].sel(start="moving"), alone["alpha"])

@@ -93,11 +93,17 @@ def test_msd_figure_content(analysed_ds):
     assert {"guide_slope_2", "guide_slope_1"} <= guides
     bands = [c for c in ax.collections if isinstance(c, PolyCollection)]
     assert len(bands) == 2  # ±2 SE bands, one per start
-    regimes = [p for p in ax.patches if str(p.get_gid()).startswith("regime_")]
-    labels = [str(v) for v in analysed_ds["regime_label"].sel(start="anywhere").values if str(v)]
-    assert len(regimes) == len(labels) >= 1
+    # every start's own regimes, one strip per start (not the first start's for all)
+    for start in ("anywhere", "centre"):
+        regimes = [p for p in ax.patches if str(p.get_gid()).startswith(f"regime_{start}_")]
+        labels = [str(v) for v in analysed_ds["regime_label"].sel(start=start).values
+                  if str(v)]
+        assert len(regimes) == len(labels) >= 1
+        assert [str(p.get_gid()).rsplit("_", 1)[-1] for p in regimes] == [
+            label.rsplit("_", 1)[-1] for label in labels]
+    counts = analysed_ds["regime_count"].values
     crossings = [line for line in ax.get_lines() if line.get_gid() == "crossover"]
-    assert len(crossings) == len(labels) - 1
+    assert len(crossings) == sum(int(n) - 1 for n in counts)
     assert_finite_lines(figure)
 
 

@@ -1,26 +1,29 @@
 """Crossover times between successive regimes, with jackknife errors and in natural units.
 
-Definition: the crossover between regimes i and i+1 is the time where the local exponent
-α(t) crosses the level α* that separates the two regimes' classes: the midpoint of the gap
-between the upper edge of the lower class and the lower edge of the higher one (class edges
-1 − d, 1 + d, 2 − b, 2 + b of :mod:`eddyhop.analysis.regimes`; adjacent classes share an
-edge, which is then α*).  E.g. diffusive → superdiffusive at α* = 1 + d, superdiffusive →
-ballistic at 2 − b, and diffusive → ballistic at α* = (1 + d + 2 − b)/2 = 1.5 for b = d (the
-superdiffusive band absent or merged away).  For MSD = A t^p + B t^q the exponent is
-α = (pA t^p + qB t^q)/(A t^p + B t^q), so α = (p + q)/2 exactly where A t^p = B t^q: at the
-midpoint of two reference exponents (diffusive 1, ballistic 2) the crossing is the
-intersection of the asymptotes (t* = 4D/A for A t² meeting 4Dt).
+Definition: the crossover between regimes i and i+1 (:mod:`eddyhop.analysis.regimes`) is
+the time where the local exponent α(t) crosses the level α* = (a_i + a_{i+1})/2, the mean
+of the two classes' representative exponents
+(:func:`~eddyhop.analysis.regimes.representative_exponent`: 0 bounded, 0.5 subdiffusive,
+1 diffusive, 1.5 superdiffusive, 2 ballistic, 2.4 super-ballistic with the default
+tolerances; the regimes' fitted exponents when a class is undetermined).  The level
+depends only on the labels, so an ensemble and the exact curve with the same regimes use the
+same α*.  For MSD = A t^p + B t^q the exponent is α = (pA t^p + qB t^q)/(A t^p + B t^q), so
+α = (p + q)/2 exactly where A t^p = B t^q: between reference exponents the crossing is the
+intersection of the asymptotes (t* = 4D/A for A t² meeting 4Dt, ballistic ↔ diffusive at
+α* = 1.5).
 
-Location: a first crossing of α* in the direction from the earlier class to the later one is
-found by linear interpolation between the bracketing samples, searched between the first
-sample of regime i and the last of regime i+1 (nearest to the regime boundary if there are
-several).  It is then refined to the fixed point c of "fit the line α ≈ a₀ + a₁ (ln t − c)
-by tricube-weighted least squares over ±``window`` decades around c, and move c to where the
-line reaches α*", which smooths the noise of α over the fit and depends smoothly on the data.
-If α never crosses α* there (possible only when undefined α was merged into a regime) or the
-refinement leaves the interval, the geometric mean of the last sample of i and the first of
-i+1 is used (``crossover_method`` = "boundary"; its error is half the log spacing of the two
-samples).
+Location: a crossing of α* in the direction from the earlier regime's exponent to the later
+one's is found by linear interpolation between the bracketing samples, searched between the
+first sample of regime i and the last of regime i+1 — which includes any passage between
+them that was not a regime — nearest to the middle of the gap between the two regimes if
+there are several.  It is then refined to the fixed point c of "fit the line
+α ≈ a₀ + a₁ (ln t − c) by tricube-weighted least squares over ±``window`` decades around c,
+and move c to where the line reaches α*", which smooths the noise of α over the fit and
+depends smoothly on the data.  If α never crosses α* there or the refinement leaves the
+interval, the geometric mean of the last sample of i and the first of i+1 is used
+(``crossover_method`` = "boundary"): the data do not locate the crossover, and its standard
+error is NaN (undetermined) — a sampling-resolution error bar would understate it when α
+hovers near α* (e.g. a regime whose early exponent sits close to the level).
 
 Uncertainty: the delete-one-batch jackknife of the whole estimator.  On every replicate (the
 pooled MSD of all batches but one) α(t) is recomputed and the same fixed point is iterated
@@ -45,29 +48,30 @@ import math
 import numpy as np
 import xarray as xr
 
-from ._common import flow_scales, per_start, require, var
+from ._common import check_range, flow_scales, per_start, require, var
 from ._stats import jackknife_se
-from .exponents import DEFAULT_WINDOW
-from .regimes import DEFAULT_MIN_POINTS, DEFAULT_TOLERANCE, LABELS, check_options, regime_table
+from .exponents import DEFAULT_WINDOW, alpha_with_replicates
+from .regimes import (
+    DEFAULT_BOUNDED_TOLERANCE,
+    DEFAULT_CONFIDENCE,
+    DEFAULT_MIN_POINTS,
+    DEFAULT_MIN_SPAN,
+    DEFAULT_MISFIT_FLOOR,
+    DEFAULT_TOLERANCE,
+    check_options,
+    regime_segments,
+    representative_exponent,
+)
 
 
-def class_edges(ballistic_tolerance: float, diffusive_tolerance: float):
-    """(lower, upper) α edge of every class code 0…4 under :func:`regimes.classify`."""
-    b, d = ballistic_tolerance, diffusive_tolerance
-    if 1 + d < 2 - b:
-        diffusive_top, ballistic_bottom = 1 + d, 2 - b
-    else:  # no superdiffusive band: the nearer reference wins inside the overlap
-        diffusive_top = ballistic_bottom = min(max(1.5, 2 - b), 1 + d)
-    return ((-math.inf, 1 - d), (1 - d, diffusive_top), (diffusive_top, ballistic_bottom),
-            (ballistic_bottom, 2 + b), (2 + b, math.inf))
-
-
-def threshold(from_code: int, to_code: int, ballistic_tolerance: float,
-              diffusive_tolerance: float) -> float:
-    """The level α* separating two classes: midpoint of the gap between them."""
-    edges = class_edges(ballistic_tolerance, diffusive_tolerance)
-    low, high = sorted((from_code, to_code))
-    return 0.5 * (edges[low][1] + edges[high][0])
+def threshold(left, right, options) -> float:
+    """The level α* between two regimes: the mean of their classes' representative
+    exponents (:func:`eddyhop.analysis.regimes.representative_exponent`), or of their fitted
+    exponents when either class is undetermined."""
+    pair = [representative_exponent(s.code, options) for s in (left, right)]
+    if not all(math.isfinite(v) for v in pair):
+        pair = [left.alpha, right.alpha]
+    return 0.5 * (pair[0] + pair[1])
 
 
 def crossings(lt, alpha, level, upward, first, last):
@@ -138,15 +142,16 @@ def refine(lt, alpha, level, upward, centre, half, first, last, iterations=50):
     return np.where(ok, c, np.nan)
 
 
-def _crossover(lt, alpha, replicates, left, right, b, d, half):
+def _crossover(lt, alpha, replicates, left, right, options, half):
     """(ln t_c, method, jackknife se of ln t_c, missing replicates, α*) of one crossover."""
-    level = threshold(left.code, right.code, b, d)
-    upward = right.code > left.code
+    level = threshold(left, right, options)
+    upward = right.alpha > left.alpha
     boundary = 0.5 * (lt[left.last] + lt[right.first])
     values, valid = crossings(lt, alpha, level, upward, left.first, right.last)
     first_pass = float(nearest(values, valid, boundary))
-    # a "boundary" crossover is only known to the sampling resolution
-    resolution = 0.5 * (lt[right.first] - lt[left.last])
+    # a "boundary" crossover is not located by the data (α does not settle on a crossing of
+    # α* there): its value is the regime boundary and its standard error undetermined
+    resolution = np.nan
     if not np.isfinite(first_pass):
         return boundary, "boundary", resolution, 0, level
     value = float(refine(lt, alpha, level, upward, first_pass, half, left.first, right.last))
@@ -163,28 +168,36 @@ def _crossover(lt, alpha, replicates, left, right, b, d, half):
 def crossover_times(ds: xr.Dataset, *, window: float = DEFAULT_WINDOW,
                     ballistic_tolerance: float = DEFAULT_TOLERANCE,
                     diffusive_tolerance: float = DEFAULT_TOLERANCE,
-                    min_points: int = DEFAULT_MIN_POINTS) -> xr.Dataset:
-    """Crossover times on a ``crossover`` dimension (one fewer than the regimes)."""
-    b, d, m = check_options(ballistic_tolerance, diffusive_tolerance, min_points)
+                    bounded_tolerance: float = DEFAULT_BOUNDED_TOLERANCE,
+                    min_span: float = DEFAULT_MIN_SPAN, min_points: int = DEFAULT_MIN_POINTS,
+                    misfit_floor: float = DEFAULT_MISFIT_FLOOR,
+                    confidence: float = DEFAULT_CONFIDENCE) -> xr.Dataset:
+    """Crossover times on a ``crossover`` dimension (one fewer than the regimes); the regime
+    options are those of :func:`eddyhop.analysis.regimes.regimes`, ``window`` (decades)
+    that of the local exponent α(t) whose crossing locates each crossover."""
+    options = check_options(ballistic_tolerance, diffusive_tolerance, bounded_tolerance,
+                            min_span, min_points, misfit_floor, confidence)
+    window = check_range("window", window, 0.05, 3.0)
     require(ds, ["time", "msd"], "crossover_times")
     units = str(ds["time"].attrs.get("units", "1"))
     scales = flow_scales(ds)
 
     def one(part):
         t = part["time"].values
-        segments, alpha, replicates = regime_table(part, window, b, d, m)
+        segments, _, _ = regime_segments(part, options)
+        alpha, replicates, _ = alpha_with_replicates(part, "total", window)
         with np.errstate(divide="ignore", invalid="ignore"):
             lt = np.log(t)
         half = window * math.log(10.0)
         values, errors, methods, froms, tos, missing, levels = [], [], [], [], [], [], []
         for left, right in itertools.pairwise(segments):
             value, method, spread, lost, level = _crossover(lt, alpha, replicates, left,
-                                                            right, b, d, half)
+                                                            right, options, half)
             values.append(math.exp(value))
             errors.append(math.exp(value) * spread)
             methods.append(method)
-            froms.append(LABELS[left.code])
-            tos.append(LABELS[right.code])
+            froms.append(left.label)
+            tos.append(right.label)
             missing.append(lost)
             levels.append(level)
         values = np.array(values, dtype=np.float64)
@@ -193,16 +206,17 @@ def crossover_times(ds: xr.Dataset, *, window: float = DEFAULT_WINDOW,
         out = {
             "crossover_time": var(dims, values, "crossover time between successive regimes",
                                   units, method="time where the local exponent alpha crosses "
-                                  "the level between the two regimes' classes (linear "
-                                  "interpolation in ln t)"),
+                                  "alpha* between the two regimes (interpolated in ln t, "
+                                  "refined by a local line fit)"),
             "crossover_time_se": var(dims, errors, "standard error of crossover_time "
                                      "(jackknife over particle batches with alpha and the "
                                      "crossing recomputed on every replicate; NaN without "
-                                     "batches or when a replicate has no crossing)", units),
+                                     "batches, when a replicate has no crossing, or for a "
+                                     "boundary crossover)", units),
             "crossover_alpha_level": var(dims, np.array(levels, dtype=np.float64),
                                          "local exponent alpha* whose crossing defines the "
-                                         "crossover (midpoint of the gap between the two "
-                                         "regimes' classes)", "1"),
+                                         "crossover (mean of the two regimes' "
+                                         "representative exponents)", "1"),
             "crossover_missing_replicates": var(dims, np.array(missing, dtype=np.int64),
                                                 "delete-one-batch replicates in which alpha "
                                                 "does not cross alpha* between the two "

@@ -1,5 +1,9 @@
 """Local exponent α(t) = d ln MSD / d ln t, total and per component, with jackknife errors.
 
+The curve is the second moment the analyses interpret, from
+:func:`eddyhop.analysis.centring.transport_curve` (the raw MSD, or the centred moment when
+the ensemble mean moves); "MSD" below means that curve.
+
 Estimator: local linear regression of ln MSD on ln t with tricube weights over a window of
 ``window`` decades centred on each output time (one-sided at the ends, at least 3 points);
 see :func:`eddyhop.analysis._stats.local_log_slope`.  Uncertainty: jackknife over particle
@@ -13,20 +17,24 @@ import numpy as np
 import xarray as xr
 
 from ._common import check_range, per_start, require, var
-from ._stats import batch_replicates, jackknife_se, local_log_slope
+from ._stats import jackknife_se, local_log_slope
+from .centring import transport_curve
 
+# (output variable, MSD variable that must be present, transport_curve component)
 COMPONENTS = (("alpha", "msd", "total"), ("alpha_x", "msd_x", "x"), ("alpha_y", "msd_y", "y"))
 DEFAULT_WINDOW = 0.4
 
 
-def alpha_with_replicates(ds, source: str = "msd", window: float = DEFAULT_WINDOW):
-    """(α(t), delete-one-batch replicates (B, T) or None) of one start's ``source`` MSD."""
+def alpha_with_replicates(ds, component: str = "total", window: float = DEFAULT_WINDOW):
+    """(α(t), delete-one-batch replicates (B, T) or None, name of the moment used) of one
+    start's second moment along ``component`` ("total", "x", "y"), taken from
+    :func:`~eddyhop.analysis.centring.transport_curve`."""
     t = ds["time"].values
-    alpha = local_log_slope(t, ds[source].values, window)
-    replicates = batch_replicates(ds, source)
+    values, replicates, name = transport_curve(ds, component)
+    alpha = local_log_slope(t, values, window)
     if replicates is not None:
         replicates = local_log_slope(t, replicates, window)
-    return alpha, replicates
+    return alpha, replicates, name
 
 
 def local_exponent(ds: xr.Dataset, *, window: float = DEFAULT_WINDOW) -> xr.Dataset:
@@ -43,7 +51,7 @@ def local_exponent(ds: xr.Dataset, *, window: float = DEFAULT_WINDOW) -> xr.Data
         for name, source, what in COMPONENTS:
             if source not in part.variables:
                 continue
-            alpha, replicates = alpha_with_replicates(part, source, window)
+            alpha, replicates, source = alpha_with_replicates(part, what, window)
             se = jackknife_se(replicates)
             label = "" if what == "total" else f" along {what}"
             out[name] = var(("time",), alpha, f"local exponent d ln {source} / d ln t{label}",

@@ -21,17 +21,25 @@ def _default_out(result: str) -> str:
 @click.option("--window", type=float, default=None,
               help="Width in decades of the local fit for alpha(t). [default: 0.4]")
 @click.option("--ballistic-tolerance", type=float, default=None,
-              help="|alpha - 2| below which a time is ballistic. [default: 0.2]")
+              help="Half-width of the band around alpha = 2 a regime's interval must meet "
+              "to be ballistic. [default: 0.2]")
 @click.option("--diffusive-tolerance", type=float, default=None,
-              help="|alpha - 1| below which a time is diffusive. [default: 0.2]")
+              help="Half-width of the band around alpha = 1 (diffusive). [default: 0.2]")
+@click.option("--bounded-tolerance", type=float, default=None,
+              help="Top of the band alpha <= value for a bounded moment. [default: 0.2]")
+@click.option("--min-span", type=float, default=None,
+              help="Shortest regime, in decades of time. [default: 0.5]")
 @click.option("--min-points", type=int, default=None,
-              help="Shortest regime, in output times; shorter ones merge. [default: 3]")
+              help="Fewest output times in a regime. [default: 3]")
+@click.option("--misfit-floor", type=float, default=None,
+              help="Model-misfit floor of the regime fit, in ln MSD. [default: 0.05]")
 @click.option("--fit-decades", type=float, default=None,
               help="Late-time window for D_eff and nu(q), in decades. [default: 0.5]")
 @click.option("--fit-start", type=float, default=None,
               help="Start the D_eff window at this time instead.")
 @click.option("--confidence", type=float, default=None,
-              help="Confidence level of the D_eff intervals. [default: 0.95]")
+              help="Confidence level of the D_eff and regime-exponent intervals. "
+              "[default: 0.95]")
 @click.option("--aging-time", "aging_times", type=float, multiple=True,
               help="Analyse only these recorded aging times (repeatable).")
 @click.option("--pdf-time", "pdf_times", type=float, multiple=True,

@@ -1,5 +1,9 @@
 """Regime intervals and crossover times of an analysed Dataset, drawn on a time axis.
 
+One start region: full-height bands (:func:`shade`).  Several: each start's own regimes as a
+thin strip along the bottom of the axes, edged in that start's curve colour, with its
+crossover times as ticks in the strip (:func:`strips`), so no start borrows another's regimes.
+
 Reads ``regime_label``, ``regime_start``, ``regime_end`` (dimension ``regime``, padded with ""
 and NaN when start regions have different numbers of regimes) and, when present,
 ``crossover_time`` (dimension ``crossover``), as written by ``eddyhop analyse``.
@@ -11,14 +15,12 @@ import math
 
 import numpy as np
 
-# Light tints, one per regime class (pale versions of the Okabe–Ito colours).
-TINTS = {
-    "subdiffusive": "#cfe3f3",
-    "diffusive": "#cdeee3",
-    "superdiffusive": "#fbe6c2",
-    "ballistic": "#f6d3c0",
-    "super_ballistic": "#eedbe7",
-}
+from ..analysis.regimes import LABELS
+
+# Light tints, one per regime class in the order of LABELS (the one spelling of the labels):
+# pale versions of the Okabe–Ito colours, grey for undetermined.
+TINTS = dict(zip(LABELS, ("#e4e4f7", "#cfe3f3", "#cdeee3", "#fbe6c2", "#f6d3c0", "#eedbe7",
+                          "#e6e6e6"), strict=True))
 REGIME_VARIABLES = ("regime_label", "regime_start", "regime_end")
 
 
@@ -72,4 +74,46 @@ def shade(ax, ds, start=None):
         line = ax.axvline(value, color="#444444", lw=0.8, ls=(0, (1, 2)), zorder=1,
                           label="crossover time" if index == 0 else None)
         line.set_gid("crossover")
+    return bands
+
+
+STRIP_HEIGHT = 0.035  # axes fraction per start
+STRIP_GAP = 0.01
+
+
+def strips_top(count: int) -> float:
+    """Axes fraction just above ``count`` strips (where a legend may start)."""
+    return STRIP_GAP + count * (STRIP_HEIGHT + STRIP_GAP)
+
+
+def strips(ax, ds, starts, colours):
+    """Each start's regimes as a strip at the bottom of ``ax`` (one strip per start, in the
+    order of ``starts``, edged in the matching colour of ``colours``) and its crossover times
+    as ticks inside its strip.  Returns the band artists (one legend entry per class)."""
+    bands = []
+    seen = set()
+    for row, (start, colour) in enumerate(zip(starts, colours)):
+        bottom = STRIP_GAP + row * (STRIP_HEIGHT + STRIP_GAP)
+        top = bottom + STRIP_HEIGHT
+        regimes = regimes_of(ds, start)
+        for index, (name, first, last) in enumerate(regimes):
+            left = first if index == 0 else math.sqrt(regimes[index - 1][2] * first)
+            right = last if index == len(regimes) - 1 else math.sqrt(
+                last * regimes[index + 1][1])
+            band = ax.axvspan(left, right, ymin=bottom, ymax=top,
+                              facecolor=TINTS.get(name, "#eeeeee"), edgecolor=colour, lw=0.8,
+                              zorder=2, label=name.replace("_", "-") if name not in seen
+                              else None)
+            seen.add(name)
+            band.set_gid(f"regime_{start}_{index}_{name}")
+            bands.append(band)
+        if start is not None:
+            ax.text(0.004, 0.5 * (bottom + top), str(start), transform=ax.transAxes,
+                    fontsize=6, color=colour, fontweight="bold", va="center", ha="left",
+                    zorder=4, gid=f"regime_strip_label_{start}")
+        for index, value in enumerate(crossovers_of(ds, start)):
+            line = ax.axvline(value, ymin=bottom, ymax=top, color="#444444", lw=1.0,
+                              zorder=3, label="crossover time" if row == 0 and index == 0
+                              else None)
+            line.set_gid("crossover")
     return bands

@@ -29,16 +29,29 @@ from ._style import (
 RUN_HINT = "make it with `eddyhop run STUDY.toml` (or eddyhop.simulate)"
 
 
-def _regime_note(ax, ds, start, where="lower right"):
-    """Shade the regimes of ``start``; a second legend names the classes (and the start)."""
-    bands = _regimes.shade(ax, ds, start)
+def _regime_note(ax, ds, start, where="lower right", starts=None):
+    """Shade the regimes of ``start`` (or, given several ``starts``, draw each start's own
+    regimes as a strip); a second legend names the classes (and the start)."""
+    if starts is not None and len(starts) > 1:
+        colours = [colour for _, (colour, _) in zip(starts, styles())]
+        bands = _regimes.strips(ax, ds, starts, colours)
+        start = None
+    else:
+        bands = _regimes.shade(ax, ds, start)
     if bands:
         handles = [b for b in bands if b.get_label() and not b.get_label().startswith("_")]
         handles += [line for line in ax.get_lines() if line.get_gid() == "crossover"][:1]
-        heading = "regimes" + (f" (start {start_name(ds, start)})" if "start" in ds.dims
-                               else "")
-        legend = ax.legend(handles=handles, loc=where, fontsize=7, title=heading,
-                           title_fontsize=7, framealpha=0.9)
+        if "start" not in ds.dims:
+            heading = "regimes"
+        elif start is None:
+            heading = "regimes (strip per start)"
+        else:
+            heading = f"regimes (start {start_name(ds, start)})"
+        placement = {"loc": where}
+        if start is None and starts is not None:  # keep the strips visible
+            placement["bbox_to_anchor"] = (1.0, _regimes.strips_top(len(starts)))
+        legend = ax.legend(handles=handles, fontsize=7, title=heading, title_fontsize=7,
+                           framealpha=0.9, **placement)
         ax.add_artist(legend)
     return bands
 
@@ -85,7 +98,7 @@ def msd_figure(ds, *, variable: str = "msd", start=None, guides: bool = True,
                             lw=0)
         drawn.append((t[good], y[good]))
     if regimes:
-        _regime_note(ax, ds, start if start is not None else starts[0])
+        _regime_note(ax, ds, start if start is not None else starts[0], starts=starts)
     if guides and drawn:
         tt, yy = drawn[0]
         early = tt[: max(3, len(tt) // 4)]
@@ -210,7 +223,7 @@ def exponent_figure(ds, *, start=None, regimes: bool = True):
         ax.annotate(text, (t[t > 0][0], level), textcoords="offset points", xytext=(2, 3),
                     fontsize=8, color=GUIDE)
     if regimes:
-        _regime_note(ax, ds, start if start is not None else starts[0])
+        _regime_note(ax, ds, start if start is not None else starts[0], starts=starts)
     ax.set_xscale("log")
     top = max([2.4] + [float(np.nanmax(line.get_ydata())) + 0.15 for line in handles])
     ax.set_ylim(-0.1, min(top, 3.5))
