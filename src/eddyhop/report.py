@@ -471,9 +471,14 @@ def scaling_html(ds) -> str:
                                                                      if where else ""),
                          f"{_number(value, 3)} [{_number(low, 3)}, {_number(high, 3)}]",
                          counted, judged, _e(exponent.attrs.get("reference", ""))))
-    if not rows:
-        return ""
     status = ds.attrs.get("sweep_deff_status")
+    if not rows:
+        if not any(f"{name}_exponent" in ds.variables
+                   for name in ("D_xx", "D_yy", "D_eff", "crossover_time")):
+            return ""
+        return ("<h3>Scaling with the Péclet number</h3><p><b>No scaling fit</b>: too few "
+                "swept points with a confirmed diffusive regime"
+                + (f" ({_e(status)})" if status else "") + ".</p>")
     return ("<h3>Scaling with the Péclet number</h3>"
             + (f"<p>D_eff convergence across the sweep: {_e(status)}.</p>" if status else "")
             + _table(("fit", "exponent [confidence interval]", "points", "verdict",
