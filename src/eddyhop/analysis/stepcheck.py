@@ -1,0 +1,228 @@
+"""Step check: the measured step-size bias of the MSD and of D_eff, and a verdict on dt.
+
+The engine integrates a subsample of every start region twice on the *same* Brownian path: at
+the run's dt (the run's own paths, "fine") and at 2·dt ("coarse", increments summed from the
+fine ones — the multilevel Monte Carlo coupling of Giles 2008, "Multilevel Monte Carlo path
+simulation", Oper. Res. 56(3), 607–617).  A scheme of weak order p has an error
+E(dt) = c dt^p + o(dt^p) in every expectation, so
+
+    bias(dt) ≈ [E(2 dt) − E(dt)] / (2^p − 1)
+
+(Richardson's argument; p from ``integrators.SCHEME_ORDERS``: 1 for Euler–Maruyama and
+Milstein, 2 for ``strang_rk2``).  Because the two paths share their noise, the per-particle
+difference has a far smaller variance than either path.  Estimators (per start region):
+
+* ``step_bias_msd(t)`` = [msd_coarse(t) − msd_fine(t)] / (2^p − 1) at the output times on even
+  fine steps (NaN at odd steps, where no coarse state exists);
+* ``D_eff_step_bias`` = [D_coarse − D_fine] / (2^p − 1), each D from the subsample's
+  displacement covariances by the D_eff estimator of ``analysis/deff.py`` (least-squares slope
+  / 2 over the same late-time window, ``_stats.late_window``/``ols_slope``), restricted to the
+  window's even-step times;
+* ``D_eff_extrapolated`` = D_eff − D_eff_step_bias, with se = √(se(D_eff)² + se(bias)²)
+  (the two treated as independent: the subsample is a tenth of the run by default);
+
+standard errors by the delete-one jackknife over *check batches* (contiguous groups of the
+subsample).
+
+Verdict ``step_check`` (b = |D_eff_step_bias|, s = its se, target τ = se(D_eff), the run's
+statistical error, or ``step_tolerance`` · |D_eff| when that option is given):
+
+* 1 ``biased``: b − 2 s > τ — the bias exceeds the target by more than two standard errors;
+* 0 ``passed``: b ≤ τ and s ≤ τ — the estimated bias is below the target and the check
+  resolves a bias of the target's size (its own standard error is no larger);
+* 2 ``inconclusive``: otherwise — the check's own error is too large to tell (raise
+  ``run.step_check_particles``), or there is no estimate (no even output steps in the window,
+  or the coarse path blew up).
+
+The coupled paths decorrelate at late times in cellular flows (tracers sharing their noise
+still separate near the hyperbolic points), so s cannot fall far below the error of an
+uncoupled estimate on the same subsample: measured s / se(D_eff) ≈ 0.3–0.4 × (run.particles /
+step_check_particles)^½ for ``strang_rk2`` on the cellular flow at Pe = 10–100.
+
+``step_check_suggested_dt`` = dt · (τ / (2 b))^(1/p): the step at which the bias, scaled by the
+weak order, would be half the target; NaN when b ≤ τ (nothing to suggest) or when passed.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+
+import numpy as np
+import xarray as xr
+
+from ..integrators import SCHEME_ORDERS
+from ._common import check_range, msd_units, per_start, per_time, require, time_units, var
+from ._stats import jackknife_se, late_window, ols_slope, pooled_replicates
+from .deff import DEFAULT_FIT_DECADES, effective_diffusivity
+
+PASSED, BIASED, INCONCLUSIVE = 0, 1, 2
+FLAG_MEANINGS = "passed biased inconclusive"
+# Standard errors of the bias estimate that separate the verdicts (two-sided ≈ 95 %).
+VERDICT_SE = 2.0
+_SUFFIXES = ("mean_dx", "mean_dy", "msd_x", "msd_y", "msd_xy")
+CHECK_VARIABLES = tuple(f"check_{path}_{name}" for path in ("fine", "coarse")
+                        for name in _SUFFIXES) + ("check_count",)
+
+
+def has_step_check(ds) -> bool:
+    """Whether ``ds`` carries the step check's raw variables."""
+    return all(name in ds.variables for name in CHECK_VARIABLES)
+
+
+def weak_order(ds) -> float:
+    """Weak order of the run's integrator (from the ``integrator`` attribute)."""
+    name = str(ds.attrs.get("integrator", ""))
+    if name not in SCHEME_ORDERS:
+        from ..errors import InputDataError
+
+        raise InputDataError(f"step_check needs the run's integrator attribute (one of "
+                             f"{', '.join(SCHEME_ORDERS)}), got {name!r}")
+    return SCHEME_ORDERS[name][1]
+
+
+def _variances(means):
+    """Var Δx + Var Δy and Var Δx, Var Δy from (mean_dx, mean_dy, msd_x, msd_y, msd_xy)."""
+    mean_dx, mean_dy, msd_x, msd_y, _ = means
+    return msd_x - mean_dx**2 + msd_y - mean_dy**2
+
+
+def verdict(bias: float, bias_se: float, target: float) -> int:
+    """The ``step_check`` flag from the bias b, its se s and the target τ (module docstring)."""
+    if not (np.isfinite(bias) and np.isfinite(bias_se) and np.isfinite(target)):
+        return INCONCLUSIVE
+    if abs(bias) - VERDICT_SE * bias_se > target:
+        return BIASED
+    if abs(bias) <= target and bias_se <= target:
+        return PASSED
+    return INCONCLUSIVE
+
+
+def suggested_dt(dt: float, order: float, bias: float, target: float, flag: int) -> float:
+    """dt · (τ / (2 |b|))^(1/p) when the estimate |b| exceeds the target τ, else NaN."""
+    if flag == PASSED or not (np.isfinite(bias) and abs(bias) > target > 0):
+        return math.nan
+    return dt * (0.5 * target / abs(bias)) ** (1.0 / order)
+
+
+def step_check(ds: xr.Dataset, *, fit_decades: float = DEFAULT_FIT_DECADES,
+               fit_start: float | None = None, step_tolerance: float | None = None
+               ) -> xr.Dataset:
+    """Measured step-size bias of the MSD and D_eff, Richardson-extrapolated D_eff and the
+    ``step_check`` verdict, per start region (see the module docstring for the estimators
+    and the rule).  ``fit_decades``/``fit_start`` choose the late window as for
+    :func:`~eddyhop.analysis.effective_diffusivity`; ``step_tolerance`` (relative, e.g. 0.01)
+    replaces the run's statistical error of D_eff as the target."""
+    if step_tolerance is not None:
+        step_tolerance = check_range("step_tolerance", step_tolerance, 0.0, 1.0,
+                                     low_open=True)
+    require(ds, ["time", "msd", *CHECK_VARIABLES], "step_check")
+    order = weak_order(ds)
+    factor = 2.0**order - 1.0
+    dt = float(ds.attrs.get("dt", math.nan))
+    tunits = time_units(ds)
+    units = msd_units(ds)
+    d_units = per_time(units, tunits)
+    with warnings.catch_warnings():
+        # convergence of the run is effective_diffusivity's own verdict, warned about there
+        warnings.simplefilter("ignore")
+        deff = effective_diffusivity(ds, fit_decades=fit_decades, fit_start=fit_start)
+    rule = (f"b = |D_eff_step_bias|, s = D_eff_step_bias_se, target = "
+            + (f"{step_tolerance:g} |D_eff|" if step_tolerance is not None else "D_eff_se")
+            + f": biased if b - {VERDICT_SE:g} s > target; passed if b <= target and "
+            "s <= target; otherwise (or without an estimate) inconclusive")
+
+    def one(part):
+        t = part["time"].values
+        counts = part["check_count"].values
+        label = part["start"].values.item() if "start" in part.coords else None
+        d_part = deff.sel(start=label) if label is not None and "start" in deff.dims else deff
+        d_run = float(d_part["D_eff"].values)
+        d_se = float(d_part["D_eff_se"].values)
+        means = {path: [np.asarray(part[f"check_{path}_{n}"].values, dtype=np.float64)
+                        for n in _SUFFIXES] for path in ("fine", "coarse")}
+        keep = counts > 0
+        reps = {path: [pooled_replicates(counts, m) for m in values]
+                for path, values in means.items()}
+        pooled = {path: [np.tensordot(counts[keep], m[keep], axes=(0, 0)) / counts[keep].sum()
+                         for m in values] for path, values in means.items()}
+
+        def msd(values):
+            return values[2] + values[3]
+
+        bias_msd = (msd(pooled["coarse"]) - msd(pooled["fine"])) / factor
+        bias_msd_reps = (msd(reps["coarse"]) - msd(reps["fine"])) / factor
+        bias_msd_se = jackknife_se(bias_msd_reps)
+        window = late_window(t, fit_decades, fit_start) & np.isfinite(bias_msd)
+        if window.sum() >= 2:
+            tw = t[window]
+
+            def d_of(values):
+                return ols_slope(tw, _variances(values)[..., window])[0] / 4.0
+
+            bias = float((d_of(pooled["coarse"]) - d_of(pooled["fine"])) / factor)
+            bias_reps = (d_of(reps["coarse"]) - d_of(reps["fine"])) / factor
+            bias_se = float(jackknife_se(bias_reps))
+        else:
+            bias = bias_se = math.nan
+        target = step_tolerance * abs(d_run) if step_tolerance is not None else d_se
+        flag = verdict(bias, bias_se, target)
+        out = {
+            "step_bias_msd": var(("time",), bias_msd, "estimated step-size bias of msd: "
+                                 "(msd at 2 dt - msd at dt) / (2^p - 1) on the check subsample "
+                                 "(NaN at odd steps)", units, weak_order=order),
+            "step_bias_msd_se": var(("time",), bias_msd_se, "standard error of step_bias_msd "
+                                    "(jackknife over check batches)", units),
+            "D_eff_step_bias": var((), bias, "estimated step-size bias of D_eff: (D_eff at "
+                                   "2 dt - D_eff at dt) / (2^p - 1) on the check subsample",
+                                   d_units, weak_order=order),
+            "D_eff_step_bias_se": var((), bias_se, "standard error of D_eff_step_bias "
+                                      "(jackknife over check batches)", d_units),
+            "D_eff_extrapolated": var((), d_run - bias, "Richardson-extrapolated D_eff: "
+                                      "D_eff - D_eff_step_bias", d_units),
+            "D_eff_extrapolated_se": var((), math.sqrt(d_se**2 + bias_se**2),
+                                         "standard error of D_eff_extrapolated: "
+                                         "sqrt(D_eff_se^2 + D_eff_step_bias_se^2)", d_units),
+            "step_check": var((), np.int8(flag), "verdict of the step check on run.dt: "
+                              "0 passed, 1 biased, 2 inconclusive", "1",
+                              flag_values=np.array([PASSED, BIASED, INCONCLUSIVE],
+                                                   dtype=np.int8),
+                              flag_meanings=FLAG_MEANINGS, criterion=rule),
+            "step_check_suggested_dt": var((), suggested_dt(dt, order, bias, target, flag),
+                                           "time step whose D_eff bias would be half the "
+                                           "target, from the weak order (NaN when passed)",
+                                           tunits),
+        }
+        return xr.Dataset(out)
+
+    return per_start(ds, one)
+
+
+def step_bias_messages(result: xr.Dataset) -> list[str]:
+    """One line per start region whose verdict is not ``passed`` (for warnings and summaries)."""
+    lines = []
+    flags = np.atleast_1d(result["step_check"].values)
+    labels = (np.atleast_1d(result["start"].values) if "start" in result.dims
+              else [None] * flags.size)
+    for i, (flag, label) in enumerate(zip(flags, labels)):
+        if flag == PASSED:
+            continue
+
+        def pick(name, i=i):
+            return float(np.atleast_1d(result[name].values)[i])
+
+        where = f"start '{label}': " if label is not None else ""
+        d_se = math.sqrt(max(pick("D_eff_extrapolated_se") ** 2
+                             - pick("D_eff_step_bias_se") ** 2, 0.0))
+        word = "biased" if flag == BIASED else "inconclusive"
+        text = (f"{where}step check {word}: D_eff step-size bias "
+                f"{pick('D_eff_step_bias'):.3g} ± {pick('D_eff_step_bias_se'):.2g} against a "
+                f"statistical error of D_eff of {d_se:.2g}")
+        suggestion = pick("step_check_suggested_dt")
+        if flag == INCONCLUSIVE:
+            text += " — inconclusive: the check cannot tell whether dt is small enough " \
+                    "(raise run.step_check_particles)"
+        if math.isfinite(suggestion):
+            text += f"; a dt of {suggestion:.3g} or less would meet it"
+        lines.append(text)
+    return lines
