@@ -71,7 +71,7 @@ NOT_SWEEPABLE = {
     "run.chunk": "it never changes the numbers",
 }
 # Dimension names already used inside a point's Dataset.
-RESERVED_DIMS = {"time", "batch", "order", "lag", "aging_time", "particle", "track_time",
+RESERVED_DIMS = {"time", "batch", "check_batch", "order", "lag", "aging_time", "particle", "track_time",
                  "residence_time", "flight_length", "residence_time_edge", "flight_length_edge",
                  "point"}
 
