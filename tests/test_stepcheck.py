@@ -32,10 +32,12 @@ def test_euler_maruyama_at_pe100_is_flagged_and_its_bias_matches_the_cell_proble
     """EM at Pe = 100, dt·U·k = 0.05 (cellular U = k = 1), 3 diffusive times 1/(κk²)."""
     from eddyhop.reference import effective_diffusivity as cell_problem
 
+    # the whole ensemble as subsample: the default fifth flags this bias about half the time
+    # (its estimate is 0.06 ± 0.02 against a target of 0.006) and warns "inconclusive" else
     study = make_study(noise={"peclet": 100.0},
-                       run={"particles": 2000, "dt": 0.05, "t_end": 300.0, "n_times": 60,
+                       run={"particles": 4000, "dt": 0.05, "t_end": 300.0, "n_times": 60,
                             "integrator": "euler_maruyama", "seed": 11,
-                            "step_check_particles": 2000})
+                            "step_check_particles": 4000})
     ds, caught = _simulate(study)
     result = analyse(ds)
     assert int(result["step_check"]) == 1  # biased
@@ -45,9 +47,9 @@ def test_euler_maruyama_at_pe100_is_flagged_and_its_bias_matches_the_cell_proble
     actual = float(result["D_eff"]) - reference
     bias = float(result["D_eff_step_bias"])
     combined = math.hypot(float(result["D_eff_step_bias_se"]), float(result["D_eff_se"]))
-    # measured at this seed: bias 0.056 ± 0.021 against D_eff − D_cell = 0.042 ± 0.007
-    # (0.6 combined se); the tolerance is 3 combined standard errors
-    assert abs(bias - actual) < 3 * combined
+    # measured at this seed: see the assertion message; the tolerance is 3 combined standard
+    # errors
+    assert abs(bias - actual) < 3 * combined, (bias, actual, combined)
     assert actual > 5 * float(result["D_eff_se"])  # the bias is real (≈ +40 %)
     assert float(result["step_check_suggested_dt"]) < 0.05 / 4
     # the extrapolated value carries the bias estimate's error and covers the reference
@@ -55,19 +57,27 @@ def test_euler_maruyama_at_pe100_is_flagged_and_its_bias_matches_the_cell_proble
         result["D_eff_extrapolated_se"])
 
 
-def test_strang_splitting_at_pe10_dt02_passes():
-    study = make_study(noise={"peclet": 10.0},
-                       run={"particles": 2000, "dt": 0.2, "t_end": 100.0, "n_times": 60,
-                            "seed": 5, "step_check_particles": 2000})
+@pytest.mark.parametrize("subsample", [None, 2000])
+def test_strang_splitting_at_pe10_dt02_is_not_flagged(subsample):
+    """Default subsample (a fifth): over 16 seeds the verdict was never "biased" (11 passed,
+    5 inconclusive at 15 %; z = bias/se had spread 0.84, so the se is not optimistic).  The
+    whole ensemble as subsample resolves the question: passed."""
+    run = {"particles": 2000, "dt": 0.2, "t_end": 100.0, "n_times": 60, "seed": 5}
+    if subsample:
+        run["step_check_particles"] = subsample
+    study = make_study(noise={"peclet": 10.0}, run=run)
     assert study.run.integrator == "strang_rk2"  # the default for constant kappa
     ds, caught = _simulate(study)
     result = step_check(ds)
-    assert int(result["step_check"]) == 0, (float(result["D_eff_step_bias"]),
-                                             float(result["D_eff_step_bias_se"]))
-    assert not any(issubclass(w.category, StepBiasWarning) for w in caught)
-    assert np.isnan(float(result["step_check_suggested_dt"]))
-    # measured: bias −0.0008 ± 0.0055 against se(D_eff) = 0.013; within 2 se of 0
-    assert abs(float(result["D_eff_step_bias"])) < 2 * float(result["D_eff_step_bias_se"])
+    flag = int(result["step_check"])
+    bias, bias_se = float(result["D_eff_step_bias"]), float(result["D_eff_step_bias_se"])
+    assert flag != 1, (bias, bias_se)
+    # unbiased within 3 se (the scheme's bias at dt = 0.2 is below 1 %, docs/performance.md)
+    assert abs(bias) < 3 * bias_se
+    if subsample:
+        assert flag == 0, (bias, bias_se)
+        assert not any(issubclass(w.category, StepBiasWarning) for w in caught)
+        assert np.isnan(float(result["step_check_suggested_dt"]))
     assert result["step_check"].attrs["flag_meanings"] == "passed biased inconclusive"
     for name in ("step_bias_msd", "step_bias_msd_se", "D_eff_step_bias", "D_eff_step_bias_se",
                  "D_eff_extrapolated", "D_eff_extrapolated_se", "step_check",
@@ -133,7 +143,7 @@ def test_check_is_identical_for_any_workers_and_chunks():
     study = make_study(noise={"peclet": 20.0},
                        run={"particles": 600, "dt": 0.05, "t_end": 20.0, "n_times": 20,
                             "batches": 8})
-    assert study.run.step_check and study.run.step_check_particles == 90
+    assert study.run.step_check and study.run.step_check_particles == 120
     reference, _ = _simulate(study, workers=1, chunk=10**6)
     other, _ = _simulate(study, workers=2, chunk=37)
     names = [n for n in reference.data_vars if n.startswith("check_")]
@@ -161,7 +171,7 @@ def test_defaults():
     assert modulated.run.integrator == "milstein"
     deterministic = make_study(noise={"kappa": 0.0, "_replace": True})
     assert deterministic.run.integrator == "rk4" and not deterministic.run.step_check
-    assert make_study(run={"particles": 1000}).run.step_check_particles == 150
+    assert make_study(run={"particles": 1000}).run.step_check_particles == 200
     assert make_study(run={"particles": 20}).run.step_check_particles == 16
     assert not make_study(run={"particles": 8}).run.step_check
 

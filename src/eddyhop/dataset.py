@@ -187,6 +187,18 @@ def _label(name, table, units, n_orders=None):
     return attrs
 
 
+def step_check_weak_order(study) -> float:
+    """Weak order p that the step check's Richardson estimate uses: the scheme's
+    (``integrators.SCHEME_ORDERS``), but at most 1 where tracers reflect at solid walls (the
+    symmetrized reflection is weak order 1: Bossy, Gobet & Talay 2004, J. Appl. Probab. 41,
+    877–889, quoted from memory; docs/obstacles_and_grids.md measures 0.89 ± 0.08)."""
+    from .integrators import SCHEME_ORDERS
+    from .reference.fields import WALLED_FAMILIES
+
+    order = SCHEME_ORDERS[study.run.integrator][1]
+    return min(order, 1.0) if study.flow.family in WALLED_FAMILIES else order
+
+
 def build_dataset(study, result) -> xr.Dataset:
     """Dataset of a Monte Carlo run (``start`` is a dimension when the study has several)."""
     schedule = result.schedule
@@ -245,6 +257,8 @@ def build_dataset(study, result) -> xr.Dataset:
         "step_size_warnings": " | ".join(result.warnings) if result.warnings else "none",
         "step_check_particles": result.step_check_particles,
     }
+    if result.step_check_particles:
+        extra["step_check_weak_order"] = step_check_weak_order(study)
     if study.flow.model.name == "gridded":  # how faithful the simulated field is to the file
         from .flows.gridded import field_attributes
 

@@ -9,20 +9,25 @@ E(dt) = c dt^p + o(dt^p) in every expectation, so
     bias(dt) ≈ [E(2 dt) − E(dt)] / (2^p − 1)
 
 (Richardson's argument; p from ``integrators.SCHEME_ORDERS``: 1 for Euler–Maruyama and
-Milstein, 2 for ``strang_rk2``).  Because the two paths share their noise, the per-particle
+Milstein, 2 for ``strang_rk2``, but at most 1 for flows with solid walls, whose reflection step
+is weak order 1 — the engine records p as the ``step_check_weak_order`` attribute).  Because the two paths share their noise, the per-particle
 difference has a far smaller variance than either path.  Estimators (per start region):
 
 * ``step_bias_msd(t)`` = [msd_coarse(t) − msd_fine(t)] / (2^p − 1) at the output times on even
   fine steps (NaN at odd steps, where no coarse state exists);
-* ``D_eff_step_bias`` = [D_coarse − D_fine] / (2^p − 1), each D from the subsample's
-  displacement covariances by the D_eff estimator of ``analysis/deff.py`` (least-squares slope
-  / 2 over the same late-time window, ``_stats.late_window``/``ols_slope``), restricted to the
-  window's even-step times;
+* ``D_eff_step_bias`` = [D_coarse − D_fine] / (2^p − 1), each D from the displacement
+  covariances by the D_eff estimator of ``analysis/deff.py`` (least-squares slope / 2 over the
+  same late-time window, ``_stats.late_window``/``ols_slope``), restricted to the window's
+  even-step times;
+* in both, the fine term is β·(subsample) + (1 − β)·(whole run) with the variance-minimising
+  β = Cov(coarse, fine)/Var(fine) ∈ [0, 1] (a control variate, :func:`_controlled_difference`;
+  β is the ``control_weight`` attribute): the coupled difference while the paths stay close,
+  the whole run's precision once they decorrelate;
 * ``D_eff_extrapolated`` = D_eff − D_eff_step_bias, with se = √(se(D_eff)² + se(bias)²)
-  (the two treated as independent: the subsample is a tenth of the run by default);
+  (the two treated as independent: conservative when β < 1 shares the run's error);
 
-standard errors by the delete-one jackknife over *check batches* (contiguous groups of the
-subsample).
+standard errors by the delete-one jackknife over *check batches* (contiguous groups of whole
+blocks of the subsample), combined with the run's own jackknife se as stated.
 
 Verdict ``step_check`` (b = |D_eff_step_bias|, s = its se, target τ = se(D_eff), the run's
 statistical error, or ``step_tolerance`` · |D_eff| when that option is given):
@@ -53,7 +58,7 @@ import xarray as xr
 
 from ..integrators import SCHEME_ORDERS
 from ._common import check_range, msd_units, per_start, per_time, require, time_units, var
-from ._stats import jackknife_se, late_window, ols_slope, pooled_replicates
+from ._stats import batch_replicates, jackknife_se, late_window, ols_slope, pooled_replicates
 from .deff import DEFAULT_FIT_DECADES, effective_diffusivity
 
 PASSED, BIASED, INCONCLUSIVE = 0, 1, 2
@@ -71,7 +76,14 @@ def has_step_check(ds) -> bool:
 
 
 def weak_order(ds) -> float:
-    """Weak order of the run's integrator (from the ``integrator`` attribute)."""
+    """Weak order p of the run: the ``step_check_weak_order`` attribute the engine writes
+    (the scheme's, at most 1 with solid walls), else the integrator's."""
+    try:
+        order = float(ds.attrs["step_check_weak_order"])
+    except (KeyError, TypeError, ValueError):
+        order = math.nan
+    if math.isfinite(order) and order > 0:
+        return order
     name = str(ds.attrs.get("integrator", ""))
     if name not in SCHEME_ORDERS:
         from ..errors import InputDataError
@@ -85,6 +97,44 @@ def _variances(means):
     """Var Δx + Var Δy and Var Δx, Var Δy from (mean_dx, mean_dy, msd_x, msd_y, msd_xy)."""
     mean_dx, mean_dy, msd_x, msd_y, _ = means
     return msd_x - mean_dx**2 + msd_y - mean_dy**2
+
+
+def _se_or_nan(replicates):
+    return math.nan if replicates is None else jackknife_se(replicates)
+
+
+def _jackknife_cov(a, b):
+    """Jackknife covariance of two estimates from their delete-one replicates (axis 0)."""
+    count = a.shape[0]
+    return (count - 1) / count * ((a - a.mean(axis=0)) * (b - b.mean(axis=0))).sum(axis=0)
+
+
+def _controlled_difference(coarse, fine, run, coarse_reps, fine_reps, run_se, share):
+    """(E(2dt) − E(dt) estimate, its se, β) with the whole run as a control variate.
+
+    The subsample's coarse mean A and fine mean F share their paths; the whole run's mean R
+    estimates E(dt) too, from ``1/share`` times more particles (the subsample is part of it).
+    Of the unbiased estimates A − βF − (1 − β)R the least variance has β = Cov(A, F)/Var(F)
+    (a control variate; e.g. Glasserman 2003, *Monte Carlo Methods in Financial Engineering*,
+    §4.1): β ≈ 1 while the coupled paths stay close (the plain coupled difference A − F),
+    β → 0 once they decorrelate (then A − R, which spends the run's precision on E(dt)).
+    β is clipped to [0, 1] and estimated from the jackknife over check batches; the variance
+    is V_AA − 2βC_AF + β²V_FF + (1 − β)²S − 2(1 − β)(C_AF·share − βS), S = se(R)², with
+    Cov(A, R) = C_AF·share and Cov(F, R) = S because R contains the subsample.  Without the
+    run's se (no batches) β = 1.
+    """
+    v_aa = _jackknife_cov(coarse_reps, coarse_reps)
+    v_ff = _jackknife_cov(fine_reps, fine_reps)
+    c_af = _jackknife_cov(coarse_reps, fine_reps)
+    run_var = np.asarray(run_se, dtype=np.float64) ** 2
+    with np.errstate(divide="ignore", invalid="ignore"):
+        beta = np.where(np.isfinite(run_var) & (v_ff > 0), c_af / v_ff, 1.0)
+    beta = np.clip(np.nan_to_num(beta, nan=1.0), 0.0, 1.0)
+    run_var = np.where(np.isfinite(run_var), run_var, 0.0)
+    estimate = coarse - beta * fine - (1.0 - beta) * run
+    variance = (v_aa - 2 * beta * c_af + beta**2 * v_ff + (1 - beta) ** 2 * run_var
+                - 2 * (1 - beta) * (c_af * share - beta * run_var))
+    return estimate, np.sqrt(np.maximum(variance, 0.0)), beta
 
 
 def verdict(bias: float, bias_se: float, target: float) -> int:
@@ -150,32 +200,44 @@ def step_check(ds: xr.Dataset, *, fit_decades: float = DEFAULT_FIT_DECADES,
         def msd(values):
             return values[2] + values[3]
 
-        bias_msd = (msd(pooled["coarse"]) - msd(pooled["fine"])) / factor
-        bias_msd_reps = (msd(reps["coarse"]) - msd(reps["fine"])) / factor
-        bias_msd_se = jackknife_se(bias_msd_reps)
+        run = [np.asarray(part[n].values, dtype=np.float64) for n in _SUFFIXES]
+        run_reps = [batch_replicates(part, n) for n in _SUFFIXES]
+        share = counts[keep].sum() / float(np.asarray(part["batch_count"].values).sum())
+        bias_msd, bias_msd_se, beta_msd = _controlled_difference(
+            msd(pooled["coarse"]), msd(pooled["fine"]), msd(run), msd(reps["coarse"]),
+            msd(reps["fine"]), _se_or_nan(None if run_reps[2] is None
+                                          else msd(run_reps)), share)
+        bias_msd = bias_msd / factor
+        bias_msd_se = bias_msd_se / factor
         window = late_window(t, fit_decades, fit_start) & np.isfinite(bias_msd)
+        beta = math.nan
         if window.sum() >= 2:
             tw = t[window]
 
             def d_of(values):
                 return ols_slope(tw, _variances(values)[..., window])[0] / 4.0
 
-            bias = float((d_of(pooled["coarse"]) - d_of(pooled["fine"])) / factor)
-            bias_reps = (d_of(reps["coarse"]) - d_of(reps["fine"])) / factor
-            bias_se = float(jackknife_se(bias_reps))
+            run_d_reps = None if any(r is None for r in run_reps) else d_of(run_reps)
+            bias, bias_se, beta = (float(v) for v in _controlled_difference(
+                d_of(pooled["coarse"]), d_of(pooled["fine"]), d_of(run), d_of(reps["coarse"]),
+                d_of(reps["fine"]), _se_or_nan(run_d_reps), share))
+            bias /= factor
+            bias_se /= factor
         else:
             bias = bias_se = math.nan
         target = step_tolerance * abs(d_run) if step_tolerance is not None else d_se
         flag = verdict(bias, bias_se, target)
         out = {
             "step_bias_msd": var(("time",), bias_msd, "estimated step-size bias of msd: "
-                                 "(msd at 2 dt - msd at dt) / (2^p - 1) on the check subsample "
-                                 "(NaN at odd steps)", units, weak_order=order),
+                                 "(msd at 2 dt - msd at dt) / (2^p - 1), coupled subsample with the "
+                                 "whole run as control variate (NaN at odd steps)", units,
+                                 weak_order=order),
             "step_bias_msd_se": var(("time",), bias_msd_se, "standard error of step_bias_msd "
                                     "(jackknife over check batches)", units),
             "D_eff_step_bias": var((), bias, "estimated step-size bias of D_eff: (D_eff at "
-                                   "2 dt - D_eff at dt) / (2^p - 1) on the check subsample",
-                                   d_units, weak_order=order),
+                                   "2 dt - D_eff at dt) / (2^p - 1), coupled subsample with "
+                                   "the whole run as control variate", d_units,
+                                   weak_order=order, control_weight=beta),
             "D_eff_step_bias_se": var((), bias_se, "standard error of D_eff_step_bias "
                                       "(jackknife over check batches)", d_units),
             "D_eff_extrapolated": var((), d_run - bias, "Richardson-extrapolated D_eff: "
