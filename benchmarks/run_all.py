@@ -4,9 +4,9 @@ Run:  python benchmarks/run_all.py [--quick] [--output FILE]
 
 The kernel set: throughput against a NumPy loop and thread scaling (``bench_kernel``),
 accuracy per cost (``bench_accuracy``), memory (``bench_memory``), the step check's cost
-(``bench_stepcheck``) and compile latency (``bench_compile``).  Not included, run them on their own: ``bench_sweep.py`` (sweep
-backends), ``bench_cell_problem.py`` (the reference cell-problem solver) and
-``bench_gridded_obstacles.py`` (gridded and obstacle flows).
+(``bench_stepcheck``) and compile latency (``bench_compile``).  Not included, run them on
+their own: ``bench_sweep.py`` (sweep backends), ``bench_cell_problem.py`` (the reference
+cell-problem solver) and ``bench_gridded_obstacles.py`` (gridded and obstacle flows).
 
 Full sizes take 15–20 minutes on two free cores, most of it the memory case (10⁶
 particles × 10⁴ output steps, run twice); ``--quick`` is a smoke run of a minute or two.

@@ -177,7 +177,8 @@ def test_defaults():
 
 
 @pytest.mark.parametrize("run, noise, fragment", [
-    ({"step_check": True}, {"kappa": 0.0, "_replace": True}, "run.step_check = true needs noise.kappa > 0"),
+    ({"step_check": True}, {"kappa": 0.0, "_replace": True},
+     "run.step_check = true needs noise.kappa > 0"),
     ({"step_check": "yes"}, None, "run.step_check: expected true or false"),
     ({"step_check": True, "particles": 10}, None, "run.step_check = true needs "
                                                    "run.particles >= 16"),

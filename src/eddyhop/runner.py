@@ -25,8 +25,8 @@ from .noise import pack_noise
 from .rng import split_seed
 from .schedule import Schedule, build_schedule
 from .spec import MIN_CHECK_BATCH
-from .stepcheck import CHECK_COLUMNS, run_step_check
 from .starts import area_fraction, sample_starts
+from .stepcheck import CHECK_COLUMNS, run_step_check
 
 MAX_BLOCK = 256
 # Random streams of different start regions are separated by this particle-index offset.

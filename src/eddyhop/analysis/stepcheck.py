@@ -10,8 +10,9 @@ E(dt) = c dt^p + o(dt^p) in every expectation, so
 
 (Richardson's argument; p from ``integrators.SCHEME_ORDERS``: 1 for Euler–Maruyama and
 Milstein, 2 for ``strang_rk2``, but at most 1 for flows with solid walls, whose reflection step
-is weak order 1 — the engine records p as the ``step_check_weak_order`` attribute).  Because the two paths share their noise, the per-particle
-difference has a far smaller variance than either path.  Estimators (per start region):
+is weak order 1 — the engine records p as the ``step_check_weak_order`` attribute).  While the
+two paths share their noise and stay close, the per-particle difference has a far smaller
+variance than either path.  Estimators (per start region):
 
 * ``step_bias_msd(t)`` = [msd_coarse(t) − msd_fine(t)] / (2^p − 1) at the output times on even
   fine steps (NaN at odd steps, where no coarse state exists);
@@ -66,8 +67,8 @@ FLAG_MEANINGS = "passed biased inconclusive"
 # Standard errors of the bias estimate that separate the verdicts (two-sided ≈ 95 %).
 VERDICT_SE = 2.0
 _SUFFIXES = ("mean_dx", "mean_dy", "msd_x", "msd_y", "msd_xy")
-CHECK_VARIABLES = tuple(f"check_{path}_{name}" for path in ("fine", "coarse")
-                        for name in _SUFFIXES) + ("check_count",)
+CHECK_VARIABLES = (*(f"check_{path}_{name}" for path in ("fine", "coarse")
+                     for name in _SUFFIXES), "check_count")
 
 
 def has_step_check(ds) -> bool:
@@ -177,7 +178,7 @@ def step_check(ds: xr.Dataset, *, fit_decades: float = DEFAULT_FIT_DECADES,
         # convergence of the run is effective_diffusivity's own verdict, warned about there
         warnings.simplefilter("ignore")
         deff = effective_diffusivity(ds, fit_decades=fit_decades, fit_start=fit_start)
-    rule = (f"b = |D_eff_step_bias|, s = D_eff_step_bias_se, target = "
+    rule = ("b = |D_eff_step_bias|, s = D_eff_step_bias_se, target = "
             + (f"{step_tolerance:g} |D_eff|" if step_tolerance is not None else "D_eff_se")
             + f": biased if b - {VERDICT_SE:g} s > target; passed if b <= target and "
             "s <= target; otherwise (or without an estimate) inconclusive")
@@ -203,7 +204,7 @@ def step_check(ds: xr.Dataset, *, fit_decades: float = DEFAULT_FIT_DECADES,
         run = [np.asarray(part[n].values, dtype=np.float64) for n in _SUFFIXES]
         run_reps = [batch_replicates(part, n) for n in _SUFFIXES]
         share = counts[keep].sum() / float(np.asarray(part["batch_count"].values).sum())
-        bias_msd, bias_msd_se, beta_msd = _controlled_difference(
+        bias_msd, bias_msd_se, _ = _controlled_difference(
             msd(pooled["coarse"]), msd(pooled["fine"]), msd(run), msd(reps["coarse"]),
             msd(reps["fine"]), _se_or_nan(None if run_reps[2] is None
                                           else msd(run_reps)), share)
@@ -229,8 +230,8 @@ def step_check(ds: xr.Dataset, *, fit_decades: float = DEFAULT_FIT_DECADES,
         flag = verdict(bias, bias_se, target)
         out = {
             "step_bias_msd": var(("time",), bias_msd, "estimated step-size bias of msd: "
-                                 "(msd at 2 dt - msd at dt) / (2^p - 1), coupled subsample with the "
-                                 "whole run as control variate (NaN at odd steps)", units,
+                                 "(msd at 2 dt - msd at dt) / (2^p - 1), coupled subsample with "
+                                 "the whole run as control variate (NaN at odd steps)", units,
                                  weak_order=order),
             "step_bias_msd_se": var(("time",), bias_msd_se, "standard error of step_bias_msd "
                                     "(jackknife over check batches)", units),
