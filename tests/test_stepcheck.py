@@ -215,7 +215,13 @@ def test_raw_variables_are_labelled():
     ds, _ = _simulate(study)
     for name in [n for n in ds.data_vars if n.startswith("check_")]:
         assert ds[name].attrs["long_name"] and "units" in ds[name].attrs
-    assert ds.attrs["step_check_particles"] == 64 // 4 * 4 or ds.attrs["step_check_particles"]
+    # 64 particles in blocks of 4: the default subsample, 16, is 4 blocks in 2 check batches
+    assert ds.attrs["step_check_particles"] == 16
+    assert ds["check_count"].values.tolist() == [8, 8]
     assert "check_batch" in ds.coords
+    assert ds.attrs["step_check_weak_order"] == 2.0  # strang_rk2
+    em, _ = _simulate(make_study(run={"particles": 64, "batches": 4,
+                                      "integrator": "euler_maruyama"}))
+    assert em.attrs["step_check_weak_order"] == 1.0
     result = run_ensemble(make_study(run={"particles": 64, "batches": 4, "step_check": False}))
     assert result.starts[0].check_counts is None

@@ -8,9 +8,10 @@ E(dt) = c dt^p + o(dt^p) in every expectation, so
 
     bias(dt) ≈ [E(2 dt) − E(dt)] / (2^p − 1)
 
-(Richardson's argument; p from ``integrators.SCHEME_ORDERS``: 1 for Euler–Maruyama and
-Milstein, 2 for ``strang_rk2``, but at most 1 for flows with solid walls, whose reflection step
-is weak order 1 — the engine records p as the ``step_check_weak_order`` attribute).  While the
+(Richardson's argument; p is the scheme's weak order, ``integrators.SCHEME_ORDERS``: 1 for
+Euler–Maruyama and Milstein, 2 for ``strang_rk2``, but at most 1 for flows with solid walls,
+whose reflection step is weak order 1 — the engine records p as the ``step_check_weak_order``
+attribute).  While the
 two paths share their noise and stay close, the per-particle difference has a far smaller
 variance than either path.  Estimators (per start region):
 
@@ -57,7 +58,6 @@ import warnings
 import numpy as np
 import xarray as xr
 
-from ..integrators import SCHEME_ORDERS
 from ._common import check_range, msd_units, per_start, per_time, require, time_units, var
 from ._stats import batch_replicates, jackknife_se, late_window, ols_slope, pooled_replicates
 from .deff import DEFAULT_FIT_DECADES, effective_diffusivity
@@ -77,21 +77,19 @@ def has_step_check(ds) -> bool:
 
 
 def weak_order(ds) -> float:
-    """Weak order p of the run: the ``step_check_weak_order`` attribute the engine writes
-    (the scheme's, at most 1 with solid walls), else the integrator's."""
+    """Weak order p of the run's scheme that the engine recorded (``step_check_weak_order``:
+    ``integrators.SCHEME_ORDERS``, at most 1 with solid walls)."""
     try:
         order = float(ds.attrs["step_check_weak_order"])
     except (KeyError, TypeError, ValueError):
         order = math.nan
-    if math.isfinite(order) and order > 0:
-        return order
-    name = str(ds.attrs.get("integrator", ""))
-    if name not in SCHEME_ORDERS:
+    if not (math.isfinite(order) and order > 0):
         from ..errors import InputDataError
 
-        raise InputDataError(f"step_check needs the run's integrator attribute (one of "
-                             f"{', '.join(SCHEME_ORDERS)}), got {name!r}")
-    return SCHEME_ORDERS[name][1]
+        raise InputDataError("step_check needs the attribute step_check_weak_order (a positive "
+                             "number) that eddyhop run writes with the step check's variables; "
+                             f"got {ds.attrs.get('step_check_weak_order')!r}")
+    return order
 
 
 def _variances(means):
