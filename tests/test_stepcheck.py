@@ -81,6 +81,7 @@ def test_strang_splitting_at_pe10_dt02_is_not_flagged(subsample):
     assert result["step_check"].attrs["flag_meanings"] == "passed biased inconclusive"
     for name in ("step_bias_msd", "step_bias_msd_se", "D_eff_step_bias", "D_eff_step_bias_se",
                  "D_eff_extrapolated", "D_eff_extrapolated_se", "step_check",
+                 "step_check_target",
                  "step_check_suggested_dt"):
         assert result[name].attrs["long_name"] and "units" in result[name].attrs
 

@@ -22,11 +22,13 @@ variance than either path.  Estimators (per start region):
   same late-time window, ``_stats.late_window``/``ols_slope``), restricted to the window's
   even-step times;
 * in both, the fine term is β·(subsample) + (1 − β)·(whole run) with the variance-minimising
-  β = Cov(coarse, fine)/Var(fine) ∈ [0, 1] (a control variate, :func:`_controlled_difference`;
-  β is the ``control_weight`` attribute): the coupled difference while the paths stay close,
+  β = Cov(coarse, fine)/Var(fine) ∈ [0, 1] (a control variate, :func:`_controlled_difference`,
+  β chosen separately for each time and for D_eff): the coupled difference while the paths
+  stay close,
   the whole run's precision once they decorrelate;
-* ``D_eff_extrapolated`` = D_eff − D_eff_step_bias, with se = √(se(D_eff)² + se(bias)²)
-  (the two treated as independent: conservative when β < 1 shares the run's error);
+* ``D_eff_extrapolated`` = D_eff − D_eff_step_bias, its se from the same covariances (the bias
+  estimate shares the run's own D_eff when β < 1);
+* ``step_check_target`` = the target τ of the verdict (below);
 
 standard errors by the delete-one jackknife over *check batches* (contiguous groups of whole
 blocks of the subsample), combined with the run's own jackknife se as stated.
@@ -109,7 +111,8 @@ def _jackknife_cov(a, b):
 
 
 def _controlled_difference(coarse, fine, run, coarse_reps, fine_reps, run_se, share):
-    """(E(2dt) − E(dt) estimate, its se, β) with the whole run as a control variate.
+    """(E(2dt) − E(dt) estimate, its se, β, variance parts) with the whole run as a control
+    variate.
 
     The subsample's coarse mean A and fine mean F share their paths; the whole run's mean R
     estimates E(dt) too, from ``1/share`` times more particles (the subsample is part of it).
@@ -120,7 +123,8 @@ def _controlled_difference(coarse, fine, run, coarse_reps, fine_reps, run_se, sh
     β is clipped to [0, 1] and estimated from the jackknife over check batches; the variance
     is V_AA − 2βC_AF + β²V_FF + (1 − β)²S − 2(1 − β)(C_AF·share − βS), S = se(R)², with
     Cov(A, R) = C_AF·share and Cov(F, R) = S because R contains the subsample.  Without the
-    run's se (no batches) β = 1.
+    run's se (no batches) β = 1.  The parts (Var(A − βF), Cov(A − βF, R), S) give the error of
+    anything else built from R and the estimate (the extrapolated D_eff).
     """
     v_aa = _jackknife_cov(coarse_reps, coarse_reps)
     v_ff = _jackknife_cov(fine_reps, fine_reps)
@@ -131,9 +135,11 @@ def _controlled_difference(coarse, fine, run, coarse_reps, fine_reps, run_se, sh
     beta = np.clip(np.nan_to_num(beta, nan=1.0), 0.0, 1.0)
     run_var = np.where(np.isfinite(run_var), run_var, 0.0)
     estimate = coarse - beta * fine - (1.0 - beta) * run
-    variance = (v_aa - 2 * beta * c_af + beta**2 * v_ff + (1 - beta) ** 2 * run_var
-                - 2 * (1 - beta) * (c_af * share - beta * run_var))
-    return estimate, np.sqrt(np.maximum(variance, 0.0)), beta
+    controlled = v_aa - 2 * beta * c_af + beta**2 * v_ff  # Var(A − βF)
+    with_run = c_af * share - beta * run_var  # Cov(A − βF, R)
+    variance = controlled + (1 - beta) ** 2 * run_var - 2 * (1 - beta) * with_run
+    parts = {"controlled": controlled, "with_run": with_run, "run": run_var}
+    return estimate, np.sqrt(np.maximum(variance, 0.0)), beta, parts
 
 
 def verdict(bias: float, bias_se: float, target: float) -> int:
@@ -202,7 +208,7 @@ def step_check(ds: xr.Dataset, *, fit_decades: float = DEFAULT_FIT_DECADES,
         run = [np.asarray(part[n].values, dtype=np.float64) for n in _SUFFIXES]
         run_reps = [batch_replicates(part, n) for n in _SUFFIXES]
         share = counts[keep].sum() / float(np.asarray(part["batch_count"].values).sum())
-        bias_msd, bias_msd_se, _ = _controlled_difference(
+        bias_msd, bias_msd_se, _, _ = _controlled_difference(
             msd(pooled["coarse"]), msd(pooled["fine"]), msd(run), msd(reps["coarse"]),
             msd(reps["fine"]), _se_or_nan(None if run_reps[2] is None
                                           else msd(run_reps)), share)
@@ -217,13 +223,18 @@ def step_check(ds: xr.Dataset, *, fit_decades: float = DEFAULT_FIT_DECADES,
                 return ols_slope(tw, _variances(values)[..., window])[0] / 4.0
 
             run_d_reps = None if any(r is None for r in run_reps) else d_of(run_reps)
-            bias, bias_se, beta = (float(v) for v in _controlled_difference(
+            bias, bias_se, beta, parts = _controlled_difference(
                 d_of(pooled["coarse"]), d_of(pooled["fine"]), d_of(run), d_of(reps["coarse"]),
-                d_of(reps["fine"]), _se_or_nan(run_d_reps), share))
-            bias /= factor
-            bias_se /= factor
+                d_of(reps["fine"]), _se_or_nan(run_d_reps), share)
+            bias = float(bias) / factor
+            bias_se = float(bias_se) / factor
+            # D_run − bias = g R − (A − βF)/k with g = 1 + (1 − β)/k, k = 2^p − 1
+            gain = 1.0 + (1.0 - float(beta)) / factor
+            ext_var = (gain**2 * float(parts["run"]) + float(parts["controlled"]) / factor**2
+                       - 2 * gain * float(parts["with_run"]) / factor)
+            ext_se = math.sqrt(max(ext_var, 0.0)) if math.isfinite(d_se) else math.nan
         else:
-            bias = bias_se = math.nan
+            bias = bias_se = ext_se = math.nan
         target = step_tolerance * abs(d_run) if step_tolerance is not None else d_se
         flag = verdict(bias, bias_se, target)
         out = {
@@ -236,14 +247,16 @@ def step_check(ds: xr.Dataset, *, fit_decades: float = DEFAULT_FIT_DECADES,
             "D_eff_step_bias": var((), bias, "estimated step-size bias of D_eff: (D_eff at "
                                    "2 dt - D_eff at dt) / (2^p - 1), coupled subsample with "
                                    "the whole run as control variate", d_units,
-                                   weak_order=order, control_weight=beta),
+                                   weak_order=order),
             "D_eff_step_bias_se": var((), bias_se, "standard error of D_eff_step_bias "
                                       "(jackknife over check batches)", d_units),
             "D_eff_extrapolated": var((), d_run - bias, "Richardson-extrapolated D_eff: "
                                       "D_eff - D_eff_step_bias", d_units),
-            "D_eff_extrapolated_se": var((), math.sqrt(d_se**2 + bias_se**2),
-                                         "standard error of D_eff_extrapolated: "
-                                         "sqrt(D_eff_se^2 + D_eff_step_bias_se^2)", d_units),
+            "D_eff_extrapolated_se": var((), ext_se, "standard error of D_eff_extrapolated "
+                                         "(from the same jackknife covariances as the bias, "
+                                         "which shares the run's own estimate)", d_units),
+            "step_check_target": var((), target, "target of the step check: the statistical "
+                                     "error D_eff_se, or step_tolerance |D_eff|", d_units),
             "step_check": var((), np.int8(flag), "verdict of the step check on run.dt: "
                               "0 passed, 1 biased, 2 inconclusive", "1",
                               flag_values=np.array([PASSED, BIASED, INCONCLUSIVE],
@@ -273,12 +286,11 @@ def step_bias_messages(result: xr.Dataset) -> list[str]:
             return float(np.atleast_1d(result[name].values)[i])
 
         where = f"start '{label}': " if label is not None else ""
-        d_se = math.sqrt(max(pick("D_eff_extrapolated_se") ** 2
-                             - pick("D_eff_step_bias_se") ** 2, 0.0))
         word = "biased" if flag == BIASED else "inconclusive"
         text = (f"{where}step check {word}: D_eff step-size bias "
                 f"{pick('D_eff_step_bias'):.3g} ± {pick('D_eff_step_bias_se'):.2g} against a "
-                f"statistical error of D_eff of {d_se:.2g}")
+                f"target of {pick('step_check_target'):.2g} (the statistical error of D_eff "
+                "unless step_tolerance is given)")
         suggestion = pick("step_check_suggested_dt")
         if flag == INCONCLUSIVE:
             text += " — inconclusive: the check cannot tell whether dt is small enough " \
