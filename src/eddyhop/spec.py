@@ -32,8 +32,9 @@ MIN_CHECK_PARTICLES = 2 * MIN_CHECK_BATCH
 # Default subsample of the step check: this fraction of run.particles (at least
 # MIN_CHECK_PARTICLES); the check integrates it once more at 2·dt (the run's own paths are the
 # fine ones), so it costs
-# about 0.85 × this fraction of the run: ≈ 17 % (benchmarks/bench_stepcheck.py).
-STEP_CHECK_FRACTION = 0.2
+# about as much per particle as the run itself: ≈ 15-16 % of the run, within the 20 % budget
+# (benchmarks/bench_stepcheck.py measured 1.21 at a fifth).
+STEP_CHECK_FRACTION = 0.15
 INTEGRATORS = ("euler_maruyama", "milstein", "strang_rk2", "rk4")
 NOISE_MODELS = ("constant", "modulated")
 PECLET_CONVENTIONS = ("wavenumber", "cell_side")
