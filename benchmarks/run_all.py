@@ -3,10 +3,10 @@
 Run:  python benchmarks/run_all.py [--quick] [--output FILE]
 
 The kernel set: throughput against a NumPy loop and thread scaling (``bench_kernel``),
-accuracy per cost (``bench_accuracy``), memory (``bench_memory``) and compile latency
-(``bench_compile``).  Not included, run them on their own: ``bench_sweep.py`` (sweep
-backends), ``bench_cell_problem.py`` (the reference cell-problem solver) and
-``bench_gridded_obstacles.py`` (gridded and obstacle flows).
+accuracy per cost (``bench_accuracy``), memory (``bench_memory``), the step check's cost
+(``bench_stepcheck``) and compile latency (``bench_compile``).  Not included, run them on
+their own: ``bench_sweep.py`` (sweep backends), ``bench_cell_problem.py`` (the reference
+cell-problem solver) and ``bench_gridded_obstacles.py`` (gridded and obstacle flows).
 
 Full sizes take 15–20 minutes on two free cores, most of it the memory case (10⁶
 particles × 10⁴ output steps, run twice); ``--quick`` is a smoke run of a minute or two.
@@ -24,6 +24,7 @@ import bench_accuracy
 import bench_compile
 import bench_kernel
 import bench_memory
+import bench_stepcheck
 import numba
 import numpy as np
 
@@ -55,7 +56,7 @@ def main(argv=None):
                   f"{eddyhop.__version__}, numba {numba.__version__}, numpy {np.__version__}, "
                   f"Python {sys.version.split()[0]}{', quick sizes' if quick else ''})\n")
             for module, options in ((bench_kernel, quick), (bench_accuracy, quick),
-                                    (bench_memory, quick),
+                                    (bench_memory, quick), (bench_stepcheck, quick),
                                     (bench_compile, ["--repeats", "1"] if quick else [])):
                 start = time.perf_counter()
                 module.main(options)

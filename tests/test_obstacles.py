@@ -344,7 +344,8 @@ def test_no_particle_ever_inside_a_solid_long():
                        noise={"_replace": True, "kappa": kappa},
                        run={"particles": particles, "dt": dt, "t_end": steps * dt,
                             "n_times": 8, "seed": 8, "tracked": particles,
-                            "track_samples": 40, "spacing": "linear"})
+                            "track_samples": 40, "spacing": "linear",
+                            "integrator": "euler_maruyama", "step_check": False})
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", StepSizeWarning)  # dt vs the cell diffusion time
         ds = eddyhop.simulate(study, progress=False)

@@ -101,10 +101,13 @@ def test_defaults_resolve():
 @pytest.mark.parametrize(
     "sections, phrase",
     [
-        # dt·U·k = 0.2 > 0.1: Euler-type steps distort eddy orbits
-        ({"run": {"dt": 0.2, "t_end": 4.0}}, "advective times 1/(U k)"),
+        # static rules apply to Euler-type steps without the measured step check:
+        # dt·U·k = 0.2 > 0.01: Euler-type steps distort eddy orbits
+        ({"run": {"dt": 0.2, "t_end": 4.0, "integrator": "euler_maruyama",
+                  "step_check": False}}, "advective times 1/(U k)"),
         # dt·κ·k² = 0.02 > 0.01 with Pe = 0.5 (κ = 2): the cell diffusion time is resolved badly
-        ({"noise": {"peclet": 0.5}, "run": {"dt": 0.01}}, "cell diffusion times"),
+        ({"noise": {"peclet": 0.5}, "run": {"dt": 0.01, "integrator": "euler_maruyama",
+                                            "step_check": False}}, "cell diffusion times"),
         # period 2π/ω = 0.628 with dt = 0.02: 31 steps per period < 50
         ({"flow": {"family": "oscillating_cellular", "B": 0.3, "omega": 10.0},
           "noise": {"peclet": 10.0}}, "flow period"),
@@ -126,11 +129,13 @@ def test_each_step_size_warning_fires_once_per_run(sections, phrase):
 
 
 def test_a_strong_drift_counts_in_the_advective_step_check():
-    """dt·U·k = 0.02 for the cells, but a drift of 8 U makes the peak speed ≈ 9 U."""
+    """dt·U·k = 0.005 for the cells, but a drift of 8 U makes the peak speed ≈ 9 U (Euler–
+    Maruyama without the measured check: static limit 0.01)."""
     from eddyhop.runner import step_size_warnings
 
-    calm = make_study(flow={"family": "drifting_cellular"}, run={"dt": 0.02})
-    windy = make_study(flow={"family": "drifting_cellular", "drift_x": 8.0}, run={"dt": 0.02})
+    run = {"dt": 0.005, "integrator": "euler_maruyama", "step_check": False}
+    calm = make_study(flow={"family": "drifting_cellular"}, run=run)
+    windy = make_study(flow={"family": "drifting_cellular", "drift_x": 8.0}, run=run)
     assert not [m for m in step_size_warnings(calm) if "advective" in m]
     assert [m for m in step_size_warnings(windy) if "advective" in m and "peak speed" in m]
 

@@ -28,6 +28,8 @@ _LAZY = {
     "StudyError": ("eddyhop.errors", "StudyError"),
     "BlowUpError": ("eddyhop.errors", "BlowUpError"),
     "EddyhopError": ("eddyhop.errors", "EddyhopError"),
+    "StepSizeWarning": ("eddyhop.runner", "StepSizeWarning"),
+    "StepBiasWarning": ("eddyhop.runner", "StepBiasWarning"),
 }
 
 

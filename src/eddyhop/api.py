@@ -15,7 +15,23 @@ def simulate(study: Study, *, workers: int | None = None, chunk: int | None = No
     from .runner import run_ensemble
 
     result = run_ensemble(study, workers=workers, chunk=chunk, progress=progress)
-    return build_dataset(study, result)
+    ds = build_dataset(study, result)
+    _warn_step_bias(ds)
+    return ds
+
+
+def _warn_step_bias(ds) -> None:
+    """A :class:`StepBiasWarning` when the measured step-size bias is not shown below the
+    statistical error of D_eff (verdict ``biased`` or ``inconclusive``)."""
+    from .analysis.stepcheck import has_step_check, step_bias_messages, step_check
+    from .runner import StepBiasWarning
+
+    if not has_step_check(ds):
+        return
+    import warnings
+
+    for line in step_bias_messages(step_check(ds)):
+        warnings.warn(line, StepBiasWarning, stacklevel=3)
 
 
 def run_study(path_or_study, out=None, **options):

@@ -13,8 +13,13 @@ import xarray as xr
 
 from .io import provenance_attrs, units_for
 from .kernel import MOMENT_COLUMNS, N_BASE
+from .stepcheck import CHECK_COLUMNS
 
 _COL = {name: i for i, name in enumerate(MOMENT_COLUMNS)}
+_CHECK_COL = {name: i for i, name in enumerate(CHECK_COLUMNS)}
+# step-check column → variable suffix (check_fine_<suffix>, check_coarse_<suffix>)
+_CHECK_NAMES = {"dx": "mean_dx", "dy": "mean_dy", "dx2": "msd_x", "dy2": "msd_y",
+                "dxdy": "msd_xy"}
 
 
 def _per_start(start, result, units):
@@ -67,6 +72,16 @@ def _per_start(start, result, units):
         "start_kind": ((), start.kind),
         "start_area_fraction": ((), start.area_fraction),
     }
+    if start.check_counts is not None:
+        # step check: per check-batch means of the fine (dt) and coarse (2·dt) paths of the
+        # same particles on the same Brownian path (coarse NaN at odd output steps)
+        check_counts = start.check_counts
+        data["check_count"] = (("check_batch",), check_counts)
+        for path, sums in (("fine", start.check_fine), ("coarse", start.check_coarse)):
+            means = sums / check_counts[:, None, None]
+            for column, name in _CHECK_NAMES.items():
+                data[f"check_{path}_{name}"] = (("check_batch", "time"),
+                                                means[:, :, _CHECK_COL[column]])
     if result.orders.size:
         q = result.orders.size
         abs_moments = mean[:, N_BASE:N_BASE + 3 * q].reshape(-1, q, 3)
@@ -139,7 +154,15 @@ VARIABLE_ATTRS = {
     "residence_pdf": ("probability density of cell residence times", "T-1"),
     "flight_count": ("number of flights per length bin (flight between two traps)", "1"),
     "hop_rate": ("cell changes per particle per unit time", "T-1"),
+    "check_count": ("particles per check batch of the step check", "1"),
 }
+_CHECK_TEXT = {"mean_dx": ("dx", "L"), "mean_dy": ("dy", "L"), "msd_x": ("dx^2", "L2"),
+               "msd_y": ("dy^2", "L2"), "msd_xy": ("dx dy", "L2")}
+for _path, _step in (("fine", "at run.dt (the run's own paths)"),
+                     ("coarse", "at 2 run.dt on the same Brownian path; NaN at odd steps")):
+    for _name, (_what, _unit) in _CHECK_TEXT.items():
+        VARIABLE_ATTRS[f"check_{_path}_{_name}"] = (
+            f"step check: check-batch mean of {_what}, {_path} path {_step}", _unit)
 
 COORD_ATTRS = {
     "time": ("time since release", "T"),
@@ -147,6 +170,7 @@ COORD_ATTRS = {
     "aging_time": ("aging time t_a (reference time of aged displacements)", "T"),
     "order": ("order q of the absolute moment", "1"),
     "batch": ("index of a contiguous batch of particles", "1"),
+    "check_batch": ("index of a contiguous batch of the step check's subsample", "1"),
     "particle": ("index of a tracked particle", "1"),
     "track_time": ("time of a tracked-trajectory sample", "T"),
     "residence_time": ("cell residence time (geometric bin centre)", "T"),
@@ -163,6 +187,18 @@ def _label(name, table, units, n_orders=None):
     return attrs
 
 
+def step_check_weak_order(study) -> float:
+    """Weak order p that the step check's Richardson estimate uses: the scheme's
+    (``integrators.SCHEME_ORDERS``), but at most 1 where tracers reflect at solid walls (the
+    symmetrized reflection is weak order 1: Bossy, Gobet & Talay 2004, J. Appl. Probab. 41,
+    877–889, quoted from memory; docs/obstacles_and_grids.md measures 0.89 ± 0.08)."""
+    from .integrators import SCHEME_ORDERS
+    from .reference.fields import WALLED_FAMILIES
+
+    order = SCHEME_ORDERS[study.run.integrator][1]
+    return min(order, 1.0) if study.flow.family in WALLED_FAMILIES else order
+
+
 def build_dataset(study, result) -> xr.Dataset:
     """Dataset of a Monte Carlo run (``start`` is a dimension when the study has several)."""
     schedule = result.schedule
@@ -176,6 +212,8 @@ def build_dataset(study, result) -> xr.Dataset:
         "time": schedule.times,
         "batch": np.arange(result.batches),
     }
+    if "check_count" in ds:
+        coords["check_batch"] = np.arange(ds.sizes["check_batch"])
     if result.orders.size:
         coords["order"] = result.orders
     if schedule.aging_steps.size:
@@ -217,7 +255,10 @@ def build_dataset(study, result) -> xr.Dataset:
         "block_size": result.block_size,
         "n_batches": result.batches,
         "step_size_warnings": " | ".join(result.warnings) if result.warnings else "none",
+        "step_check_particles": result.step_check_particles,
     }
+    if result.step_check_particles:
+        extra["step_check_weak_order"] = step_check_weak_order(study)
     if study.flow.model.name == "gridded":  # how faithful the simulated field is to the file
         from .flows.gridded import field_attributes
 

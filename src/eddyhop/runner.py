@@ -10,6 +10,7 @@ positions exist only for the starts of the current start region, the kernel stre
 
 from __future__ import annotations
 
+import itertools
 import math
 import warnings
 from dataclasses import dataclass, field
@@ -19,11 +20,13 @@ import numpy as np
 from .errors import BlowUpError
 from .flows.compiled import velocity as _velocity  # noqa: F401  (compiled with the kernel)
 from .integrators import SCHEME_CODES
-from .kernel import AGED_COLUMNS, N_BASE, run_particles
+from .kernel import AGED_COLUMNS, MOMENT_COLUMNS, N_BASE, run_particles
 from .noise import pack_noise
 from .rng import split_seed
 from .schedule import Schedule, build_schedule
+from .spec import MIN_CHECK_BATCH
 from .starts import area_fraction, sample_starts
+from .stepcheck import CHECK_COLUMNS, run_step_check
 
 MAX_BLOCK = 256
 # Random streams of different start regions are separated by this particle-index offset.
@@ -32,6 +35,11 @@ STREAM_STRIDE = 1 << 40
 
 class StepSizeWarning(UserWarning):
     """dt is large against a time scale of the flow or the noise."""
+
+
+class StepBiasWarning(UserWarning):
+    """The measured step-size bias of D_eff exceeds its statistical error (or the tolerance),
+    or the step check cannot tell; the message names the bias, the error and a dt to use."""
 
 
 def block_size_for(particles: int, batches: int) -> int:
@@ -51,26 +59,53 @@ def _peak_speed(family, params, n: int = 64) -> float:
     return float(np.max(speed[np.isfinite(speed)], initial=0.0))
 
 
+# dt·U·k beyond which a scheme's static warning fires when no step check measures the bias:
+# Euler-type steps (weak order 1) bias the cellular-flow D_eff by ≈ 0.8 % per 0.01 of dt·U·k
+# at Pe = 10 and far more at high Pe (measured: +48 % at dt·U·k = 0.05, Pe = 100); the
+# splitting scheme is unbiased within 1 % at dt·U·k = 0.2, Pe = 10 (docs/performance.md).
+STATIC_ADVECTIVE_LIMIT = {"euler_maruyama": 0.01, "milstein": 0.01, "strang_rk2": 0.25,
+                          "rk4": 0.5}
+
+
 def step_size_warnings(study) -> list[str]:
-    """Plain-language warnings when dt is large against the run's time scales."""
+    """Plain-language warnings when dt is large against the run's time scales.
+
+    With the step check on (``run.step_check``) the accuracy of dt is *measured*
+    (``stepcheck.py``, ``analysis.step_check``), so the static accuracy rules give way to it and
+    only the flow-period resolution is checked here.  Without it the rules depend on the scheme:
+    dt·U·k above ``STATIC_ADVECTIVE_LIMIT[integrator]`` at the peak speed, and, for the
+    Euler-type schemes, dt·κ·k² above 0.01.
+    """
     family = study.flow.model
     params = study.flow.params
-    # the fastest speed on a grid over one period, so that a strong drift or large Fourier
-    # amplitudes count, not only the nominal scale U
-    velocity_scale = max(family.velocity_scale(params), _peak_speed(family, params))
-    k = family.wavenumber(params)
-    dt = study.run.dt
+    run = study.run
+    dt = run.dt
     kappa = study.noise.kappa
     messages = []
-    if velocity_scale > 0 and dt * velocity_scale * k > 0.1:
-        messages.append(
-            f"run.dt = {dt:g} is {dt * velocity_scale * k:.3g} advective times 1/(U k) at the "
-            f"peak speed {velocity_scale:.3g}; keep dt·U·k below 0.1 (Euler-type steps "
-            "distort eddy orbits, biasing D_eff by roughly 1% per 0.01 of dt·U·k)")
-    if kappa > 0 and dt * kappa * k * k > 0.01:
-        messages.append(
-            f"run.dt = {dt:g} is {dt * kappa * k * k:.3g} cell diffusion times 1/(kappa k^2); "
-            "keep it below 0.01")
+    if not run.step_check:
+        # the fastest speed on a grid over one period, so that a strong drift or large Fourier
+        # amplitudes count, not only the nominal scale U
+        velocity_scale = max(family.velocity_scale(params), _peak_speed(family, params))
+        k = family.wavenumber(params)
+        scheme = run.integrator
+        limit = STATIC_ADVECTIVE_LIMIT[scheme]
+        euler_type = scheme in ("euler_maruyama", "milstein")
+        advective = dt * velocity_scale * k
+        if velocity_scale > 0 and advective > limit:
+            why = ("Euler-type steps distort eddy orbits: the D_eff bias is about 1% per 0.01 "
+                   "of dt·U·k at Pe = 10 and grows with Pe" if euler_type else
+                   f"{scheme} loses accuracy on eddy orbits beyond that")
+            measure = (" — or turn on run.step_check to measure the bias" if kappa > 0
+                       else "")
+            messages.append(
+                f"run.dt = {dt:g} is {advective:.3g} advective times 1/(U k) at the peak speed "
+                f"{velocity_scale:.3g}; with {scheme} keep dt·U·k below {limit:g} ({why})"
+                f"{measure}")
+        if euler_type and kappa > 0 and dt * kappa * k * k > 0.01:
+            messages.append(
+                f"run.dt = {dt:g} is {dt * kappa * k * k:.3g} cell diffusion times "
+                f"1/(kappa k^2); with {scheme} keep it below 0.01 — or turn on run.step_check "
+                "to measure the bias")
     period = family.time_period(params)
     if period is not None and dt > period / 50:
         messages.append(f"run.dt = {dt:g} resolves the flow period {period:.4g} with fewer than "
@@ -94,6 +129,11 @@ class StartSums:
     residence_counts: np.ndarray  # [bins]
     flight_counts: np.ndarray  # [bins]
     hops: float
+    # step check (None when off): particles per check batch [C] and sums [C, T, 5] of the
+    # fine (dt) and coarse (2·dt) paths, coarse NaN at odd output steps
+    check_counts: np.ndarray | None = None
+    check_fine: np.ndarray | None = None
+    check_coarse: np.ndarray | None = None
 
 
 @dataclass
@@ -106,6 +146,7 @@ class EnsembleResult:
     flight_edges: np.ndarray
     starts: list = field(default_factory=list)
     warnings: list = field(default_factory=list)
+    step_check_particles: int = 0  # per start region; 0 when the check is off
 
 
 @dataclass
@@ -160,6 +201,60 @@ def _run_chunk(ctx: _Context, stream_offset: int, first: int, x0, y0):
         residence, flights, hops, status,
     )
     return moments, aged, tracks, residence, flights, hops, status
+
+
+def _run_check_batch(ctx: _Context, stream_offset: int, first: int, x0, y0):
+    s = ctx.schedule
+    coarse = np.zeros((s.out_steps.size, len(CHECK_COLUMNS)))
+    status = np.full(2, -1, dtype=np.int64)
+    run_step_check(ctx.fcode, ctx.fp, ctx.ncode, ctx.nq, ctx.scheme, ctx.dt, ctx.key[0],
+                   ctx.key[1], x0, y0, first, stream_offset, s.out_steps, False,
+                   np.zeros((0, len(CHECK_COLUMNS))), coarse, status)
+    return coarse, status
+
+
+def check_plan(step_check_particles: int, particles: int, block: int, batches: int):
+    """(subsample size, check batch of every subsample block) of the step check.
+
+    The subsample is the first ``step_check_particles`` particles of each start region rounded
+    up to whole blocks (so that its fine-path sums are the ensemble's own block sums), split
+    into min(batches, blocks, size // MIN_CHECK_BATCH) contiguous check batches of whole
+    blocks — a rule of the study, never of the machine.  (0, empty) when the subsample is too
+    small for a jackknife (fewer than two check batches).
+    """
+    n_blocks = min(-(-step_check_particles // block), -(-particles // block))
+    size = min(particles, n_blocks * block)
+    count = min(batches, n_blocks, size // MIN_CHECK_BATCH)
+    if count < 2:
+        return 0, np.zeros(0, dtype=np.int64)
+    return size, (np.arange(n_blocks) * count) // n_blocks
+
+
+def _coarse_sums(ctx, region, offset, x0, y0, n_check, check_of_block, workers, backend,
+                 messages):
+    """Coarse-path (2·dt) sums [C, T, 5] of one start region's subsample, per check batch."""
+    block = ctx.block_size
+    count = int(check_of_block[-1]) + 1
+    edges = [int(np.searchsorted(check_of_block, c)) * block for c in range(count)] + [n_check]
+    tasks = [(ctx, offset, lo, x0[lo:hi], y0[lo:hi]) for lo, hi in itertools.pairwise(edges)]
+    outs = list(_parallel_map(_run_check_batch, tasks, workers, backend))
+    coarse = np.stack([o[0] for o in outs])
+    coarse[:, ctx.schedule.out_steps % 2 == 1, :] = np.nan  # no coarse state at odd steps
+    failures = [o[1] for o in outs if o[1][0] >= 0]
+    if failures:
+        particle, step = min((int(f[0]), int(f[1])) for f in failures)
+        messages.append(f"step check: the coarse integration at 2·dt = {2 * ctx.dt:g} became "
+                        f"non-finite for particle {particle - offset} of start "
+                        f"'{region.label}' at fine step {step}; its bias is not measured "
+                        "(reduce run.dt)")
+        warnings.warn(messages[-1], StepBiasWarning, stacklevel=3)
+        coarse[:] = np.nan
+    counts = np.diff(edges).astype(float)
+    return counts, coarse
+
+
+# the step check's columns among the ensemble kernel's moment columns
+_CHECK_IN_MOMENTS = [MOMENT_COLUMNS.index(c) for c in CHECK_COLUMNS]
 
 
 def _make_context(study, schedule: Schedule) -> tuple[_Context, np.ndarray, np.ndarray]:
@@ -270,9 +365,20 @@ def run_ensemble(study, *, workers: int | None = None, chunk: int | None = None,
     block_counts = np.full(n_blocks, block, dtype=np.int64)
     block_counts[-1] = n - block * (n_blocks - 1)
     batch_counts = np.bincount(batch_of_block, weights=block_counts, minlength=n_batches)
+    # the step check's subsample: the first n_check particles of every start region (a
+    # study built in code may have fewer particles than its resolved subsample)
+    n_check, check_of_block = 0, np.zeros(0, dtype=np.int64)
+    if run.step_check:
+        n_check, check_of_block = check_plan(run.step_check_particles, n, block, run.batches)
+        if not n_check:
+            messages.append(f"step check skipped: {min(run.step_check_particles, n)} "
+                            f"particles are too few for an error estimate (need at least "
+                            f"{2 * MIN_CHECK_BATCH})")
+            warnings.warn(messages[-1], StepBiasWarning, stacklevel=2)
     result = EnsembleResult(schedule=schedule, block_size=block, batches=n_batches,
                             orders=ctx.orders, residence_edges=residence_edges,
-                            flight_edges=flight_edges, warnings=messages)
+                            flight_edges=flight_edges, warnings=messages,
+                            step_check_particles=n_check)
     bar = None
     if show:
         from tqdm.auto import tqdm
@@ -286,6 +392,8 @@ def run_ensemble(study, *, workers: int | None = None, chunk: int | None = None,
             tasks = [(ctx, offset, lo, x0[lo:hi], y0[lo:hi]) for lo, hi in _chunks(n, chunk,
                                                                                     block)]
             sums = None
+            check_fine = np.zeros((int(check_of_block[-1]) + 1 if n_check else 0,
+                                   schedule.out_steps.size, len(CHECK_COLUMNS)))
             tracks = []
             hops = 0.0
             for (lo, hi), out in zip(_chunks(n, chunk, block),
@@ -307,6 +415,9 @@ def run_ensemble(study, *, workers: int | None = None, chunk: int | None = None,
                     target = batch_of_block[first_block + b]
                     sums[0][target] += moments[b]
                     sums[1][target] += aged[b]
+                    if first_block + b < check_of_block.size:  # the subsample's fine path
+                        check_fine[check_of_block[first_block + b]] += \
+                            moments[b][:, _CHECK_IN_MOMENTS]
                     sums[2] += residence[b]
                     sums[3] += flights[b]
                     hops += chunk_hops[b]
@@ -314,6 +425,11 @@ def run_ensemble(study, *, workers: int | None = None, chunk: int | None = None,
                     tracks.append(chunk_tracks)
                 if bar is not None:
                     bar.update(hi - lo)
+            check = (None, None, None)
+            if n_check:
+                counts, coarse = _coarse_sums(ctx, region, offset, x0, y0, n_check,
+                                              check_of_block, workers, backend, messages)
+                check = (counts, check_fine, coarse)
             tracked = (np.concatenate(tracks) if tracks
                        else np.zeros((0, schedule.track_steps.size, 2)))
             result.starts.append(StartSums(
@@ -321,7 +437,8 @@ def run_ensemble(study, *, workers: int | None = None, chunk: int | None = None,
                 area_fraction=area_fraction(region, family, params), particles=n,
                 batch_counts=batch_counts.astype(float), moments=sums[0], aged=sums[1],
                 tracks=tracked, track_starts=np.stack([x0[:run.tracked], y0[:run.tracked]], 1),
-                residence_counts=sums[2], flight_counts=sums[3], hops=hops))
+                residence_counts=sums[2], flight_counts=sums[3], hops=hops,
+                check_counts=check[0], check_fine=check[1], check_coarse=check[2]))
     finally:
         if bar is not None:
             bar.close()

@@ -25,6 +25,16 @@ else:  # pragma: no cover
 
 SCHEMA_VERSION = 1
 STEP_LIMIT = 2**48  # steps per particle the counter-based streams address (see rng.py)
+# The step check splits its subsample into check batches of at least this many particles and
+# needs at least two of them for a jackknife error (stepcheck.check_batches).
+MIN_CHECK_BATCH = 8
+MIN_CHECK_PARTICLES = 2 * MIN_CHECK_BATCH
+# Default subsample of the step check: this fraction of run.particles (at least
+# MIN_CHECK_PARTICLES); the check integrates it once more at 2·dt (the run's own paths are the
+# fine ones), so it costs
+# about as much per particle as the run itself: ≈ 15-16 % of the run, within the 20 % budget
+# (benchmarks/bench_stepcheck.py measured 1.21 at a fifth).
+STEP_CHECK_FRACTION = 0.15
 INTEGRATORS = ("euler_maruyama", "milstein", "strang_rk2", "rk4")
 NOISE_MODELS = ("constant", "modulated")
 PECLET_CONVENTIONS = ("wavenumber", "cell_side")
@@ -131,7 +141,7 @@ class RunSpec:
     spacing: str = "log"
     t_first: float | None = None
     times: tuple = ()  # explicit output times (override n_times/spacing/t_first)
-    integrator: str = "euler_maruyama"
+    integrator: str = "strang_rk2"
     seed: int = 0
     workers: int = 1
     chunk: int = 8192
@@ -139,6 +149,10 @@ class RunSpec:
     tracked: int = 0
     track_samples: int = 1000
     progress: bool = True
+    # a-posteriori step-size check: a coupled 2·dt integration of the first
+    # ``step_check_particles`` particles of every start region (see stepcheck.py)
+    step_check: bool = False
+    step_check_particles: int = 0
 
 
 @dataclass(frozen=True)
@@ -297,8 +311,8 @@ def _parse_run(document, noise: NoiseSpec):
             raise StudyError(f"run.times {times[clash - 1]:g} and {times[clash]:g} fall on the "
                              f"same step of run.dt = {dt:g}; space them at least dt apart or "
                              f"reduce run.dt")
-    default_integrator = "rk4" if noise.kappa == 0.0 else "euler_maruyama"
-    integrator = _choice(table, "integrator", where, INTEGRATORS, default_integrator)
+    integrator = _choice(table, "integrator", where, INTEGRATORS,
+                         default_integrator(noise))
     if integrator == "rk4" and noise.kappa != 0.0:
         raise StudyError("run.integrator = 'rk4' is deterministic and needs noise.kappa = 0; "
                          "for noisy runs choose euler_maruyama, milstein or strang_rk2")
@@ -317,10 +331,61 @@ def _parse_run(document, noise: NoiseSpec):
     progress = table.get("progress", True)
     if not isinstance(progress, bool):
         raise StudyError(f"run.progress: expected true or false, got {progress!r}")
+    step_check, check_particles = _parse_step_check(table, noise, particles)
     return RunSpec(particles=particles, dt=dt, t_end=t_end, n_times=n_times, spacing=spacing,
                    t_first=t_first, times=times, integrator=integrator, seed=seed, workers=workers,
                    chunk=chunk, batches=batches, tracked=min(tracked, particles),
-                   track_samples=track_samples, progress=progress)
+                   track_samples=track_samples, progress=progress, step_check=step_check,
+                   step_check_particles=check_particles)
+
+
+def default_integrator(noise: NoiseSpec) -> str:
+    """The most accurate applicable scheme: RK4 for deterministic runs (κ = 0), the Strang
+    splitting (weak order 2) for additive noise, Milstein where κ varies in space (the
+    splitting's exact Gaussian noise step needs constant κ)."""
+    if noise.kappa == 0.0:
+        return "rk4"
+    return "strang_rk2" if noise.model == "constant" else "milstein"
+
+
+def _parse_step_check(table, noise: NoiseSpec, particles: int) -> tuple[bool, int]:
+    """(run.step_check, run.step_check_particles), resolved.
+
+    On by default for noisy runs with at least MIN_CHECK_PARTICLES particles; the subsample
+    defaults to STEP_CHECK_FRACTION of the particles (at least MIN_CHECK_PARTICLES).
+    """
+    where = "run"
+    noisy = noise.kappa > 0.0
+    if "step_check" in table:
+        step_check = table["step_check"]
+        if not isinstance(step_check, bool):
+            raise StudyError(f"run.step_check: expected true or false, got {step_check!r}")
+        if step_check and not noisy:
+            raise StudyError("run.step_check = true needs noise.kappa > 0: a deterministic run "
+                             "(kappa = 0) has no statistical error to compare a step-size bias "
+                             "with; set run.step_check = false")
+        if step_check and particles < MIN_CHECK_PARTICLES:
+            raise StudyError(f"run.step_check = true needs run.particles >= "
+                             f"{MIN_CHECK_PARTICLES} for an error estimate (got {particles}); "
+                             "use more particles or set run.step_check = false")
+    else:
+        step_check = noisy and particles >= MIN_CHECK_PARTICLES
+    default = min(particles, max(MIN_CHECK_PARTICLES,
+                                 math.ceil(STEP_CHECK_FRACTION * particles)))
+    if "step_check_particles" in table:
+        check_particles = _number(table, "step_check_particles", where, low=MIN_CHECK_PARTICLES,
+                                  high=10**9, integer=True)
+        if check_particles > particles:
+            raise StudyError(f"run.step_check_particles = {check_particles} exceeds "
+                             f"run.particles = {particles}; allowed: {MIN_CHECK_PARTICLES} to "
+                             f"{particles}")
+        if not step_check:
+            raise StudyError(f"run.step_check_particles = {check_particles} is given but the "
+                             "step check is off; set run.step_check = true (needs kappa > 0) "
+                             "or remove it")
+    else:
+        check_particles = default if step_check else 0
+    return step_check, check_particles
 
 
 def _parse_aging(document, run: RunSpec):

@@ -22,6 +22,7 @@ from .exponents import local_exponent
 from .hopping import fit_tails, hopping
 from .moments import displacement_pdf, moment_spectrum
 from .regimes import regimes
+from .stepcheck import has_step_check, step_check
 
 # (function, predicate on the Dataset: run it within analyse?)
 STEPS = (
@@ -33,6 +34,7 @@ STEPS = (
     (moment_spectrum, lambda ds: "abs_moment" in ds.variables),
     (displacement_pdf, lambda ds: "track_x" in ds.variables),
     (hopping, lambda ds: "residence_count" in ds.variables),
+    (step_check, has_step_check),
 )
 
 
@@ -90,4 +92,5 @@ __all__ = [
     "moment_spectrum",
     "option_names",
     "regimes",
+    "step_check",
 ]

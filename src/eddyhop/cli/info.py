@@ -22,7 +22,8 @@ def command(result, show_attrs):
     click.echo("  dimensions: " + ", ".join(f"{k}={v}" for k, v in ds.sizes.items()))
     if ds.attrs.get("eddyhop_kind") == "sweep":
         swept = [d for d in ds.dims if d in ds.coords and d not in ("time", "batch", "order",
-                                                                    "lag", "aging_time")]
+                                                                    "lag", "aging_time",
+                                                                    "check_batch")]
         click.echo("  sweep over: " + ", ".join(f"{d} ({ds.sizes[d]})" for d in swept))
         from ..presentation import scaling_lines
 

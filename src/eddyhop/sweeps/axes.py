@@ -71,9 +71,9 @@ NOT_SWEEPABLE = {
     "run.chunk": "it never changes the numbers",
 }
 # Dimension names already used inside a point's Dataset.
-RESERVED_DIMS = {"time", "batch", "order", "lag", "aging_time", "particle", "track_time",
-                 "residence_time", "flight_length", "residence_time_edge", "flight_length_edge",
-                 "point"}
+RESERVED_DIMS = {"time", "batch", "check_batch", "order", "lag", "aging_time", "particle",
+                 "track_time", "residence_time", "flight_length", "residence_time_edge",
+                 "flight_length_edge", "point"}
 
 
 @dataclass(frozen=True)
