@@ -280,6 +280,28 @@ def test_readme_worked_example_prints_its_regime_sequence():
         assert not part["regime_final"].values[: n - 1].any()
     assert sequences == {"edges": ["superdiffusive", "ballistic", "subdiffusive", "diffusive"],
                          "cores": ["diffusive", "ballistic", "diffusive"]}
+    # The numbers the README paragraph quotes.  Exponents: within 0.05 of the quoted value
+    # (the jackknife se of each is 0.005-0.02 at N = 2000, so 0.05 is the README's rounding,
+    # not noise).  Crossovers, in advective units 1/(Uk): inside the quoted ranges.
+    edges, cores = ds.sel(start="edges"), ds.sel(start="cores")
+    assert abs(float(edges["regime_alpha"][1]) - 1.8) < 0.05  # ballistic along the edges
+    assert abs(float(edges["regime_alpha"][2]) - 0.65) < 0.05  # trapped in the eddies
+    assert abs(float(cores["regime_alpha"][0]) - 1.0) < 0.05  # diffusion at the cores
+    assert abs(float(cores["regime_alpha"][1]) - 2.0) < 0.05  # the ballistic transient
+    edge_times = edges["crossover_time_advective"].values
+    core_times = cores["crossover_time_advective"].values
+    assert 0.25 < edge_times[0] < 0.4 and 4.0 < edge_times[1] < 5.5
+    assert 12.0 < core_times[0] < 18.0 and 100.0 < core_times[1] < 140.0
+    # Both releases end with the cell-problem D_eff (the package's homogenization solver,
+    # itself checked against the literature in tests/test_reference_cell_problem.py) within
+    # 3 jackknife standard errors, whatever the convergence flag at this N.
+    from eddyhop.reference import effective_diffusivity
+
+    exact = effective_diffusivity(_readme_study())
+    d_exact = 0.5 * (exact.tensor[0, 0] + exact.tensor[1, 1])
+    for part in (edges, cores):
+        assert abs(float(part["D_eff"]) - d_exact) < 3 * float(part["D_eff_se"])
+    assert abs(d_exact / (0.01 * math.sqrt(100.0)) - 1.07) < 0.005  # D/(kappa Pe^1/2)
 
 
 def test_bad_regime_options_name_the_option_and_the_range():

@@ -384,10 +384,14 @@ def _step_check_lines(part):
     else:
         text = "unknown flag value"
     out = [f"  step check: {text}"]
+    meaning, _ = _convergence(part)
+    if meaning in ("too_short", "bounded"):
+        return out  # no diffusivity is claimed, extrapolated or not
+    tag = "  [undetermined]" if meaning == "undetermined" else ""
     extrapolated = _scalar(part, "D_eff_extrapolated")
     if extrapolated is not None and _finite(extrapolated):
         out.append(f"    Richardson-extrapolated D_eff = "
-                   f"{_pm(extrapolated, _scalar(part, 'D_eff_extrapolated_se'))}")
+                   f"{_pm(extrapolated, _scalar(part, 'D_eff_extrapolated_se'))}{tag}")
     return out
 
 
