@@ -103,15 +103,13 @@ def provenance_attrs(study, kind: str, extra: dict | None = None) -> dict:
 
 
 def check_output_path(path) -> Path:
-    """Refuse early (before any computation) a path whose directory does not exist."""
-    path = Path(path)
-    parent = path.parent if str(path.parent) else Path(".")
-    if not parent.exists():
-        raise EddyhopError(f"output directory {str(parent)!r} does not exist; create it first "
-                           f"or choose another --out")
-    if path.is_dir():
-        raise EddyhopError(f"output path {str(path)!r} is a directory; give a file name")
-    return path
+    """Refuse early (before any computation) a path that cannot be written as given: a
+    missing parent folder, a folder, a backslash or NUL in the name, an over-long name (see
+    :func:`eddyhop.outputs.check_name`; the commands apply the full rule,
+    :func:`eddyhop.outputs.guard_output`)."""
+    from .outputs import check_name
+
+    return check_name(path, option="output path")
 
 
 @contextlib.contextmanager

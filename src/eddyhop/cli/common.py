@@ -61,3 +61,11 @@ def workers_option(function):
 def progress_option(function):
     return click.option("--progress/--no-progress", default=None,
                         help="Show a progress bar. [default: the study's run.progress]")(function)
+
+
+def replace_option(function):
+    return click.option("--replace", is_flag=True,
+                        help="Allow replacing an existing file that is not an output of this "
+                             "command's kind, or a default-named output that exists. Never "
+                             "allows writing over an input or a sweep folder's own files.")(
+        function)

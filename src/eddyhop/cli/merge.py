@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from .common import friendly_errors
+from .common import friendly_errors, replace_option
 
 
 @click.command("merge")
@@ -15,8 +15,9 @@ from .common import friendly_errors
               help="Do not add derived quantities (D_eff, crossovers, regimes) per point.")
 @click.option("--fit-peclet", nargs=2, type=float, default=None, metavar="LOW HIGH",
               help="Péclet range of the scaling fits. [default: every point]")
+@replace_option
 @friendly_errors
-def command(folder, out, no_analysis, fit_peclet):
+def command(folder, out, no_analysis, fit_peclet, replace):
     """Merge the sweep in FOLDER into one Dataset with the swept parameters as
     dimensions (coordinates with units) and derived quantities per point.
 
@@ -28,10 +29,11 @@ def command(folder, out, no_analysis, fit_peclet):
     boundary-layer and diffusive time scales) and stored in the file.
     Example:  eddyhop merge pan/ --out pan_sweep.nc
     """
-    from ..io import check_output_path, write_netcdf
+    from ..io import write_netcdf
+    from ..outputs import guard_output
     from ..sweep import merge_sweep
 
-    check_output_path(out)
+    guard_output(out, kind="sweep", inputs=[folder], replace=replace)
     ds = merge_sweep(folder, analyse=not no_analysis, peclet_range=fit_peclet)
     write_netcdf(ds, out)
     counts = (ds.attrs["sweep_points_done"], ds.attrs["sweep_points_failed"],

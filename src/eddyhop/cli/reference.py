@@ -6,7 +6,7 @@ from pathlib import Path
 
 import click
 
-from .common import friendly_errors
+from .common import friendly_errors, replace_option
 
 
 def default_output(study_output: str) -> str:
@@ -31,8 +31,9 @@ def default_output(study_output: str) -> str:
               help="Skip the second, coarser solve that estimates the resolution error.")
 @click.option("--diffusivity-only", is_flag=True,
               help="Only solve the cell problem and print the homogenized tensor (no file).")
+@replace_option
 @friendly_errors
-def command(study, out, modes, rtol, no_check, diffusivity_only):
+def command(study, out, modes, rtol, no_check, diffusivity_only, replace):
     """Deterministic reference for STUDY: exact mean and MSD versus time for
     every start region (no particles, no sampling noise), plus the long-time
     homogenized diffusivity tensor.
@@ -43,7 +44,8 @@ def command(study, out, modes, rtol, no_check, diffusivity_only):
     overlaid.  Needs a steady flow without walls and kappa > 0.
     Example:  eddyhop reference studies/lattice_mixer.toml --out ref.nc
     """
-    from ..io import check_output_path, write_netcdf
+    from ..io import write_netcdf
+    from ..outputs import guard_output
     from ..reference.api import effective_diffusivity, moment_evolution
     from ..spec import load_study
 
@@ -55,7 +57,10 @@ def command(study, out, modes, rtol, no_check, diffusivity_only):
         click.echo(f"  solved in {result.seconds:.2f} s")
         return
     target = out or default_output(spec.output.path)
-    check_output_path(target)
+    from .run import study_inputs
+
+    guard_output(target, kind="result", inputs=study_inputs(spec, study), replace=replace,
+                 default=out is None)
     ds = moment_evolution(spec, modes=modes, rtol=rtol, check=not no_check)
     write_netcdf(ds, target)
     _summary(ds, target)

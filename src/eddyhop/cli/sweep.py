@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from .common import friendly_errors, progress_option
+from .common import friendly_errors, progress_option, replace_option
 
 
 @click.command("sweep")
@@ -32,9 +32,10 @@ from .common import friendly_errors, progress_option
               help="Seconds to wait for a Dask scheduler and its workers.")
 @click.option("--dry-run", is_flag=True, help="List the points and exit.")
 @progress_option
+@replace_option
 @friendly_errors
 def command(study, out, backend, jobs, scheduler, workers, merged, no_merge, retry_failed,
-            timeout, dry_run, progress):
+            timeout, dry_run, progress, replace):
     """Run the parameter sweep of STUDY (a study file with a [sweep] table).
 
     \b
@@ -51,6 +52,7 @@ def command(study, out, backend, jobs, scheduler, workers, merged, no_merge, ret
     from ..sweep import run_sweep
 
     spec = load_study(study)
+    _check_outputs(study, out, merged, no_merge, replace)
     if dry_run:
         _print_plan(spec)
         return
@@ -92,3 +94,20 @@ def _print_plan(study):
                + ", ".join(f"{a.address} ×{len(a.values)}" for a in sweep.axes) + ")")
     for point in sweep.points():
         click.echo(f"  {point.id}  {point.describe(sweep.axes)}")
+
+
+def _check_outputs(study, out, merged, no_merge, replace) -> None:
+    """The output rule (:mod:`eddyhop.outputs`) for the folder and the merged file, before any
+    point runs.  The folder's own merged file (OUT/sweep.nc) is replaced by a new merge."""
+    from ..outputs import check_name, check_not_in_sweep, guard_output
+    from ..sweeps.execute import MERGED_NAME
+
+    folder = check_name(out, option="--out", want_dir=True)
+    check_not_in_sweep(folder / MERGED_NAME)  # not a folder inside another sweep's files
+    if no_merge:
+        return
+    if merged:
+        guard_output(merged, kind="sweep", inputs=[study], replace=replace, option="--merged")
+    elif folder.is_dir():
+        guard_output(folder / MERGED_NAME, kind="sweep", inputs=[study], replace=replace,
+                     option="--merged (default)")
