@@ -173,9 +173,14 @@ def open_result(path):
     from .errors import InputDataError
 
     path = Path(path)
-    name = repr(str(path))
-    if not path.exists():
-        raise InputDataError(f"result file {name} does not exist")
+    text = str(path)
+    name = repr(text if len(text) <= 80 else text[:60] + "…" + text[-15:])
+    try:
+        path.stat()
+    except FileNotFoundError:
+        raise InputDataError(f"result file {name} does not exist") from None
+    except OSError as exc:  # a name too long for the file system, a permission problem, …
+        raise InputDataError(f"result file {name} cannot be read ({exc.strerror})") from None
     if path.is_dir():
         raise InputDataError(f"result file {name} is a directory, not a netCDF file")
     if path.stat().st_size == 0:
@@ -194,3 +199,29 @@ def open_result(path):
         reason = text.strip().splitlines()[0] if text.strip() else type(exc).__name__
         raise InputDataError(f"result file {name} is not a readable netCDF file ({reason}); "
                              f"{hint}") from None
+
+
+RESULT_KIND_TEXT = {"monte_carlo": "a run", "reference": "a reference solution",
+                    "sweep": "a merged sweep"}
+
+
+def require_kind(ds, path, allowed, command: str):
+    """Refuse (one line) a Dataset read from ``path`` whose ``eddyhop_kind`` is not in
+    ``allowed``: a foreign netCDF file (no ``eddyhop_kind``) or a kind ``command`` does not
+    take.  Returns ``ds``."""
+    from .errors import InputDataError
+
+    kind = ds.attrs.get("eddyhop_kind")
+    text = str(path)
+    name = repr(text if len(text) <= 80 else text[:60] + "…" + text[-15:])
+    takes = ", ".join(RESULT_KIND_TEXT.get(k, k) for k in allowed)
+    if kind is None:
+        raise InputDataError(f"{name} is a netCDF file but not an eddyhop result (it has no "
+                             f"eddyhop_kind attribute); `eddyhop {command}` takes {takes}")
+    if kind not in allowed:
+        hint = (": analyse one point file (FOLDER/points/<id>.nc); merge already analyses every "
+                "point" if kind == "sweep" else "")
+        raise InputDataError(f"{name} is {RESULT_KIND_TEXT.get(str(kind), repr(kind))} "
+                             f"(eddyhop_kind = {kind!r}); `eddyhop {command}` takes {takes}"
+                             f"{hint}")
+    return ds

@@ -81,6 +81,9 @@ def _table(header, rows, numeric_from: int = 1) -> str:
 
 
 def _png(figure, dpi: int = 110) -> str:
+    from .plots._style import make_text_safe
+
+    make_text_safe(figure)  # user labels with stray $…$ are shown as typed
     buffer = io.BytesIO()
     figure.savefig(buffer, format="png", dpi=dpi, metadata={"Software": f"eddyhop {__version__}"})
     return base64.b64encode(buffer.getvalue()).decode("ascii")
@@ -593,13 +596,14 @@ def _is_sweep(ds) -> bool:
 
 def write_report(source, out, *, figures=None, analyse: bool = True) -> Path:
     """Write the report of ``source`` (a Dataset or a netCDF path) to ``out`` atomically."""
-    from .io import check_output_path, open_result
+    from .io import check_output_path, open_result, require_kind
 
     out = check_output_path(out)
     source_name = None
     if isinstance(source, (str, os.PathLike)):
         source_name = Path(source).name
-        ds = open_result(source)
+        ds = require_kind(open_result(source), source, ("monte_carlo", "reference", "sweep"),
+                          "report")
     else:
         ds = source
     text = build_report(ds, source_name=source_name, figures=figures, analyse=analyse)

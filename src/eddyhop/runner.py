@@ -162,6 +162,14 @@ def _run_chunk(ctx: _Context, stream_offset: int, first: int, x0, y0):
     return moments, aged, tracks, residence, flights, hops, status
 
 
+def _gap_steps(gap: float, dt: float) -> int:
+    """Flight gap in steps, at least 1; capped where it could not be reached anyway (a huge
+    advective time 1/(U k) must not overflow the kernel's integer)."""
+    steps = gap / dt
+    return int(max(1.0, min(float(round(steps)) if math.isfinite(steps) else 2.0**62,
+                            2.0**62)))
+
+
 def _make_context(study, schedule: Schedule) -> tuple[_Context, np.ndarray, np.ndarray]:
     family = study.flow.model
     params = study.flow.params
@@ -184,7 +192,7 @@ def _make_context(study, schedule: Schedule) -> tuple[_Context, np.ndarray, np.n
         schedule=schedule, orders=np.asarray(study.moments.orders, dtype=np.float64),
         block_size=block_size_for(run.particles, run.batches), tracked=run.tracked,
         hop_on=study.hopping.enabled, cell=cell, margin=study.hopping.margin,
-        gap_steps=max(1, round(gap / run.dt)), residence_edges=residence_edges,
+        gap_steps=_gap_steps(gap, run.dt), residence_edges=residence_edges,
         flight_edges=flight_edges,
     )
     return ctx, residence_edges, flight_edges

@@ -64,13 +64,14 @@ def command(result, out, quiet, no_reference, replace, **chosen):
     Example:  eddyhop analyse lattice.nc --out lattice.analysed.nc
     """
     from ..analysis import analyse
-    from ..io import open_result, write_netcdf
+    from ..io import open_result, require_kind, write_netcdf
     from ..outputs import guard_output
 
     target = out or _default_out(result)
     guard_output(target, kind="result", inputs=[result], replace=replace, default=out is None)
     options = {k: v for k, v in chosen.items() if v is not None and v != ()}
-    ds = analyse(open_result(result), **options)
+    source = require_kind(open_result(result), result, ("monte_carlo", "reference"), "analyse")
+    ds = analyse(source, **options)
     write_netcdf(ds, target)
     click.echo(f"wrote {target}")
     if not quiet:

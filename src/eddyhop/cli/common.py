@@ -51,8 +51,49 @@ def friendly_errors(function):
     return wrapper
 
 
+MAX_THREADS = 256
+
+
+def check_workers(ctx, param, value):
+    """-1 (every core) or 1 … MAX_THREADS threads; anything else is one clear error line."""
+    if value is None or value == -1 or 1 <= value <= MAX_THREADS:
+        return value
+    refuse(f"--workers (-w) = {value} is not allowed: give -1 for every core or 1 to "
+           f"{MAX_THREADS} threads")
+
+
+def refuse(message: str) -> None:
+    """One error line and exit status 2 (for checks made while options are parsed)."""
+    click.secho(f"error: {message}", fg="red", err=True)
+    sys.exit(2)
+
+
+def finite_option_check(low=None, high=None, low_open=False, high_open=False):
+    """A click callback refusing NaN, infinities and values outside [low, high] (open ends
+    as given) with one line naming the option, the value and the allowed range."""
+    import math
+
+    def check(ctx, param, value):
+        if value is None:
+            return value
+        for item in (value if isinstance(value, tuple) else (value,)):
+            bad = not math.isfinite(item)
+            bad = bad or (low is not None and (item <= low if low_open else item < low))
+            bad = bad or (high is not None and (item >= high if high_open else item > high))
+            if bad:
+                from ..errors import range_text
+
+                allowed = range_text(-math.inf if low is None else low,
+                                     math.inf if high is None else high, low_open, high_open)
+                refuse(f"{param.opts[0]} = {item!r} is not allowed: give a finite number in "
+                       f"{allowed}")
+        return value
+
+    return check
+
+
 def workers_option(function):
-    return click.option("--workers", "-w", type=int, default=None,
+    return click.option("--workers", "-w", type=int, default=None, callback=check_workers,
                         help="Parallel workers (threads); -1 uses every core. Never changes "
                              "the numbers, only the speed. [default: the study's run.workers]")(
         function)

@@ -52,7 +52,7 @@ def command(result, out_dir, names, formats, dpi, list_only, replace):
     Example:  eddyhop plot lattice.nc --figure msd --figure aging --format png
     """
     from ..errors import EddyhopError
-    from ..io import open_result
+    from ..io import open_result, require_kind
     from ..outputs import check_name, check_not_in_sweep, guard_output
     from ..plots import available_figures, figures_for, save_figure
     from ..plots.catalogue import FIGURES
@@ -63,7 +63,7 @@ def command(result, out_dir, names, formats, dpi, list_only, replace):
                            f"[{DPI_RANGE[0]}, {DPI_RANGE[1]}]")
     if out_dir:
         check_name(out_dir, option="--out", want_dir=True)
-    ds = open_result(result)
+    ds = require_kind(open_result(result), result, ("monte_carlo", "reference", "sweep"), "plot")
     available = available_figures(ds)
     if list_only:
         for name, (_function, _needs, text) in FIGURES.items():

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import click
 
-from .common import friendly_errors, replace_option
+from .common import finite_option_check, friendly_errors, refuse, replace_option
 
 
 def default_output(study_output: str) -> str:
@@ -15,15 +15,25 @@ def default_output(study_output: str) -> str:
     return str(path.with_name(f"{path.stem}_reference{path.suffix or '.nc'}"))
 
 
+MAX_MODES = 512  # = reference.cell_problem.DEFAULT_MAX_MODES (not imported: --help stays fast)
+
+
+def _check_modes(value):
+    if value is not None and not 2 <= value <= MAX_MODES:
+        refuse(f"--modes = {value} is not allowed: give 2 to {MAX_MODES} Fourier modes per "
+               "direction (or omit it to choose from --rtol)")
+    return value
+
+
 @click.command("reference")
 @click.argument("study", type=click.Path(dir_okay=False))
 @click.option("--out", "-o", type=click.Path(dir_okay=False), default=None,
               help="netCDF file to write (atomically). [default: the study's output.path "
                    "with _reference before the suffix]")
-@click.option("--modes", type=click.IntRange(min=2), default=None,
+@click.option("--modes", type=int, default=None, callback=lambda c, p, v: _check_modes(v),
               help="Fourier modes per direction (each way from 0). [default: chosen from the "
                    "Peclet number for --rtol]")
-@click.option("--rtol", type=click.FloatRange(min=0.0, max=1.0, min_open=True, max_open=True),
+@click.option("--rtol", type=float, callback=finite_option_check(0.0, 1.0, True, True),
               default=1e-6, show_default=True,
               help="Target relative accuracy (sets the automatic resolution and the "
                    "convergence test of the homogenized tensor).")

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from .common import friendly_errors, progress_option, replace_option
+from .common import check_workers, friendly_errors, progress_option, replace_option
 
 
 @click.command("sweep")
@@ -20,7 +20,7 @@ from .common import friendly_errors, progress_option, replace_option
                    "0 is refused.")
 @click.option("--scheduler", default=None, metavar="tcp://HOST:PORT",
               help="Dask scheduler to send points to. [default: $DASK_SCHEDULER_ADDRESS]")
-@click.option("--workers", "-w", type=int, default=None,
+@click.option("--workers", "-w", type=int, default=None, callback=check_workers,
               help="Threads per point; -1: every core. [default: run.workers when serial, "
                    "else 1]")
 @click.option("--merged", type=click.Path(dir_okay=False), default=None,
@@ -51,6 +51,13 @@ def command(study, out, backend, jobs, scheduler, workers, merged, no_merge, ret
     from ..spec import load_study
     from ..sweep import run_sweep
 
+    from ..errors import EddyhopError
+    from ..sweeps.backends import scheduler_address
+
+    if not (timeout > 0 and timeout < float("inf")):
+        raise EddyhopError(f"--timeout {timeout!r} is not allowed: give a finite number of "
+                           "seconds > 0")
+    scheduler_address(scheduler)  # a malformed address is refused before any work
     spec = load_study(study)
     _check_outputs(study, out, merged, no_merge, replace)
     if dry_run:

@@ -91,6 +91,12 @@ class FlowFamily:
                 raise StudyError(f"{where}.{p.name} is required for flow family '{self.name}'")
             else:
                 checked[p.name] = float(p.default)
+        if "k" in checked:
+            # the lengths pi/k and 2 pi/k must be numbers, not overflow to infinity
+            period = 2.0 * math.pi / checked["k"]
+            if not math.isfinite(period):
+                raise StudyError(f"{where}.k = {checked['k']:g} is too small: the period 2 pi/k "
+                                 "overflows; allowed: k with 2 pi/k finite (k > 3.5e-308)")
         return checked
 
     def pack(self, values: dict) -> np.ndarray:
