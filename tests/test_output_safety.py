@@ -61,7 +61,7 @@ def refused(result, *words):
     errors = [line for line in text.splitlines() if line.startswith("error:")]
     assert result.exit_code == 2, text
     assert len(errors) == 1, text
-    assert "Traceback" not in text and not isinstance(result.exception, Exception) or \
+    assert ("Traceback" not in text and not isinstance(result.exception, Exception)) or \
         isinstance(result.exception, SystemExit), text
     for word in words:
         assert word in errors[0], errors[0]

@@ -17,7 +17,6 @@ import tempfile
 from pathlib import Path
 
 from . import __version__
-from .errors import EddyhopError
 
 CONVENTIONS = "CF-1.10"
 

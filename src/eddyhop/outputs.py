@@ -114,7 +114,7 @@ def _netcdf_kind(path: Path) -> str | None:
 
         with netCDF4.Dataset(path, "r") as handle:
             kind = getattr(handle, "eddyhop_kind", None)
-    except Exception:  # noqa: BLE001 — any unreadable file is simply "not ours"
+    except Exception:
         return None
     return str(kind) if kind is not None else None
 

@@ -48,10 +48,9 @@ def command(study, out, backend, jobs, scheduler, workers, merged, no_merge, ret
     holding another study's sweep is refused.
     Example:  eddyhop sweep studies/sweep_pan_rolls.toml --out pan/ -j 2
     """
+    from ..errors import EddyhopError
     from ..spec import load_study
     from ..sweep import run_sweep
-
-    from ..errors import EddyhopError
     from ..sweeps.backends import scheduler_address
 
     if not (timeout > 0 and timeout < float("inf")):
