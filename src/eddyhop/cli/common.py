@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import functools
 import importlib
+import os
 import sys
 import warnings
 
@@ -13,6 +14,10 @@ import click
 # add a command.
 COMMANDS = ["run", "demo", "validate", "info", "families", "plot", "report", "sweep", "merge",
             "analyse", "reference"]
+
+
+# set to any value to let unexpected exceptions through with their traceback
+DEBUG_ENV = "EDDYHOP_DEBUG"
 
 
 def load_commands(group: click.Group) -> None:
@@ -45,6 +50,26 @@ def friendly_errors(function):
         except KeyboardInterrupt:
             click.secho("interrupted: nothing was written", fg="red", err=True)
             sys.exit(130)
+        except OSError as exc:  # a file the system refuses: permissions, full disk, …
+            if os.environ.get(DEBUG_ENV):
+                raise
+            where = f": {exc.filename!r}" if getattr(exc, "filename", None) else ""
+            click.secho(f"error: {exc.strerror or exc}{where}", fg="red", err=True)
+            sys.exit(2)
+        except MemoryError:
+            if os.environ.get(DEBUG_ENV):
+                raise
+            click.secho("error: out of memory; reduce the run's size (particles, n_times, "
+                        "tracked, modes)", fg="red", err=True)
+            sys.exit(1)
+        except Exception as exc:  # last resort: a bug must not print a traceback at a user
+            if os.environ.get(DEBUG_ENV):
+                raise
+            text = " ".join(str(exc).split())[:300]
+            click.secho(f"error: internal error ({type(exc).__name__}: {text}); this is a bug "
+                        f"in eddyhop: please report it (set {DEBUG_ENV}=1 for the traceback)",
+                        fg="red", err=True)
+            sys.exit(1)
         finally:
             warnings.showwarning = previous
 

@@ -114,9 +114,10 @@ def _check_layout(data: dict, path: Path) -> None:
         if not isinstance(entry, dict):
             bad(f"points[{number}]", entry, "a table of the point's fields")
         for name, kind in _ENTRY_FIELDS.items():
-            value = entry.get(name, "<missing>")
-            if not isinstance(value, kind) or isinstance(value, bool):
-                bad(f"points[{number}].{name}", value, f"a {kind.__name__}")
+            if name not in entry:
+                bad(f"points[{number}].{name}", "<missing>", f"a {kind.__name__}")
+            if not isinstance(entry[name], kind) or isinstance(entry[name], bool):
+                bad(f"points[{number}].{name}", entry[name], f"a {kind.__name__}")
         point_id = entry["id"]
         if point_id in seen or not point_id.replace("_", "").replace("-", "").isalnum():
             bad(f"points[{number}].id", point_id, "a unique name of letters, digits, - and _")
