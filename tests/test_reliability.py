@@ -72,11 +72,10 @@ def _addresses(document, prefix=()):
     return out
 
 
-ADDRESSES = _addresses(BASE) + [("run", "chunk"), ("run", "batches"), ("run", "integrator"),
-                                 ("run", "times"), ("run", "t_first"), ("noise", "kappa"),
-                                 ("noise", "model"), ("moments", "orders"), ("flow", "scale"),
-                                 ("sweep",), ("unknown_section",), ("flow", "unknown_key"),
-                                 ("start", 0, "radius"), ("hopping", "margin")]
+ADDRESSES = [*_addresses(BASE), ("run", "chunk"), ("run", "batches"), ("run", "integrator"),
+             ("run", "times"), ("run", "t_first"), ("noise", "kappa"), ("noise", "model"),
+             ("moments", "orders"), ("flow", "scale"), ("sweep",), ("unknown_section",),
+             ("flow", "unknown_key"), ("start", 0, "radius"), ("hopping", "margin")]
 
 
 @st.composite
