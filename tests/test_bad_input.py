@@ -48,6 +48,10 @@ def test_bad_study_values(work, old, new, words):
 
 def test_over_long_input_name(work):
     refused(invoke(["info", work / ("x" * 5000 + ".nc")]), "cannot be read")
+    refused(invoke(["run", work / ("s" * 5000 + ".toml")]), "cannot be read")
+    answer = invoke(["validate", work / ("s" * 5000 + ".toml")])
+    assert answer.exit_code == 2 and "cannot be read" in answer.output
+    assert len(answer.output) < 400  # the name is shortened, not echoed 5000 characters long
 
 
 @pytest.mark.parametrize("damage, words", [

@@ -53,7 +53,9 @@ def friendly_errors(function):
         except OSError as exc:  # a file the system refuses: permissions, full disk, …
             if os.environ.get(DEBUG_ENV):
                 raise
-            where = f": {exc.filename!r}" if getattr(exc, "filename", None) else ""
+            name = str(exc.filename) if getattr(exc, "filename", None) else ""
+            name = name if len(name) <= 80 else name[:60] + "…" + name[-15:]
+            where = f": {name!r}" if name else ""
             click.secho(f"error: {exc.strerror or exc}{where}", fg="red", err=True)
             sys.exit(2)
         except MemoryError:
