@@ -63,7 +63,7 @@ def test_analyse_command_reports_bad_input_clearly(tmp_path):
     xr.Dataset({"x": (("time",), np.ones(3))}, coords={"time": [1.0, 2.0, 3.0]}).to_netcdf(bare)
     answer = runner.invoke(main, ["analyse", str(bare), "--out", str(tmp_path / "o.nc")])
     assert answer.exit_code == 2
-    assert "not an eddyhop result" in answer.output  # a foreign netCDF: refused by kind
+    assert "needs variable(s) msd" in answer.output
     assert not (tmp_path / "o.nc").exists()
     plain = tmp_path / "plain.nc"
     t = np.geomspace(0.1, 10.0, 20)

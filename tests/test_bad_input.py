@@ -29,12 +29,16 @@ def test_merged_sweep_given_to_analyse(work):
 
 
 def test_foreign_netcdf_given_to_analyse_plot_report(work):
+    """A report needs an eddyhop result; analyse and plot take any netCDF holding the
+    variables they need (own data with time and msd) and name what is missing."""
     foreign = work / "foreign.nc"
     xr.Dataset({"a": ("x", np.arange(3.0))}).to_netcdf(foreign)
-    for args in (["analyse", foreign, "--out", work / "x.nc"], ["plot", foreign],
-                 ["report", foreign, "--out", work / "x.html"]):
-        refused(invoke(args), "not an eddyhop result")
+    refused(invoke(["report", foreign, "--out", work / "x.html"]), "not an eddyhop result")
+    refused(invoke(["analyse", foreign, "--out", work / "x.nc"]), "needs variable(s)")
+    answer = invoke(["plot", foreign, "--out", work / "figs"])
+    assert answer.exit_code == 0 and "no figure applies" in answer.output
     assert not (work / "x.html").exists() and not (work / "x.nc").exists()
+    assert not (work / "figs").exists()
 
 
 @pytest.mark.parametrize("old, new, words", [

@@ -204,16 +204,19 @@ RESULT_KIND_TEXT = {"monte_carlo": "a run", "reference": "a reference solution",
                     "sweep": "a merged sweep"}
 
 
-def require_kind(ds, path, allowed, command: str):
+def require_kind(ds, path, allowed, command: str, foreign_ok: bool = False):
     """Refuse (one line) a Dataset read from ``path`` whose ``eddyhop_kind`` is not in
-    ``allowed``: a foreign netCDF file (no ``eddyhop_kind``) or a kind ``command`` does not
-    take.  Returns ``ds``."""
+    ``allowed``: a kind ``command`` does not take, or (unless ``foreign_ok``: the command
+    checks the variables it needs itself) a foreign netCDF file with no ``eddyhop_kind``.
+    Returns ``ds``."""
     from .errors import InputDataError
 
     kind = ds.attrs.get("eddyhop_kind")
     text = str(path)
     name = repr(text if len(text) <= 80 else text[:60] + "…" + text[-15:])
     takes = ", ".join(RESULT_KIND_TEXT.get(k, k) for k in allowed)
+    if kind is None and foreign_ok:
+        return ds
     if kind is None:
         raise InputDataError(f"{name} is a netCDF file but not an eddyhop result (it has no "
                              f"eddyhop_kind attribute); `eddyhop {command}` takes {takes}")
