@@ -56,6 +56,9 @@ ODD_VALUES = st.sampled_from([
     -1, 0, 1, 2, 3, -2**31, 2**31, 2**62, 10**9, 10**12, 0.0, -0.0, 0.5, -0.5, 1e-300, 1e-308,
     5e-324, 1e30, 1e150, 1e300, 1.7976931348623157e308, -1e308, math.nan, math.inf, -math.inf,
     True, False, "", "x", "cellular", "log", "linear", "nan", "1e9", "<img src=x>", "$\\frac{$",
+    "shear", "cats_eye", "fourier", "obstacles", "gridded", "drifting_cellular",
+    "oscillating_cellular", "centre", "separatrix", "box", "disk", "point", "strang_rk2", "rk4",
+    "milstein", "modulated", "cell_side",
     "a" * 300, [], [1, 2], [0.5, 0.5], [-1.0], ["a"], [math.nan], {}, {"a": 1}, {"kind": "box"},
 ])
 
