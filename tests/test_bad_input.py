@@ -44,10 +44,29 @@ def test_foreign_netcdf_given_to_analyse_plot_report(work):
 @pytest.mark.parametrize("old, new, words", [
     ('family = "cellular"', 'family = ["cellular"]', ["flow.family", "['cellular']"]),
     ("k = 1.0", "k = 1e-308", ["flow.k", "1e-308", "[1e-150, 1e+150]"]),
+    ("k = 1.0", "k = 1e300", ["flow.k", "1e+300"]),  # found by the fuzzer: cell area 0
 ])
 def test_bad_study_values(work, old, new, words):
     (work / "bad.toml").write_text(STUDY.replace(old, new))
     refused(invoke(["run", work / "bad.toml", "--out", work / "x.nc"]), *words)
+
+
+def test_unexpected_exception_is_one_line_with_exit_1(work, monkeypatch):
+    """The last resort: a bug surfaces as one 'internal error' line (exit 1), no traceback;
+    EDDYHOP_DEBUG=1 lets it through for a developer."""
+    import eddyhop.io
+
+    def broken(path):
+        raise RuntimeError("simulated bug\nsecond line")
+
+    monkeypatch.setattr(eddyhop.io, "open_result", broken)
+    answer = invoke(["info", work / "r.nc"])
+    assert answer.exit_code == 1
+    lines = answer.output.strip().splitlines()
+    assert len(lines) == 1 and "internal error (RuntimeError: simulated bug second line)" in \
+        lines[0] and "Traceback" not in answer.output
+    monkeypatch.setenv("EDDYHOP_DEBUG", "1")
+    assert isinstance(invoke(["info", work / "r.nc"]).exception, RuntimeError)
 
 
 def test_over_long_input_name(work):
