@@ -249,3 +249,13 @@ def test_gridded_file_must_be_a_readable_netcdf_field(work, file, words):
     relative path is looked up beside the study file first (then the working directory)."""
     (work / "g.toml").write_text(GRIDDED.format(file=file))
     refused(invoke(["run", work / "g.toml", "--out", work / "x.nc"]), *words)
+
+
+def test_sweep_into_a_foreign_folder_leaves_it_untouched(work):
+    """Refused, and no lock file or points folder is left behind."""
+    foreign = work / "mine"
+    foreign.mkdir()
+    (foreign / "thesis.tex").write_text("keep")
+    refused(invoke(["sweep", work / "sweep.toml", "--out", foreign, "--backend", "serial"]),
+            "is not empty", "thesis.tex")
+    assert sorted(p.name for p in foreign.iterdir()) == ["thesis.tex"]
