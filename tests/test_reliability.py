@@ -8,6 +8,10 @@ Properties (every later change must keep them):
   other exception;
 * `eddyhop analyse` and `eddyhop plot` with random option values end with exit status 0 or 2
   and never print a traceback or an internal error.
+* `eddyhop analyse` with any of 16 awkward output names (its input, a link to it, another
+  result, a text file, a sweep's manifest, lock or point, a folder, a missing folder, a
+  backslash, an over-long name, …), with or without ``--replace``, either refuses and changes
+  nothing or writes only the named output where the output rule allows it.
 
 The cases are derandomised (the same cases on every run).  ``EDDYHOP_FUZZ_EXAMPLES=N`` runs N
 study cases (and N/5 CLI cases per command) instead of the CI defaults of 200 and 30.  A summary
@@ -231,3 +235,72 @@ def test_plot_options_never_traceback(tracked_result, figures, fmt, dpi, listing
     if listing:
         args.append("--list")
     _invoke_checked("plot options", args)
+
+
+# ---- output paths ----------------------------------------------------------------------------
+TARGETS = st.sampled_from(["t.nc", "other.nc", "notes.txt", "new.nc", "sub/new.nc", "nodir/x.nc",
+                           "back\\slash.nc", "x" * 300 + ".nc", "sw/sweep-manifest.json",
+                           "sw/points/p.nc", "sw/new.nc", "sub", "link.nc", "sw/.sweep-lock",
+                           "", "."])
+
+
+@pytest.fixture(scope="module")
+def output_world(tracked_result):
+    """A folder with the input, another result, a text file, a sub-folder, a symbolic link to
+    the input and a fake sweep folder (manifest, lock, a point)."""
+    root = tracked_result.parent
+    (root / "notes.txt").write_text("not ours\n")
+    (root / "sub").mkdir(exist_ok=True)
+    import shutil
+
+    shutil.copy(tracked_result, root / "other.nc")
+    if not (root / "link.nc").exists():
+        (root / "link.nc").symlink_to(tracked_result)
+    (root / "sw" / "points").mkdir(parents=True, exist_ok=True)
+    (root / "sw" / "sweep-manifest.json").write_text("{}")
+    (root / "sw" / ".sweep-lock").write_text("")
+    shutil.copy(tracked_result, root / "sw" / "points" / "p.nc")
+    return root
+
+
+def _snapshot(root: Path) -> dict:
+    return {p: p.read_bytes() for p in root.rglob("*") if p.is_file() and not p.is_symlink()}
+
+
+@CLI_FUZZ
+@given(target=TARGETS, replace=st.booleans())
+def test_output_paths_never_destroy_data(output_world, target, replace):
+    """`analyse` with any output name: exit 0 or 2, and a file changes only if it is the named
+    output and was new, an eddyhop result, or --replace was given (never an input or a sweep
+    folder's own file)."""
+    from click.testing import CliRunner
+
+    from eddyhop.cli import main
+
+    before = _snapshot(output_world)
+    old = os.getcwd()
+    os.chdir(output_world)
+    try:
+        args = ["analyse", "t.nc", "--out", target, "-q", "--no-reference"]
+        answer = CliRunner().invoke(main, [*args, "--replace"] if replace else args)
+    finally:
+        os.chdir(old)
+    after = _snapshot(output_world)
+    changed = {p for p in before if before[p] != after.get(p)}
+    ok = answer.exit_code in (0, 2) and "Traceback" not in answer.output and \
+        "internal error" not in answer.output
+    if answer.exit_code != 0:  # refused: nothing changed, nothing new
+        ok = ok and not changed and set(after) == set(before)
+    else:  # written: only the named output may differ, and only if it may be replaced
+        written = (output_world / target).resolve()
+        replaceable = {"other.nc", "new.nc"} | ({"notes.txt"} if replace else set())
+        ok = ok and changed <= {written} and (not changed or written.name in replaceable)
+        ok = ok and written.parent != (output_world / "sw" / "points").resolve() and \
+            written.name not in ("sweep-manifest.json", ".sweep-lock", "t.nc", "link.nc")
+    for path in set(after) - set(before):  # new files are cleaned up for the next case
+        path.unlink()
+    for path, data in before.items():
+        path.write_bytes(data)
+    _count("output paths", "broken" if not ok else "accepted" if answer.exit_code == 0
+           else "refused")
+    assert ok, (target, replace, answer.exit_code, answer.output, changed)
