@@ -267,7 +267,7 @@ def _snapshot(root: Path) -> dict:
     return {p: p.read_bytes() for p in root.rglob("*") if p.is_file() and not p.is_symlink()}
 
 
-@CLI_FUZZ
+@settings(FUZZ, max_examples=64)  # 16 names × 2: hypothesis stops once all 32 are tried
 @given(target=TARGETS, replace=st.booleans())
 def test_output_paths_never_destroy_data(output_world, target, replace):
     """`analyse` with any output name: exit 0 or 2, and a file changes only if it is the named
