@@ -35,3 +35,15 @@ def make_study(**sections):
 @pytest.fixture
 def study_factory():
     return make_study
+
+
+# Reliability suite counters (tests/test_reliability.py): suite → tried / held / accepted.
+RELIABILITY: dict[str, dict[str, int]] = {}
+
+
+def pytest_terminal_summary(terminalreporter):
+    for suite, counts in RELIABILITY.items():
+        terminalreporter.write_line(
+            f"reliability: {suite}: tried {counts['tried']}, held {counts['held']} "
+            f"({counts['accepted']} accepted, {counts['held'] - counts['accepted']} refused "
+            "in one line)")

@@ -128,8 +128,8 @@ def test_ctrl_c_leaves_no_file(tmp_path):
     out = tmp_path / "r.nc"
     out.write_bytes(b"an earlier result that must survive")
     process = subprocess.Popen([sys.executable, "-m", "eddyhop", "run", str(study), "--out",
-                                str(out)], stdout=subprocess.PIPE, stderr=subprocess.PIPE,
-                               text=True)
+                                str(out), "--replace"], stdout=subprocess.PIPE,
+                               stderr=subprocess.PIPE, text=True)
     # interrupt only once integration is under way (the progress bar has started)
     seen = ""
     deadline = time.monotonic() + 180

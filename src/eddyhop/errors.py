@@ -24,3 +24,7 @@ class BlowUpError(EddyhopError, FloatingPointError):
 
 class InputDataError(EddyhopError, ValueError):
     """A Dataset or file handed to an analysis or plot lacks what it needs."""
+
+
+class OutputPathError(EddyhopError, ValueError):
+    """An output path would destroy data or cannot be written; checked before any work."""

@@ -17,7 +17,6 @@ import tempfile
 from pathlib import Path
 
 from . import __version__
-from .errors import EddyhopError
 
 CONVENTIONS = "CF-1.10"
 
@@ -103,15 +102,13 @@ def provenance_attrs(study, kind: str, extra: dict | None = None) -> dict:
 
 
 def check_output_path(path) -> Path:
-    """Refuse early (before any computation) a path whose directory does not exist."""
-    path = Path(path)
-    parent = path.parent if str(path.parent) else Path(".")
-    if not parent.exists():
-        raise EddyhopError(f"output directory {str(parent)!r} does not exist; create it first "
-                           f"or choose another --out")
-    if path.is_dir():
-        raise EddyhopError(f"output path {str(path)!r} is a directory; give a file name")
-    return path
+    """Refuse early (before any computation) a path that cannot be written as given: a
+    missing parent folder, a folder, a backslash or NUL in the name, an over-long name (see
+    :func:`eddyhop.outputs.check_name`; the commands apply the full rule,
+    :func:`eddyhop.outputs.guard_output`)."""
+    from .outputs import check_name
+
+    return check_name(path, option="output path")
 
 
 @contextlib.contextmanager
@@ -175,9 +172,14 @@ def open_result(path):
     from .errors import InputDataError
 
     path = Path(path)
-    name = repr(str(path))
-    if not path.exists():
-        raise InputDataError(f"result file {name} does not exist")
+    text = str(path)
+    name = repr(text if len(text) <= 80 else text[:60] + "…" + text[-15:])
+    try:
+        path.stat()
+    except FileNotFoundError:
+        raise InputDataError(f"result file {name} does not exist") from None
+    except OSError as exc:  # a name too long for the file system, a permission problem, …
+        raise InputDataError(f"result file {name} cannot be read ({exc.strerror})") from None
     if path.is_dir():
         raise InputDataError(f"result file {name} is a directory, not a netCDF file")
     if path.stat().st_size == 0:
@@ -196,3 +198,32 @@ def open_result(path):
         reason = text.strip().splitlines()[0] if text.strip() else type(exc).__name__
         raise InputDataError(f"result file {name} is not a readable netCDF file ({reason}); "
                              f"{hint}") from None
+
+
+RESULT_KIND_TEXT = {"monte_carlo": "a run", "reference": "a reference solution",
+                    "sweep": "a merged sweep"}
+
+
+def require_kind(ds, path, allowed, command: str, foreign_ok: bool = False):
+    """Refuse (one line) a Dataset read from ``path`` whose ``eddyhop_kind`` is not in
+    ``allowed``: a kind ``command`` does not take, or (unless ``foreign_ok``: the command
+    checks the variables it needs itself) a foreign netCDF file with no ``eddyhop_kind``.
+    Returns ``ds``."""
+    from .errors import InputDataError
+
+    kind = ds.attrs.get("eddyhop_kind")
+    text = str(path)
+    name = repr(text if len(text) <= 80 else text[:60] + "…" + text[-15:])
+    takes = ", ".join(RESULT_KIND_TEXT.get(k, k) for k in allowed)
+    if kind is None and foreign_ok:
+        return ds
+    if kind is None:
+        raise InputDataError(f"{name} is a netCDF file but not an eddyhop result (it has no "
+                             f"eddyhop_kind attribute); `eddyhop {command}` takes {takes}")
+    if kind not in allowed:
+        hint = (": analyse one point file (FOLDER/points/<id>.nc); merge already analyses every "
+                "point" if kind == "sweep" else "")
+        raise InputDataError(f"{name} is {RESULT_KIND_TEXT.get(str(kind), repr(kind))} "
+                             f"(eddyhop_kind = {kind!r}); `eddyhop {command}` takes {takes}"
+                             f"{hint}")
+    return ds

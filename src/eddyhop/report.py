@@ -81,6 +81,9 @@ def _table(header, rows, numeric_from: int = 1) -> str:
 
 
 def _png(figure, dpi: int = 110) -> str:
+    from .plots._style import make_text_safe
+
+    make_text_safe(figure)  # user labels with stray $…$ are shown as typed
     buffer = io.BytesIO()
     figure.savefig(buffer, format="png", dpi=dpi, metadata={"Software": f"eddyhop {__version__}"})
     return base64.b64encode(buffer.getvalue()).decode("ascii")
@@ -95,11 +98,18 @@ def _study(ds) -> dict:
             continue
         try:
             study = json.loads(text)
-        except ValueError:
+        except (TypeError, ValueError, RecursionError):
             continue
+        if not isinstance(study, dict):  # a shared file is untrusted: expect nothing of it
+            continue
+        for name in ("flow", "run", "aging", "hopping"):
+            if not isinstance(study.get(name, {}), dict):
+                study[name] = {}
         if "starts" not in study and "start" in study:
             starts = study.pop("start")
             study["starts"] = starts if isinstance(starts, list) else [starts]
+        study["starts"] = [r for r in study.get("starts", []) if isinstance(r, dict)] \
+            if isinstance(study.get("starts", []), list) else []
         return study
     return {}
 
@@ -202,6 +212,7 @@ def _parameters_section(ds) -> str:
     from .plots.sweep import flow_parameters
 
     flow = study.get("flow", {}).get("params") or flow_parameters(ds)[1]
+    flow = flow if isinstance(flow, dict) else {}
     for name, value in flow.items():
         rows.append((f"flow.{name}", _e(value) if isinstance(value, list) else _number(value)))
     for name, value in attrs.items():  # gridded flows: the field report of the input file
@@ -226,15 +237,16 @@ def _parameters_section(ds) -> str:
             rows.append((f"run.{key}", _number(run[key]) if not isinstance(run[key], str)
                          else _e(run[key])))
     for region in study.get("starts", []):
-        extra = ", ".join(f"{k} = {_number(v)}" for k, v in region.items()
+        extra = ", ".join(f"{_e(k)} = {_number(v)}" for k, v in region.items()
                           if k not in ("kind", "label"))
-        rows.append((f"start '{_e(region.get('label', region.get('kind', 'uniform')))}'",
+        # the row name is escaped where the table is built (below), the value here
+        rows.append((f"start '{region.get('label', region.get('kind', 'uniform'))}'",
                      _e(region.get("kind", "")) + (f": {extra}" if extra else "")))
     aging = study.get("aging", {})
-    if aging.get("times"):
+    if isinstance(aging.get("times"), list) and aging["times"]:
         rows.append(("aging times t_a", ", ".join(_number(t) for t in aging["times"])))
     if study.get("hopping", {}).get("enabled"):
-        rows.append(("cell hopping", f"counted, margin {_number(study['hopping']['margin'])} "
+        rows.append(("cell hopping", f"counted, margin {_number(study['hopping'].get('margin'))} "
                                      "of the eddy side"))
     from .plots.sweep import sweep_dimension
 
@@ -601,13 +613,14 @@ def _is_sweep(ds) -> bool:
 
 def write_report(source, out, *, figures=None, analyse: bool = True) -> Path:
     """Write the report of ``source`` (a Dataset or a netCDF path) to ``out`` atomically."""
-    from .io import check_output_path, open_result
+    from .io import check_output_path, open_result, require_kind
 
     out = check_output_path(out)
     source_name = None
     if isinstance(source, (str, os.PathLike)):
         source_name = Path(source).name
-        ds = open_result(source)
+        ds = require_kind(open_result(source), source, ("monte_carlo", "reference", "sweep"),
+                          "report")
     else:
         ds = source
     text = build_report(ds, source_name=source_name, figures=figures, analyse=analyse)

@@ -257,6 +257,14 @@ def _coarse_sums(ctx, region, offset, x0, y0, n_check, check_of_block, workers, 
 _CHECK_IN_MOMENTS = [MOMENT_COLUMNS.index(c) for c in CHECK_COLUMNS]
 
 
+def _gap_steps(gap: float, dt: float) -> int:
+    """Flight gap in steps, at least 1; capped where it could not be reached anyway (a huge
+    advective time 1/(U k) must not overflow the kernel's integer)."""
+    steps = gap / dt
+    return int(max(1.0, min(float(round(steps)) if math.isfinite(steps) else 2.0**62,
+                            2.0**62)))
+
+
 def _make_context(study, schedule: Schedule) -> tuple[_Context, np.ndarray, np.ndarray]:
     family = study.flow.model
     params = study.flow.params
@@ -279,7 +287,7 @@ def _make_context(study, schedule: Schedule) -> tuple[_Context, np.ndarray, np.n
         schedule=schedule, orders=np.asarray(study.moments.orders, dtype=np.float64),
         block_size=block_size_for(run.particles, run.batches), tracked=run.tracked,
         hop_on=study.hopping.enabled, cell=cell, margin=study.hopping.margin,
-        gap_steps=max(1, round(gap / run.dt)), residence_edges=residence_edges,
+        gap_steps=_gap_steps(gap, run.dt), residence_edges=residence_edges,
         flight_edges=flight_edges,
     )
     return ctx, residence_edges, flight_edges

@@ -541,4 +541,9 @@ def load_study(path) -> Study:
     except UnicodeDecodeError:
         raise StudyError(f"study file {str(path)!r} is not UTF-8 text (is it a TOML file?)") \
             from None
+    except OSError as exc:  # a name too long for the file system, no permission, a folder, …
+        text = str(path)
+        shown = text if len(text) <= 80 else text[:60] + "…" + text[-15:]
+        raise StudyError(f"study file {shown!r} cannot be read ({exc.strerror or exc})") \
+            from None
     return parse_study_text(text, str(path))

@@ -62,11 +62,17 @@ def analyse(ds: xr.Dataset, **options) -> xr.Dataset:
         raise AnalysisOptionError(f"unknown analysis option(s) {', '.join(unknown)}; "
                                   f"allowed: {', '.join(sorted(known))}")
     require(ds, ["time", "msd"], "analyse")
+    steps = [function for function, applies in STEPS if applies(ds)]
+    for name, value in options.items():  # an option no applicable step takes is an error
+        if not any(name in inspect.signature(f).parameters for f in steps):
+            takers = [f.__name__ for f, _ in STEPS if name in inspect.signature(f).parameters]
+            raise AnalysisOptionError(
+                f"option {name} = {value!r} has no effect on this file: it is used by "
+                f"{', '.join(takers)}, which need(s) data the file does not hold (see "
+                "docs/analysis.md for what each analysis needs)")
     out = ds
     ran = []
-    for function, applies in STEPS:
-        if not applies(ds):
-            continue
+    for function in steps:
         accepted = inspect.signature(function).parameters
         kwargs = {k: v for k, v in options.items() if k in accepted}
         out = merge_into(out, function(ds, **kwargs))

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import click
 
-from .common import friendly_errors
+from .common import friendly_errors, replace_option
 
 
 def _default_out(result: str) -> str:
@@ -52,8 +52,9 @@ def _default_out(result: str) -> str:
 @click.option("--no-reference", is_flag=True,
               help="Do not solve the cell problem for the summary's reference D_eff.")
 @click.option("--quiet", "-q", is_flag=True, help="Do not print the summary.")
+@replace_option
 @friendly_errors
-def command(result, out, quiet, no_reference, **chosen):
+def command(result, out, quiet, no_reference, replace, **chosen):
     """Analyse RESULT (a netCDF file from `eddyhop run`, a sweep point or the
     reference solver): local exponent alpha(t), regimes, crossover times,
     effective diffusivity with confidence interval, aging, moment spectrum,
@@ -71,12 +72,15 @@ def command(result, out, quiet, no_reference, **chosen):
     Example:  eddyhop analyse lattice.nc --out lattice.analysed.nc
     """
     from ..analysis import analyse
-    from ..io import check_output_path, open_result, write_netcdf
+    from ..io import open_result, require_kind, write_netcdf
+    from ..outputs import guard_output
 
     target = out or _default_out(result)
-    check_output_path(target)
+    guard_output(target, kind="result", inputs=[result], replace=replace, default=out is None)
     options = {k: v for k, v in chosen.items() if v is not None and v != ()}
-    ds = analyse(open_result(result), **options)
+    source = require_kind(open_result(result), result, ("monte_carlo", "reference"), "analyse",
+                          foreign_ok=True)
+    ds = analyse(source, **options)
     write_netcdf(ds, target)
     click.echo(f"wrote {target}")
     if not quiet:

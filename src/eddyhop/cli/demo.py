@@ -6,7 +6,7 @@ from importlib import resources
 
 import click
 
-from .common import friendly_errors, progress_option, workers_option
+from .common import friendly_errors, progress_option, replace_option, workers_option
 
 
 def demo_text() -> str:
@@ -14,13 +14,14 @@ def demo_text() -> str:
 
 
 @click.command("demo")
-@click.option("--out", "-o", type=click.Path(dir_okay=False), default="demo.nc",
-              show_default=True, help="netCDF file to write.")
+@click.option("--out", "-o", type=click.Path(dir_okay=False), default=None,
+              help="netCDF file to write. [default: demo.nc, never silently replaced]")
 @click.option("--show-study", is_flag=True, help="Print the demo study file and exit.")
 @workers_option
 @progress_option
+@replace_option
 @friendly_errors
-def command(out, show_study, workers, progress):
+def command(out, show_study, workers, progress, replace):
     """Run the built-in demo: tracers released at eddy centres and on the
     separatrices of a cellular flow at Pe = 100, compared side by side.
 
@@ -35,6 +36,10 @@ def command(out, show_study, workers, progress):
     if show_study:
         click.echo(text)
         return
+    from ..outputs import guard_output
+
+    target = out or "demo.nc"
+    guard_output(target, kind="result", replace=replace, default=out is None)
     study = parse_study_text(text, "eddyhop/demo/demo.toml")
-    ds = run_study(study, out=out, workers=workers, progress=progress)
-    print_summary(ds, out)
+    ds = run_study(study, out=target, workers=workers, progress=progress)
+    print_summary(ds, target)

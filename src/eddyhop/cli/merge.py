@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from .common import friendly_errors
+from .common import finite_option_check, friendly_errors, refuse, replace_option
 
 
 @click.command("merge")
@@ -14,9 +14,11 @@ from .common import friendly_errors
 @click.option("--no-analysis", is_flag=True,
               help="Do not add derived quantities (D_eff, crossovers, regimes) per point.")
 @click.option("--fit-peclet", nargs=2, type=float, default=None, metavar="LOW HIGH",
+              callback=finite_option_check(0.0, None, low_open=True),
               help="Péclet range of the scaling fits. [default: every point]")
+@replace_option
 @friendly_errors
-def command(folder, out, no_analysis, fit_peclet):
+def command(folder, out, no_analysis, fit_peclet, replace):
     """Merge the sweep in FOLDER into one Dataset with the swept parameters as
     dimensions (coordinates with units) and derived quantities per point.
 
@@ -28,10 +30,14 @@ def command(folder, out, no_analysis, fit_peclet):
     boundary-layer and diffusive time scales) and stored in the file.
     Example:  eddyhop merge pan/ --out pan_sweep.nc
     """
-    from ..io import check_output_path, write_netcdf
+    from ..io import write_netcdf
+    from ..outputs import guard_output
     from ..sweep import merge_sweep
 
-    check_output_path(out)
+    if fit_peclet is not None and not fit_peclet[0] < fit_peclet[1]:
+        refuse(f"--fit-peclet {fit_peclet[0]:g} {fit_peclet[1]:g} is not allowed: give LOW < "
+               "HIGH")
+    guard_output(out, kind="sweep", inputs=[folder], replace=replace)
     ds = merge_sweep(folder, analyse=not no_analysis, peclet_range=fit_peclet)
     write_netcdf(ds, out)
     counts = (ds.attrs["sweep_points_done"], ds.attrs["sweep_points_failed"],

@@ -6,7 +6,25 @@ from pathlib import Path
 
 import click
 
-from .common import friendly_errors
+from .common import friendly_errors, replace_option
+
+DPI_RANGE = (10, 2400)
+FIGURE_FORMATS = ("png", "pdf", "svg")
+
+
+def _formats(text: str) -> tuple:
+    """``"png,pdf"`` → ("png", "pdf"); refuses an empty list or an unknown format."""
+    from ..errors import EddyhopError
+
+    fmts = tuple(dict.fromkeys(f.strip().lower() for f in text.split(",") if f.strip()))
+    if not fmts:
+        raise EddyhopError(f"--format {text!r} names no format; give one or more of "
+                           + ", ".join(FIGURE_FORMATS) + " separated by commas")
+    for fmt in fmts:
+        if fmt not in FIGURE_FORMATS:
+            raise EddyhopError(f"--format {fmt!r} is not supported; choose from "
+                               + ", ".join(FIGURE_FORMATS))
+    return fmts
 
 
 @click.command("plot")
@@ -19,11 +37,13 @@ from .common import friendly_errors
                    "supports]")
 @click.option("--format", "formats", default="png,pdf", show_default=True,
               help="Comma-separated file formats: png, pdf, svg.")
-@click.option("--dpi", type=int, default=150, show_default=True, help="Resolution of PNGs.")
+@click.option("--dpi", type=int, default=150, show_default=True,
+              help=f"Resolution of PNGs, {DPI_RANGE[0]} to {DPI_RANGE[1]}.")
 @click.option("--list", "list_only", is_flag=True,
               help="List the figures RESULT supports and exit.")
+@replace_option
 @friendly_errors
-def command(result, out_dir, names, formats, dpi, list_only):
+def command(result, out_dir, names, formats, dpi, list_only, replace):
     """Draw figures of RESULT (a run, analysed run or merged sweep netCDF file).
 
     \b
@@ -31,11 +51,20 @@ def command(result, out_dir, names, formats, dpi, list_only):
     whose variables are missing is refused with the command that makes them.
     Example:  eddyhop plot lattice.nc --figure msd --figure aging --format png
     """
-    from ..io import open_result
+    from ..errors import EddyhopError
+    from ..io import open_result, require_kind
+    from ..outputs import check_name, check_not_in_sweep, guard_output
     from ..plots import available_figures, figures_for, save_figure
     from ..plots.catalogue import FIGURES
 
-    ds = open_result(result)
+    fmts = _formats(formats)
+    if not DPI_RANGE[0] <= dpi <= DPI_RANGE[1]:
+        raise EddyhopError(f"--dpi {dpi} is outside the allowed range "
+                           f"[{DPI_RANGE[0]}, {DPI_RANGE[1]}]")
+    if out_dir:
+        check_name(out_dir, option="--out", want_dir=True)
+    ds = require_kind(open_result(result), result, ("monte_carlo", "reference", "sweep"),
+                      "plot", foreign_ok=True)
     available = available_figures(ds)
     if list_only:
         for name, (_function, _needs, text) in FIGURES.items():
@@ -46,10 +75,22 @@ def command(result, out_dir, names, formats, dpi, list_only):
     if not chosen:
         click.echo("no figure applies to this file (see --list)")
         return
-    fmts = tuple(f.strip().lower() for f in formats.split(",") if f.strip())
+    from ..plots.catalogue import FIGURES as KNOWN
+
+    unknown = [name for name in chosen if name not in KNOWN]
+    if unknown:
+        raise EddyhopError(f"unknown figure {unknown[0]!r}; choose from: " + ", ".join(KNOWN))
     target = Path(out_dir) if out_dir else Path(result).resolve().parent
-    target.mkdir(parents=True, exist_ok=True)
     stem = Path(result).stem
+    for name in chosen:  # check every file name before drawing anything
+        for fmt in fmts:
+            file = target / f"{stem}_{name}.{fmt}"
+            if target.is_dir():
+                guard_output(file, kind="figure", inputs=[result], replace=replace,
+                             default=out_dir is None)
+            else:  # a new folder: nothing to replace, but not inside a sweep's own files
+                check_not_in_sweep(file)
+    target.mkdir(exist_ok=True)
     for name, figure in figures_for(ds, chosen):
         for path in save_figure(figure, target / f"{stem}_{name}", formats=fmts, dpi=dpi):
             click.echo(f"wrote {path}")

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import click
 
-from .common import friendly_errors
+from .common import finite_option_check, friendly_errors, refuse, replace_option
 
 
 def default_output(study_output: str) -> str:
@@ -15,15 +15,25 @@ def default_output(study_output: str) -> str:
     return str(path.with_name(f"{path.stem}_reference{path.suffix or '.nc'}"))
 
 
+MAX_MODES = 512  # = reference.cell_problem.DEFAULT_MAX_MODES (not imported: --help stays fast)
+
+
+def _check_modes(value):
+    if value is not None and not 2 <= value <= MAX_MODES:
+        refuse(f"--modes = {value} is not allowed: give 2 to {MAX_MODES} Fourier modes per "
+               "direction (or omit it to choose from --rtol)")
+    return value
+
+
 @click.command("reference")
 @click.argument("study", type=click.Path(dir_okay=False))
 @click.option("--out", "-o", type=click.Path(dir_okay=False), default=None,
               help="netCDF file to write (atomically). [default: the study's output.path "
                    "with _reference before the suffix]")
-@click.option("--modes", type=click.IntRange(min=2), default=None,
+@click.option("--modes", type=int, default=None, callback=lambda c, p, v: _check_modes(v),
               help="Fourier modes per direction (each way from 0). [default: chosen from the "
                    "Peclet number for --rtol]")
-@click.option("--rtol", type=click.FloatRange(min=0.0, max=1.0, min_open=True, max_open=True),
+@click.option("--rtol", type=float, callback=finite_option_check(0.0, 1.0, True, True),
               default=1e-6, show_default=True,
               help="Target relative accuracy (sets the automatic resolution and the "
                    "convergence test of the homogenized tensor).")
@@ -31,8 +41,9 @@ def default_output(study_output: str) -> str:
               help="Skip the second, coarser solve that estimates the resolution error.")
 @click.option("--diffusivity-only", is_flag=True,
               help="Only solve the cell problem and print the homogenized tensor (no file).")
+@replace_option
 @friendly_errors
-def command(study, out, modes, rtol, no_check, diffusivity_only):
+def command(study, out, modes, rtol, no_check, diffusivity_only, replace):
     """Deterministic reference for STUDY: exact mean and MSD versus time for
     every start region (no particles, no sampling noise), plus the long-time
     homogenized diffusivity tensor.
@@ -43,7 +54,8 @@ def command(study, out, modes, rtol, no_check, diffusivity_only):
     overlaid.  Needs a steady flow without walls and kappa > 0.
     Example:  eddyhop reference studies/lattice_mixer.toml --out ref.nc
     """
-    from ..io import check_output_path, write_netcdf
+    from ..io import write_netcdf
+    from ..outputs import guard_output
     from ..reference.api import effective_diffusivity, moment_evolution
     from ..spec import load_study
 
@@ -55,7 +67,10 @@ def command(study, out, modes, rtol, no_check, diffusivity_only):
         click.echo(f"  solved in {result.seconds:.2f} s")
         return
     target = out or default_output(spec.output.path)
-    check_output_path(target)
+    from .run import study_inputs
+
+    guard_output(target, kind="result", inputs=study_inputs(spec, study), replace=replace,
+                 default=out is None)
     ds = moment_evolution(spec, modes=modes, rtol=rtol, check=not no_check)
     write_netcdf(ds, target)
     _summary(ds, target)

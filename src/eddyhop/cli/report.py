@@ -4,20 +4,22 @@ from __future__ import annotations
 
 import click
 
-from .common import friendly_errors
+from .common import friendly_errors, replace_option
 
 
 @click.command("report")
 @click.argument("result", type=click.Path(dir_okay=False))
-@click.option("--out", "-o", type=click.Path(dir_okay=False), default="report.html",
-              show_default=True, help="HTML file to write (atomically).")
+@click.option("--out", "-o", type=click.Path(dir_okay=False), default=None,
+              help="HTML file to write (atomically). [default: report.html, never silently "
+                   "replaced]")
 @click.option("--figure", "-f", "names", multiple=True,
               help="Restrict the report to these figures (repeatable). [default: all]")
 @click.option("--no-analyse", is_flag=True,
               help="Do not analyse an unanalysed file in memory (faster; omits regimes, "
                    "crossovers and D_eff).")
+@replace_option
 @friendly_errors
-def command(result, out, names, no_analyse):
+def command(result, out, names, no_analyse, replace):
     """Write one HTML file about RESULT (a run, analysed run or merged sweep).
 
     \b
@@ -26,7 +28,10 @@ def command(result, out, names, no_analyse):
     with confidence intervals, warnings (large dt, too-short run) and
     provenance.  Example:  eddyhop report lattice.nc --out lattice.html
     """
+    from ..outputs import guard_output
     from ..report import write_report
 
-    path = write_report(result, out, figures=list(names) or None, analyse=not no_analyse)
+    target = out or "report.html"
+    guard_output(target, kind="report", inputs=[result], replace=replace, default=out is None)
+    path = write_report(result, target, figures=list(names) or None, analyse=not no_analyse)
     click.echo(f"wrote {path}")

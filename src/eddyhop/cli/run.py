@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from .common import friendly_errors, progress_option, workers_option
+from .common import friendly_errors, progress_option, replace_option, workers_option
 
 
 @click.command("run")
@@ -13,20 +13,38 @@ from .common import friendly_errors, progress_option, workers_option
               help="netCDF file to write (atomically). [default: the study's output.path]")
 @workers_option
 @progress_option
+@replace_option
 @friendly_errors
-def command(study, out, workers, progress):
+def command(study, out, workers, progress, replace):
     """Run the Monte Carlo ensemble of STUDY and write its statistics to netCDF.
 
     \b
     The file holds msd, msd_x, msd_y, mean_dx, mean_dy (and more) on the
     `time` coordinate, with units and the full study as provenance.
     Example:  eddyhop run studies/lattice_mixer.toml --out lattice.nc
+
+    \b
+    An existing file is replaced only if it is an eddyhop result named with
+    --out; the default name (output.path) is never silently replaced: give
+    --out or --replace.
     """
     from ..api import run_study
+    from ..outputs import guard_output
     from ..spec import load_study
     from .summary import print_summary
 
     spec = load_study(study)
     target = out or spec.output.path
+    guard_output(target, kind="result", inputs=study_inputs(spec, study), replace=replace,
+                 default=out is None)
     ds = run_study(spec, out=target, workers=workers, progress=progress)
     print_summary(ds, target)
+
+
+def study_inputs(spec, path) -> list:
+    """Files a study reads: the study file itself and a gridded flow's field file."""
+    inputs = [path]
+    data_file = spec.flow.params.get("file") if isinstance(spec.flow.params, dict) else None
+    if isinstance(data_file, str):
+        inputs.append(data_file)
+    return inputs

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from .common import friendly_errors, progress_option
+from .common import check_workers, friendly_errors, progress_option, replace_option
 
 
 @click.command("sweep")
@@ -20,7 +20,7 @@ from .common import friendly_errors, progress_option
                    "0 is refused.")
 @click.option("--scheduler", default=None, metavar="tcp://HOST:PORT",
               help="Dask scheduler to send points to. [default: $DASK_SCHEDULER_ADDRESS]")
-@click.option("--workers", "-w", type=int, default=None,
+@click.option("--workers", "-w", type=int, default=None, callback=check_workers,
               help="Threads per point; -1: every core. [default: run.workers when serial, "
                    "else 1]")
 @click.option("--merged", type=click.Path(dir_okay=False), default=None,
@@ -32,9 +32,10 @@ from .common import friendly_errors, progress_option
               help="Seconds to wait for a Dask scheduler and its workers.")
 @click.option("--dry-run", is_flag=True, help="List the points and exit.")
 @progress_option
+@replace_option
 @friendly_errors
 def command(study, out, backend, jobs, scheduler, workers, merged, no_merge, retry_failed,
-            timeout, dry_run, progress):
+            timeout, dry_run, progress, replace):
     """Run the parameter sweep of STUDY (a study file with a [sweep] table).
 
     \b
@@ -47,10 +48,17 @@ def command(study, out, backend, jobs, scheduler, workers, merged, no_merge, ret
     holding another study's sweep is refused.
     Example:  eddyhop sweep studies/sweep_pan_rolls.toml --out pan/ -j 2
     """
+    from ..errors import EddyhopError
     from ..spec import load_study
     from ..sweep import run_sweep
+    from ..sweeps.backends import scheduler_address
 
+    if not (timeout > 0 and timeout < float("inf")):
+        raise EddyhopError(f"--timeout {timeout!r} is not allowed: give a finite number of "
+                           "seconds > 0")
+    scheduler_address(scheduler)  # a malformed address is refused before any work
     spec = load_study(study)
+    _check_outputs(study, out, merged, no_merge, replace)
     if dry_run:
         _print_plan(spec)
         return
@@ -92,3 +100,20 @@ def _print_plan(study):
                + ", ".join(f"{a.address} ×{len(a.values)}" for a in sweep.axes) + ")")
     for point in sweep.points():
         click.echo(f"  {point.id}  {point.describe(sweep.axes)}")
+
+
+def _check_outputs(study, out, merged, no_merge, replace) -> None:
+    """The output rule (:mod:`eddyhop.outputs`) for the folder and the merged file, before any
+    point runs.  The folder's own merged file (OUT/sweep.nc) is replaced by a new merge."""
+    from ..outputs import check_name, check_not_in_sweep, guard_output
+    from ..sweeps.execute import MERGED_NAME
+
+    folder = check_name(out, option="--out", want_dir=True)
+    check_not_in_sweep(folder / MERGED_NAME)  # not a folder inside another sweep's files
+    if no_merge:
+        return
+    if merged:
+        guard_output(merged, kind="sweep", inputs=[study], replace=replace, option="--merged")
+    elif folder.is_dir():
+        guard_output(folder / MERGED_NAME, kind="sweep", inputs=[study], replace=replace,
+                     option="--merged (default)")

@@ -28,7 +28,8 @@ def command(studies):
             study = load_study(path)
             schedule = build_schedule(study.run, study.aging, study.run.track_samples)
         except EddyhopError as exc:
-            click.secho(f"{path}: invalid: {exc}", fg="red", err=True)
+            shown = path if len(path) <= 80 else path[:60] + "…" + path[-15:]
+            click.secho(f"{shown}: invalid: {exc}", fg="red", err=True)
             failed = True
             continue
         peclet = study.noise.peclet

@@ -21,6 +21,9 @@ FAMILIES: dict[str, FlowFamily] = {
 
 def get_family(name: str) -> FlowFamily:
     """The family registered under ``name``; an unknown name lists the choices."""
+    if not isinstance(name, str):
+        raise StudyError(f"flow.family = {name!r} must be a text naming one flow family; "
+                         "choose one of: " + ", ".join(FAMILIES))
     try:
         return FAMILIES[name]
     except KeyError:

@@ -58,6 +58,10 @@ WAVENUMBER = Parameter("k", "wavenumber; one eddy has side pi/k", "wavenumber",
                        default=1.0, low=0.0, low_open=True)
 
 
+# Representable wavenumbers: (2 pi/k)^2 stays a normal double (≈ 2e-308 … 1.8e308) inside.
+K_LIMITS = (1e-150, 1e150)
+
+
 @dataclass(frozen=True)
 class FlowFamily:
     """Description of a flow family; subclasses add geometry and the compiled field functions.
@@ -91,6 +95,12 @@ class FlowFamily:
                 raise StudyError(f"{where}.{p.name} is required for flow family '{self.name}'")
             else:
                 checked[p.name] = float(p.default)
+        if "k" in checked and not K_LIMITS[0] <= checked["k"] <= K_LIMITS[1]:
+            # the cell side pi/k, the period 2 pi/k and the cell area (2 pi/k)^2 must all be
+            # ordinary doubles (neither overflow to inf nor underflow to 0)
+            raise StudyError(f"{where}.k = {checked['k']:g} is outside the allowed range "
+                             f"[{K_LIMITS[0]:g}, {K_LIMITS[1]:g}] (the eddy size pi/k and the "
+                             "cell area must be representable numbers)")
         return checked
 
     def pack(self, values: dict) -> np.ndarray:

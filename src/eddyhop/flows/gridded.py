@@ -442,9 +442,13 @@ class GriddedFamily(FlowFamily):
             checked["velocity"] = list(velocity_names)
         if "stream_function" in text:
             checked["stream_function"] = text["stream_function"]
+        if os.path.exists(checked["file"]) and not os.path.isfile(checked["file"]):
+            raise StudyError(f"{where}.file = {checked['file']!r} is not a regular file (a "
+                             "folder or a device); give a netCDF file")
         if not os.path.isfile(checked["file"]):
-            raise StudyError(f"{where}.file = {checked['file']!r} does not exist (relative "
-                             f"paths are taken from the working directory {os.getcwd()!r})")
+            raise StudyError(f"{where}.file = {checked['file']!r} does not exist (a relative "
+                             "path is looked up beside the study file, then in the working "
+                             f"directory {os.getcwd()!r})")
         digest = file_digest(checked["file"])
         if expected_digest is not None and expected_digest != digest:
             raise StudyError(f"{where}.file_sha256 = {expected_digest!r} does not match the "

@@ -139,6 +139,41 @@ def provenance_line(ds) -> str:
     return " · ".join(parts)
 
 
+def literal_text(text: str) -> str:
+    """``text`` with every unescaped ``$`` escaped, so matplotlib shows it literally."""
+    out, escaped = [], False
+    for char in str(text):
+        out.append("\\$" if char == "$" and not escaped else char)
+        escaped = char == "\\" and not escaped
+    return "".join(out)
+
+
+def make_text_safe(figure) -> int:
+    """Show literally every text of ``figure`` whose math markup does not parse.
+
+    Labels, units and titles come from study files and result attributes (user text); a
+    stray ``$…$`` in them would otherwise abort drawing with a mathtext parse error.  The
+    package's own math labels parse and are kept.  Returns how many texts were changed."""
+    from matplotlib.font_manager import FontProperties
+    from matplotlib.mathtext import MathTextParser
+    from matplotlib.text import Text
+
+    parser = MathTextParser("path")
+    changed = 0
+    for artist in figure.findobj(Text):
+        text = artist.get_text()
+        dollars = text.count("$") - text.count("\\$")
+        if dollars == 0 or dollars % 2 or not artist.get_parse_math():
+            continue  # matplotlib treats the text as math only with an even count of $
+        try:  # it lays out (and parses) each line on its own
+            for line in text.split("\n"):
+                parser.parse(line, dpi=72, prop=FontProperties())
+        except Exception:
+            artist.set_text(literal_text(text))
+            changed += 1
+    return changed
+
+
 def save_figure(figure, path, formats=("png",), dpi: int = 150) -> list[Path]:
     """Write ``figure`` to ``path`` with each suffix in ``formats``; atomic per file.
 
@@ -154,6 +189,7 @@ def save_figure(figure, path, formats=("png",), dpi: int = 150) -> list[Path]:
         raise EddyhopError(f"output directory {str(parent)!r} does not exist; create it first")
     if path.suffix.lstrip(".").lower() in FORMATS:
         path = path.with_suffix("")
+    make_text_safe(figure)
     written = []
     for fmt in formats:
         if fmt not in FORMATS:

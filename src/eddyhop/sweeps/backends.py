@@ -276,8 +276,25 @@ def _identity(address: str, deadline: float):
 
 
 def scheduler_address(option: str | None) -> str | None:
-    """``--scheduler`` if given, else the ``DASK_SCHEDULER_ADDRESS`` environment variable."""
-    return option or os.environ.get(SCHEDULER_ENV) or None
+    """``--scheduler`` if given, else the ``DASK_SCHEDULER_ADDRESS`` environment variable;
+    an address with a scheme Dask does not speak (``http://`` …) is refused at once."""
+    address = option or os.environ.get(SCHEDULER_ENV) or None
+    if address:
+        check_scheduler(address, "--scheduler" if option else SCHEDULER_ENV)
+    return address
+
+
+SCHEDULER_SCHEMES = ("tcp", "tls", "ucx", "inproc")
+
+
+def check_scheduler(address: str, where: str = "--scheduler") -> None:
+    """Refuse a scheduler address whose scheme is not one of ``SCHEDULER_SCHEMES`` (a bare
+    ``host:port`` means tcp)."""
+    scheme = address.split("://", 1)[0].lower() if "://" in address else "tcp"
+    host = address.split("://", 1)[-1]
+    if scheme not in SCHEDULER_SCHEMES or not host.strip() or any(c.isspace() for c in address):
+        raise EddyhopError(f"{where} = {address!r} is not a Dask scheduler address; give "
+                           "tcp://HOST:PORT (schemes: " + ", ".join(SCHEDULER_SCHEMES) + ")")
 
 
 def check_count(value, option: str, what: str) -> None:

@@ -27,7 +27,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from ..errors import EddyhopError
-from .manifest import Manifest, folder_lock, sha256_file
+from .manifest import MANIFEST_NAME, Manifest, _refuse_foreign, folder_lock, sha256_file
 
 MERGED_NAME = "sweep.nc"
 
@@ -181,6 +181,8 @@ def run_sweep(study, out, *, backend: str = "auto", jobs: int | None = None,
     points = spec.points()
     report = SweepReport(directory=directory, n_points=len(points))
     show = study.run.progress if progress is None else progress
+    if not (directory / MANIFEST_NAME).exists():
+        _refuse_foreign(directory)  # before the lock: a refused folder is left untouched
     with folder_lock(directory):
         manifest = Manifest.open_for_sweep(directory, spec, spec.fingerprint(), study)
         manifest.remove_stale_temporaries()

@@ -29,6 +29,7 @@ import contextlib
 import datetime as _dt
 import hashlib
 import json
+import os
 from pathlib import Path
 
 from ..errors import EddyhopError
@@ -85,6 +86,60 @@ def _refuse_foreign(directory: Path) -> None:
                            "that may belong to someone else; choose a new or empty folder")
 
 
+_TOP_FIELDS = {"fingerprint": str, "combine": str, "dims": list, "shape": list, "axes": list,
+               "points": list}
+_ENTRY_FIELDS = {"id": str, "index": int, "parameters": dict, "status": str}
+_ENTRY_OPTIONAL = {"file": str, "sha256": str, "error": str, "warnings": list,
+                   "attempts": int, "seconds": (int, float), "finished": str, "staged": dict}
+
+
+def _check_layout(data: dict, path: Path) -> None:
+    """Refuse (one line) a manifest whose fields are missing or of the wrong type, whose
+    statuses are unknown, or whose point file is anything but ``points/<id>.nc`` inside the
+    folder (a shared manifest is untrusted input: ``../../x.nc`` must not be read)."""
+    where = repr(str(path))
+
+    def bad(field: str, value, allowed: str):
+        shown = repr(value)
+        shown = shown if len(shown) <= 60 else shown[:57] + "..."
+        raise EddyhopError(f"{where} is damaged: {field} = {shown}; allowed: {allowed}; "
+                           "refusing to touch the folder")
+
+    for name, kind in _TOP_FIELDS.items():
+        if not isinstance(data.get(name), kind):
+            bad(name, data.get(name, "<missing>"), f"a {kind.__name__}")
+    seen = set()
+    folder = os.path.realpath(path.parent)
+    for number, entry in enumerate(data["points"]):
+        if not isinstance(entry, dict):
+            bad(f"points[{number}]", entry, "a table of the point's fields")
+        for name, kind in _ENTRY_FIELDS.items():
+            if name not in entry:
+                bad(f"points[{number}].{name}", "<missing>", f"a {kind.__name__}")
+            if not isinstance(entry[name], kind) or isinstance(entry[name], bool):
+                bad(f"points[{number}].{name}", entry[name], f"a {kind.__name__}")
+        point_id = entry["id"]
+        if point_id in seen or not point_id.replace("_", "").replace("-", "").isalnum():
+            bad(f"points[{number}].id", point_id, "a unique name of letters, digits, - and _")
+        seen.add(point_id)
+        if entry["status"] not in STATUSES:
+            bad(f"points[{number}].status", entry["status"], ", ".join(STATUSES))
+        for name, kind in _ENTRY_OPTIONAL.items():
+            value = entry.get(name)
+            if value is not None and not isinstance(value, kind):
+                bad(f"points[{number}].{name}", value, "empty or the recorded kind")
+        file = entry.get("file")
+        if file is not None:
+            inside = os.path.realpath(os.path.join(folder, file))
+            if file != f"{POINTS_DIR}/{point_id}.nc" or \
+                    os.path.dirname(inside) != os.path.join(folder, POINTS_DIR):
+                bad(f"points[{number}].file", file, f"{POINTS_DIR}/{point_id}.nc inside the "
+                    "sweep folder")
+        if entry["status"] == "done" and (file is None or entry.get("sha256") is None):
+            bad(f"points[{number}]", "done without file and sha256",
+                "a done point records its file and checksum")
+
+
 class Manifest:
     """In-memory manifest of a sweep folder; ``save`` writes it atomically."""
 
@@ -120,7 +175,8 @@ class Manifest:
             raise EddyhopError(f"{str(path)!r} has manifest format version "
                                f"{data.get('format_version')!r}; this eddyhop reads "
                                "versions " + ", ".join(map(str, READABLE_VERSIONS)))
-        for entry in data.get("points", []):
+        _check_layout(data, path)
+        for entry in data["points"]:
             entry.setdefault("staged", None)
         data["format_version"] = FORMAT_VERSION  # written back in this version's layout
         return cls(directory, data)
