@@ -5,6 +5,8 @@ The late log-log slope is the analysis's ``deff_alpha`` (one definition everywhe
 
 from __future__ import annotations
 
+import warnings
+
 import click
 import numpy as np
 
@@ -25,6 +27,7 @@ def print_summary(ds, path=None):
     from ..presentation import LATE_SLOPE_NAME, late_slopes
 
     slopes = late_slopes(ds)
+    verdicts = _step_verdicts(ds)
     for label in starts:
         part = ds.sel(start=label) if multi else ds
         final = float(part["msd"].values[-1])
@@ -38,4 +41,24 @@ def print_summary(ds, path=None):
         if np.isfinite(slope):
             line += f"; {LATE_SLOPE_NAME} = {slope:.3f}"
             line += f" ± {slope_se:.2g}" if np.isfinite(slope_se) else ""
+        verdict = verdicts.get(label, verdicts.get(""))
+        if verdict:
+            line += f"; step check {verdict if verdict == 'passed' else verdict.upper()}"
         click.echo(line)
+
+
+def _step_verdicts(ds) -> dict:
+    """start label ("" without starts) → the step check's verdict word, if the run has one
+    (the same analysis ``eddyhop analyse`` runs; details there)."""
+    from ..analysis.stepcheck import has_step_check, step_check
+    from ..analysis.verdicts import flag_meaning
+
+    if not has_step_check(ds):
+        return {}
+    with warnings.catch_warnings():  # the run has already warned; here only the verdict
+        warnings.simplefilter("ignore")
+        result = step_check(ds)
+    if "start" not in result.dims:
+        return {"": flag_meaning(result["step_check"])}
+    return {str(label): flag_meaning(result["step_check"].sel(start=label))
+            for label in result["start"].values}
