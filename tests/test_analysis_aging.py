@@ -257,10 +257,21 @@ def brownian_aged_dataset(rng, n, kappa, aging_times, lags, batches=20):
         2 * kappa * np.diff(queries, prepend=0.0))
     positions = np.cumsum(steps, axis=2)
 
+    return aged_dataset_from_paths(positions, queries, aging_times, lags, batches)
+
+
+def aged_dataset_from_paths(positions, queries, aging_times, lags, batches):
+    """Engine-shaped Dataset from sampled 2-D paths ``positions`` (2, n, len(queries)) at the
+    sorted times ``queries`` (which hold 0 or start at the origin, every lag, aging time and
+    their sums): msd… on ``time`` = lags from X(0), aged_msd (+ se, per-batch means) on
+    (aging_time, lag)."""
+    n = positions.shape[1]
+
     def at(t):
         return positions[:, :, np.searchsorted(queries, t)]
 
-    ds = ensemble_dataset(*at(lags), lags, batches=batches)
+    origin = at(0.0) if queries[0] == 0.0 else 0.0
+    ds = ensemble_dataset(*(at(lags) - np.asarray(origin)[..., None]), lags, batches=batches)
     r2 = np.array([[np.sum((at(ta + lag) - at(ta)) ** 2, axis=0) for lag in lags]
                    for ta in aging_times])  # (aging_time, lag, particle)
     bounds = np.linspace(0, n, batches + 1).astype(int)
@@ -342,21 +353,7 @@ def trapped_aged_dataset(rng, n, kappa, relaxation, aging_times, lags, batches=2
         positions[:, :, j] = (positions[:, :, j - 1] * decay + rng.standard_normal((2, n))
                               * math.sqrt(kappa * relaxation * (1 - decay * decay)))
 
-    def at(t):
-        return positions[:, :, np.searchsorted(queries, t)]
-
-    origin = at(0.0)
-    ds = ensemble_dataset(*(at(lags) - origin[:, :, None]), lags, batches=batches)
-    r2 = np.array([[np.sum((at(ta + lag) - at(ta)) ** 2, axis=0) for lag in lags]
-                   for ta in aging_times])
-    bounds = np.linspace(0, n, batches + 1).astype(int)
-    dims = ("aging_time", "lag")
-    ds = ds.assign_coords(aging_time=aging_times, lag=lags)
-    ds["aged_msd"] = (dims, r2.mean(axis=-1))
-    ds["aged_msd_se"] = (dims, r2.std(axis=-1, ddof=1) / math.sqrt(n))
-    ds["batch_aged_msd"] = (("batch", *dims), np.array(
-        [r2[..., lo:hi].mean(axis=-1) for lo, hi in itertools.pairwise(bounds)]))
-    return ds
+    return aged_dataset_from_paths(positions, queries, aging_times, lags, batches)
 
 
 def test_aging_fit_of_brownian_motion_is_accepted():
