@@ -25,6 +25,12 @@ from pathlib import Path
 
 from .errors import OutputPathError
 
+# A sweep folder's own files (the sweeps package imports these names from here, so that this
+# low-level module need not import the sweeps).
+MANIFEST_NAME = "sweep-manifest.json"
+POINTS_DIR = "points"
+LOCK_NAME = ".sweep-lock"
+
 # what each kind of output is, for messages
 KIND_TEXT = {
     "result": "an eddyhop result netCDF file (run, demo, analyse or reference)",
@@ -92,8 +98,6 @@ def _same_file(a: Path, b: Path) -> bool:
 
 def sweep_folder_of(path) -> Path | None:
     """The nearest folder at or above ``path``'s folder that holds a sweep manifest, if any."""
-    from .sweeps.manifest import MANIFEST_NAME
-
     for folder in Path(os.path.realpath(path)).parents:
         if (folder / MANIFEST_NAME).is_file():
             return folder
@@ -150,8 +154,6 @@ def check_not_in_sweep(path, option: str = "--out") -> None:
     folder = sweep_folder_of(path)
     if folder is None:
         return
-    from .sweeps.manifest import LOCK_NAME, MANIFEST_NAME
-
     real = Path(os.path.realpath(path))
     if real.parent != folder or real.name in (MANIFEST_NAME, LOCK_NAME) or \
             real.name.endswith(".part"):

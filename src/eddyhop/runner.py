@@ -23,8 +23,7 @@ from .integrators import SCHEME_CODES
 from .kernel import AGED_COLUMNS, MOMENT_COLUMNS, N_BASE, run_particles
 from .noise import pack_noise
 from .rng import split_seed
-from .schedule import Schedule, build_schedule
-from .spec import MIN_CHECK_BATCH
+from .schedule import MIN_CHECK_BATCH, Schedule, build_schedule
 from .starts import area_fraction, sample_starts
 from .stepcheck import CHECK_COLUMNS, run_step_check
 

@@ -12,6 +12,11 @@ import numpy as np
 
 from .errors import StudyError
 
+# The step check splits its subsample into check batches of at least this many particles and
+# needs at least two of them for a jackknife error (runner.check_plan plans them; spec
+# validates run.step_check_particles against it).
+MIN_CHECK_BATCH = 8
+
 
 @dataclass(frozen=True)
 class Schedule:

@@ -17,6 +17,7 @@ from typing import Any
 
 from .errors import StudyError, range_text
 from .flows import get_family
+from .schedule import MIN_CHECK_BATCH
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -25,9 +26,6 @@ else:  # pragma: no cover
 
 SCHEMA_VERSION = 1
 STEP_LIMIT = 2**48  # steps per particle the counter-based streams address (see rng.py)
-# The step check splits its subsample into check batches of at least this many particles and
-# needs at least two of them for a jackknife error (stepcheck.check_batches).
-MIN_CHECK_BATCH = 8
 MIN_CHECK_PARTICLES = 2 * MIN_CHECK_BATCH
 # Default subsample of the step check: this fraction of run.particles (at least
 # MIN_CHECK_PARTICLES); the check integrates it once more at 2·dt (the run's own paths are the

@@ -34,10 +34,8 @@ from pathlib import Path
 
 from ..errors import EddyhopError
 from ..io import atomic_write_text
+from ..outputs import LOCK_NAME, MANIFEST_NAME, POINTS_DIR
 
-MANIFEST_NAME = "sweep-manifest.json"
-POINTS_DIR = "points"
-LOCK_NAME = ".sweep-lock"
 FORMAT = "eddyhop sweep manifest"
 FORMAT_VERSION = 2  # 2: entries carry ``staged`` (checksum recorded before the final rename)
 READABLE_VERSIONS = (1, 2)  # version 1 is version 2 without ``staged``
