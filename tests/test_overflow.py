@@ -39,3 +39,16 @@ def test_the_bound_is_the_step_phase():
     parse_study_text(STUDY.replace("U = 1.0", f"U = {at!r}"))
     with pytest.raises(StudyError, match=r"flow\.U"):
         parse_study_text(STUDY.replace("U = 1.0", f"U = {at * 1.01!r}"))
+
+
+def test_runaway_displacement_is_a_blow_up_with_step_and_dt(tmp_path):
+    """A drift of 2e7 passes validation (k·|u|·dt = 1e6 ≤ 2**20) but carries particles
+    beyond 2**32/k ≈ 4.3e9 by t ≈ 215: reported as a blow-up naming step and dt, nothing
+    written."""
+    flow = 'family = "drifting_cellular"\nU = 1.0\ndrift_x = 2e7\n'
+    path = tmp_path / "far.toml"
+    path.write_text(STUDY.replace(CELLULAR, flow).replace("t_end = 2.0", "t_end = 300.0"))
+    result = invoke(["run", path, "--out", tmp_path / "x.nc"])
+    line = refused(result, "runaway displacement", "step", "run.dt = 0.05")
+    assert "2**32/k" in line
+    assert not (tmp_path / "x.nc").exists()
