@@ -144,3 +144,49 @@ def test_sigint_while_writing_exits_130_and_leaves_nothing(tmp_path):
         assert [p.name for p in folder.iterdir() if p.name.endswith(".part")] == []
         with folder_lock(folder):  # raises if the lock were still held
             pass
+
+
+def test_sigint_in_a_sweep_between_staging_and_rename(tmp_path):
+    """Ctrl-C while a sweep point waits under its staged name: exit 130 within seconds, the
+    staged temporary removed, the folder lock released, and the resumed sweep complete."""
+    import queue
+    import threading
+
+    from eddyhop.sweep import run_sweep
+
+    from .test_sweep_run import study_text, write_study
+
+    path = write_study(tmp_path, study_text(particles=200, t_end=2.0))
+    out = tmp_path / "sw"
+    env = dict(os.environ, PYTHONUNBUFFERED="1", EDDYHOP_SWEEP_TEST_PAUSE="staged pt0001")
+    process = subprocess.Popen(
+        [sys.executable, "-m", "eddyhop", "sweep", str(path), "--out", str(out),
+         "--no-progress", "--no-merge", "--backend", "serial"],
+        stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, env=env)
+    lines: queue.Queue = queue.Queue()
+    threading.Thread(target=lambda: [lines.put(x.decode()) for x in process.stderr],
+                     daemon=True).start()
+    seen, deadline = [], time.monotonic() + 180  # includes a first compilation
+    try:
+        while time.monotonic() < deadline:
+            try:
+                line = lines.get(timeout=0.5)
+            except queue.Empty:
+                if process.poll() is not None:
+                    break
+                continue
+            seen.append(line)
+            if line.strip() == "eddyhop-test-pause staged pt0001":
+                process.send_signal(signal.SIGINT)
+                break
+        code = process.wait(timeout=5)
+    finally:
+        if process.poll() is None:
+            process.kill()
+            process.wait()
+    assert code == 130, "".join(seen)
+    assert [p.name for p in out.rglob("*.part")] == []
+    with folder_lock(out):
+        pass
+    report = run_sweep(path, out, progress=False, backend="serial")
+    assert report.complete and "pt0001" in report.computed
