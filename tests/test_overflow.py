@@ -52,3 +52,9 @@ def test_runaway_displacement_is_a_blow_up_with_step_and_dt(tmp_path):
     line = refused(result, "runaway displacement", "step", "run.dt = 0.05")
     assert "2**32/k" in line
     assert not (tmp_path / "x.nc").exists()
+
+
+def test_a_swept_amplitude_is_checked_point_by_point():
+    text = STUDY + '\n[sweep]\n"flow.U" = [1.0, 1e50]\n'
+    with pytest.raises(StudyError, match=r"flow\.U = 1e\+50"):
+        parse_study_text(text)
