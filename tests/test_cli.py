@@ -97,26 +97,28 @@ def test_missing_output_directory_is_refused_before_running(tmp_path):
     assert "does not exist" in result.stderr
 
 
-def test_blow_up_is_reported_with_step_and_dt(tmp_path):
+def test_blow_up_amplitude_is_refused_with_its_step_and_dt(tmp_path):
+    """U = 1e300 once blew up at run time; it is refused at validation, naming the field, the
+    step's phase and dt (runtime blow-ups: tests/test_overflow.py, tests/test_kernel_tiles.py)."""
     study = tmp_path / "s.toml"
     study.write_text(SMALL.replace("[flow]", "[flow]\nU = 1e300").replace("peclet = 20",
                                                                            "kappa = 0.1"))
     result = eddyhop("run", str(study), "--out", str(tmp_path / "r.nc"))
     assert result.returncode == 2
+    assert "flow.U = 1e+300" in result.stderr
     assert "step" in result.stderr and "dt = 0.02" in result.stderr
     assert not (tmp_path / "r.nc").exists()
 
 
-def test_overflow_of_moment_sums_is_reported_with_step_and_dt(tmp_path):
-    """Positions of ~1e80 stay below the kernel's runaway limit, but their fourth powers
-    overflow float64: the run must stop with the step and dt, not write NaN moments."""
+def test_overflowing_amplitude_is_refused_before_the_run(tmp_path):
+    """U = 1e80 once reached positions ~1e80 whose fourth powers overflowed; such an
+    amplitude is now refused at validation (tests/test_overflow.py), naming the field."""
     study = tmp_path / "s.toml"
     study.write_text(SMALL.replace("[flow]", "[flow]\nU = 1e80").replace("peclet = 20",
                                                                         "kappa = 0.1"))
     result = eddyhop("run", str(study), "--out", str(tmp_path / "r.nc"))
     assert result.returncode == 2, result.stderr
-    assert "overflowed" in result.stderr and "dt = 0.02" in result.stderr
-    assert "step" in result.stderr
+    assert "flow.U = 1e+80" in result.stderr and "2**20" in result.stderr
     assert not (tmp_path / "r.nc").exists()
 
 

@@ -241,17 +241,19 @@ def test_folder_of_another_study_is_refused_and_left_alone(tmp_path, reference):
 FAILING = """
 title = "one point blows up"
 [flow]
-family = "cellular"
+family = "drifting_cellular"
 [noise]
 kappa = 0.1
 [run]
 particles = 200
 dt = 0.01
-t_end = 1.0
+t_end = 50.0
 n_times = 5
 progress = false
 [sweep]
-"flow.U" = [1.0, 1e300, 2.0]
+# a drift of 1e8 passes validation (k·|u|·dt = 1e6 ≤ 2**20) but carries the particles past
+# 2**32/k by t ≈ 43: a runaway displacement (an amplitude of 1e300 is refused at validation)
+"flow.drift_x" = [0.0, 1e8, 0.5]
 """
 
 
@@ -445,7 +447,7 @@ def test_progress_bar_reports_done_running_failed_and_eta(tmp_path, capsys):
     assert ("1", "1", "0", "0") in [v[:4] for v in values]
     # once a point has finished the ETA is a time (remaining points over the recent rate)
     assert all(v[5] != "?" for v in values if v[0] != "0"), values
-    assert any(line.startswith("point pt0001 (U=1e+300) failed: BlowUpError")
+    assert any(line.startswith("point pt0001 (drift_x=1e+08) failed: BlowUpError")
                for line in shown), shown
     resumed = run_sweep(write_study(tmp_path, text), tmp_path / "out", backend="serial",
                         merge_to=None, retry_failed=True)

@@ -339,6 +339,42 @@ def _check_finite_sums(moments, schedule, dt, label, lo, hi):
         f"parameters")
 
 
+# Largest phase k·|Δx| a displacement may reach: 2**32 radians.  There one unit in the last
+# place of k·x is 2**-20 ≈ 1e-6 rad, so a position still resolves the flow to about six
+# digits; beyond it the flow is increasingly lost in round-off (a run with positions frozen
+# near 1e48 once exited 0).  Legitimate runs stay far below: reaching it by diffusion alone
+# takes κ t ~ 1e19/k².
+MAX_DISPLACEMENT_PHASE = 2.0 ** 32
+_FOURTH_POWERS = [MOMENT_COLUMNS.index("dx4"), MOMENT_COLUMNS.index("dy4")]
+
+
+def _displacement_phase_limit(study) -> float:
+    """``MAX_DISPLACEMENT_PHASE / k`` (length units), or inf for a family without one k."""
+    try:
+        k = float(study.flow.model.wavenumber(study.flow.params))
+    except (KeyError, TypeError, ValueError, AttributeError):
+        return math.inf
+    return MAX_DISPLACEMENT_PHASE / k if k > 0 else math.inf
+
+
+def _check_displacement_range(moments, schedule, dt, label, lo, hi, limit):
+    """A batch's Σ Δx⁴ bounds its largest |Δx| (max |Δx| ≤ (Σ Δx⁴)^(1/4)); a bound beyond
+    ``limit`` means positions have left the range where the flow is resolved: a blow-up."""
+    if not math.isfinite(limit):
+        return
+    fourth = moments[:, :, _FOURTH_POWERS]
+    beyond = fourth > limit ** 4 if limit < 1e75 else np.zeros(fourth.shape, bool)
+    if not beyond.any():
+        return
+    out_index = int(np.argmax(beyond.any(axis=(0, 2))))
+    step = int(schedule.out_steps[out_index])
+    raise BlowUpError(
+        f"runaway displacement (beyond {limit:.3g} = 2**32/k, where the flow is no longer "
+        f"resolved in float64) for particles {lo}-{hi - 1} of start '{label}' by output step "
+        f"{step} (t = {step * dt:g}) with run.dt = {dt:g}; reduce run.dt or check the flow "
+        f"parameters")
+
+
 def run_ensemble(study, *, workers: int | None = None, chunk: int | None = None,
                  backend: str = "threads", progress: bool | None = None) -> EnsembleResult:
     """Integrate every start region of ``study`` and return batch-folded sums.
@@ -413,6 +449,8 @@ def run_ensemble(study, *, workers: int | None = None, chunk: int | None = None,
                         f"{int(status[1])} (t = {int(status[1]) * run.dt:g}) with "
                         f"run.dt = {run.dt:g}; reduce run.dt or check the flow parameters")
                 _check_finite_sums(moments, schedule, run.dt, region.label, lo, hi)
+                _check_displacement_range(moments, schedule, run.dt, region.label, lo, hi,
+                                          _displacement_phase_limit(study))
                 if sums is None:
                     sums = [np.zeros((n_batches, *moments.shape[1:])),
                             np.zeros((n_batches, *aged.shape[1:])),

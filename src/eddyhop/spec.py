@@ -337,6 +337,48 @@ def _parse_run(document, noise: NoiseSpec):
                    step_check_particles=check_particles)
 
 
+# Largest phase k·|u|·dt a single step may carry, in radians: 2**20, the range of the flows'
+# argument reduction (flows/_trig.py: LIMIT), where the sine and cosine keep full accuracy.
+# A step beyond it jumps over ~10**5 eddies: the flow is sampled at positions that round-off
+# makes meaningless (a Fourier amplitude of 1e30 was run as pure diffusion), and a larger
+# amplitude overflows the velocity.  Physical runs are many orders of magnitude below
+# (accuracy needs k·|u|·dt well below 1; the step check measures that).
+MAX_STEP_PHASE = 1048576.0
+
+
+def _check_flow_range(flow: FlowSpec, run: RunSpec) -> None:
+    """Refuse flow amplitudes whose speed overflows or whose step k·|u|·dt leaves the range
+    in which the flow is evaluated accurately (see ``MAX_STEP_PHASE``)."""
+    model = flow.model
+    try:
+        k = model.wavenumber(flow.params)
+        speed, field = model.speed_bound(flow.params)
+    except (KeyError, TypeError, ValueError, AttributeError):
+        return  # a family without these scales (gridded data are checked when read)
+    for parameter in model.parameters:  # a displacement of the cells: phase k·|B|
+        if parameter.units == "length" and parameter.name in flow.params:
+            shift = abs(float(flow.params[parameter.name])) * k
+            if not shift <= MAX_STEP_PHASE:
+                raise StudyError(
+                    f"flow.{parameter.name} = {flow.params[parameter.name]:g} shifts the "
+                    f"flow's phase by k·|{parameter.name}| = {shift:.3g} radians (k = {k:g}); "
+                    f"allowed: at most {MAX_STEP_PHASE:.0f} (2**20), the range in which the "
+                    "flow is evaluated accurately")
+    if not field:
+        return
+    phase = speed * k * run.dt
+    if math.isfinite(phase) and phase <= MAX_STEP_PHASE:
+        return
+    value = flow.params.get(field)
+    shown = f"{value:g}" if isinstance(value, float) else "(the listed modes)"
+    raise StudyError(
+        f"flow.{field} = {shown} makes the flow speed ~{speed:.3g} and one step move "
+        f"k·|u|·dt = {phase:.3g} radians of flow phase (k = {k:g}, run.dt = {run.dt:g}); "
+        f"allowed: at most {MAX_STEP_PHASE:.0f} (2**20), the range in which the flow is "
+        "evaluated accurately (beyond it the flow is lost in round-off or overflows); "
+        "lower the amplitude or run.dt")
+
+
 def default_integrator(noise: NoiseSpec) -> str:
     """The most accurate applicable scheme: RK4 for deterministic runs (κ = 0), the Strang
     splitting (weak order 2) for additive noise, Milstein where κ varies in space (the
@@ -450,6 +492,7 @@ def parse_study(document: dict, source_text: str = "", source_path: str = "") ->
     flow = _parse_flow(document, source_path)
     noise = _parse_noise(document, flow)
     run = _parse_run(document, noise)
+    _check_flow_range(flow, run)
     starts = parse_starts(document.get("start", {"kind": "uniform"}), flow)
     sweep = None
     if "sweep" in document:

@@ -111,6 +111,23 @@ class FlowFamily:
     def velocity_scale(self, values: dict) -> float:
         return float(values["U"])
 
+    def speed_bound(self, values: dict) -> tuple[float, str]:
+        """An upper bound (velocity units, within a factor of order one) on the flow's speed,
+        and the parameter contributing most to it; used only to refuse amplitudes whose step
+        would overflow or leave the accurate range of the flow's sine and cosine.  Sum of the
+        velocity parameters plus (length parameter) × (frequency parameter) for moving cells.
+        Computed in floating point: an overflowing product comes out infinite."""
+        parts = {p.name: abs(float(values[p.name])) for p in self.parameters
+                 if p.units == "velocity" and p.name in values}
+        frequency = sum(abs(float(values[p.name])) for p in self.parameters
+                        if p.units == "frequency" and p.name in values)
+        for p in self.parameters:
+            if p.units == "length" and p.name in values:
+                parts[p.name] = abs(float(values[p.name])) * frequency
+        if not parts:
+            return 0.0, ""
+        return sum(parts.values()), max(parts, key=parts.get)
+
     def wavenumber(self, values: dict) -> float:
         return float(values["k"])
 

@@ -90,6 +90,11 @@ class FourierModes(FlowFamily):
         checked["modes"] = clean
         return checked
 
+    def speed_bound(self, values):
+        """|u| ≤ U Σ |n_j| (|c_j| + |s_j|) and |v| ≤ U Σ |m_j| (|c_j| + |s_j|)."""
+        total = sum((abs(m) + abs(n)) * (abs(c) + abs(s)) for m, n, c, s in values["modes"])
+        return abs(values["U"]) * total, "modes"
+
     def pack(self, values):
         modes = values["modes"]
         head = [values["U"], values["k"], float(len(modes))]

@@ -244,11 +244,18 @@ def _write_point(ds, point, manifest, seconds: float, messages: list) -> Path:
         "sweep_fingerprint": manifest.data["fingerprint"],
     })
     staged = write_netcdf(ds, manifest.staged_path(point.id))  # itself atomic
-    manifest.mark_staged(point.id, sha256_file(staged), seconds, messages)
-    manifest.save()
-    _test_pause("staged", point.id)
     path = manifest.point_path(point.id)
-    os.replace(staged, path)
+    try:
+        manifest.mark_staged(point.id, sha256_file(staged), seconds, messages)
+        manifest.save()
+        _test_pause("staged", point.id)
+        os.replace(staged, path)
+    except BaseException:
+        # Ctrl-C or an error before the rename: the point stays 'running' and is computed
+        # again on resume (its recorded checksum matches no file), so the staged file goes
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(staged)
+        raise
     _test_pause("renamed", point.id)
     manifest.mark_done(point.id, path)
     return path
