@@ -24,6 +24,11 @@ from .errors import StudyError
 # machine — the figures scale with the machine's speed)
 NS_PER_STEP_EM = 11.6
 SCHEME_COST = {"euler_maruyama": 1.0, "milstein": 1.05, "strang_rk2": 1.52, "rk4": 1.52}
+# per particle, the work at events (measured here with the runs of tests/test_cost.py on the
+# 2-vCPU development machine, whole simulate() CPU time minus the step figure above): about
+# 2 ns per moment column at each output time and 9 ns per aged (t_a, lag) pair
+NS_PER_OUTPUT_COLUMN = 2.0
+NS_PER_AGED_PAIR = 9.0
 TIME_LIMIT_SECONDS = 24 * 3600.0  # soft limit; --allow-long lifts it
 
 # The runner's layout (kept equal to runner.py / kernel.py; test_cost checks they agree)
@@ -108,7 +113,7 @@ def estimate(study, points: int = 1, workers: int | None = None) -> Cost:
     batch sums [batches, times, 10 + 3·orders] and aged sums [batches, aging, lags, 4] (kept
     for every start, and copied once more by the dataset), tracks [tracked, samples, 2] (twice:
     chunk pieces and their concatenation), the step check's sums; for the current start its
-    positions (×4: sampling temporaries) and the block sums of the chunks in flight; and the
+    positions and the block sums of the chunks in flight; and the
     Python objects of the event schedule.
     """
     run = study.run
@@ -137,7 +142,9 @@ def estimate(study, points: int = 1, workers: int | None = None) -> Cost:
     aged_sums = 8 * batches * aged_pairs * _AGED_COLUMNS
     tracks = 8 * run.tracked * track_samples * 2
     check = 8 * 2 * check_batches * samples * _CHECK_COLUMNS
-    retained = 2 * (moment_sums + aged_sums + check) + tracks  # per start; ×2 dataset copies
+    # per start; the dataset copies the moment and check sums once (batch means) and a
+    # quarter of the aged sums twice (batch_aged_msd and its masked copy)
+    retained = 2 * (moment_sums + check) + 1.5 * aged_sums + tracks
     per_block = 8 * (samples * columns + aged_pairs * _AGED_COLUMNS + 4 * (study.hopping.bins + 1))
     chunk_blocks = max(1, _CHUNK_OUTPUT_BUDGET // max(per_block, 1))
     threads = run.workers if workers is None else workers
@@ -146,14 +153,16 @@ def estimate(study, points: int = 1, workers: int | None = None) -> Cost:
 
         threads = os.cpu_count() or 1
     in_flight_chunks = 1 if threads <= 1 else 2 * threads  # joblib pre-dispatches 2 per worker
-    chunk_bytes = in_flight_chunks * min(chunk_blocks, n_blocks) * per_block
-    positions = 4 * 2 * 8 * n
+    chunk_blocks = min(chunk_blocks, max(1, run.chunk // block), n_blocks)
+    chunk_bytes = in_flight_chunks * chunk_blocks * per_block
+    positions = 2 * 8 * n  # x0, y0 of the current start region (measured: no extra copy)
     schedule = (_BYTES_PER_AGED_PAIR * aged_pairs
                 + _BYTES_PER_EVENT * (samples + track_samples + ages + aged_pairs))
     memory = n_starts * retained + tracks + chunk_bytes + positions + schedule
 
     ns = NS_PER_STEP_EM * SCHEME_COST.get(run.integrator, 1.52)
-    seconds = particle_steps * ns * 1e-9 * points
+    event_ns = (NS_PER_OUTPUT_COLUMN * samples * columns + NS_PER_AGED_PAIR * aged_pairs)
+    seconds = (particle_steps * ns + n * n_starts * event_ns) * 1e-9 * points
     return Cost(starts=n_starts, particles=n, steps=steps, particle_steps=particle_steps,
                 check_particle_steps=coarse_steps, output_samples=samples,
                 tracked_samples=run.tracked * track_samples * n_starts, aged_pairs=aged_pairs,
