@@ -6,13 +6,19 @@ from .spec import Study, load_study
 
 
 def simulate(study: Study, *, workers: int | None = None, chunk: int | None = None,
-             progress: bool | None = None):
+             progress: bool | None = None, allow_long: bool = False):
     """Run the Monte Carlo ensemble of ``study`` and return its labelled Dataset.
 
-    ``workers`` and ``chunk`` change only how the work is split, never the numbers.
+    ``workers`` and ``chunk`` change only how the work is split, never the numbers.  Before
+    any allocation the study's cost is estimated (``cost.py``): a study whose peak memory
+    would exceed the machine's available memory is refused, and one whose estimated CPU time
+    exceeds 24 h unless ``allow_long``.
     """
+    from .cost import study_cost_checked
     from .dataset import build_dataset
     from .runner import run_ensemble
+
+    study_cost_checked(study, allow_long=allow_long, workers=workers)
 
     result = run_ensemble(study, workers=workers, chunk=chunk, progress=progress)
     ds = build_dataset(study, result)

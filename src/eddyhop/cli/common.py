@@ -137,3 +137,10 @@ def replace_option(function):
                              "command's kind, or a default-named output that exists. Never "
                              "allows writing over an input or a sweep folder's own files.")(
         function)
+
+
+def allow_long_option(function):
+    return click.option("--allow-long", is_flag=True,
+                        help="Run even if the estimated CPU time exceeds 24 h (the soft "
+                             "limit). The memory limit (the machine's available memory) "
+                             "is never lifted.")(function)

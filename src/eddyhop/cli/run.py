@@ -4,7 +4,13 @@ from __future__ import annotations
 
 import click
 
-from .common import friendly_errors, progress_option, replace_option, workers_option
+from .common import (
+    allow_long_option,
+    friendly_errors,
+    progress_option,
+    replace_option,
+    workers_option,
+)
 
 
 @click.command("run")
@@ -14,8 +20,9 @@ from .common import friendly_errors, progress_option, replace_option, workers_op
 @workers_option
 @progress_option
 @replace_option
+@allow_long_option
 @friendly_errors
-def command(study, out, workers, progress, replace):
+def command(study, out, workers, progress, replace, allow_long):
     """Run the Monte Carlo ensemble of STUDY and write its statistics to netCDF.
 
     \b
@@ -29,6 +36,7 @@ def command(study, out, workers, progress, replace):
     --out or --replace.
     """
     from ..api import run_study
+    from ..cost import study_cost_checked
     from ..outputs import guard_output
     from ..spec import load_study
     from .summary import print_summary
@@ -37,7 +45,10 @@ def command(study, out, workers, progress, replace):
     target = out or spec.output.path
     guard_output(target, kind="result", inputs=study_inputs(spec, study), replace=replace,
                  default=out is None)
-    ds = run_study(spec, out=target, workers=workers, progress=progress)
+    cost = study_cost_checked(spec, allow_long=allow_long, workers=workers)
+    click.echo(cost.work_line())
+    click.echo(cost.estimate_line())
+    ds = run_study(spec, out=target, workers=workers, progress=progress, allow_long=allow_long)
     print_summary(ds, target)
 
 

@@ -4,7 +4,13 @@ from __future__ import annotations
 
 import click
 
-from .common import check_workers, friendly_errors, progress_option, replace_option
+from .common import (
+    allow_long_option,
+    check_workers,
+    friendly_errors,
+    progress_option,
+    replace_option,
+)
 
 
 @click.command("sweep")
@@ -33,9 +39,10 @@ from .common import check_workers, friendly_errors, progress_option, replace_opt
 @click.option("--dry-run", is_flag=True, help="List the points and exit.")
 @progress_option
 @replace_option
+@allow_long_option
 @friendly_errors
 def command(study, out, backend, jobs, scheduler, workers, merged, no_merge, retry_failed,
-            timeout, dry_run, progress, replace):
+            timeout, dry_run, progress, replace, allow_long):
     """Run the parameter sweep of STUDY (a study file with a [sweep] table).
 
     \b
@@ -48,6 +55,7 @@ def command(study, out, backend, jobs, scheduler, workers, merged, no_merge, ret
     holding another study's sweep is refused.
     Example:  eddyhop sweep studies/sweep_pan_rolls.toml --out pan/ -j 2
     """
+    from ..cost import study_cost_checked
     from ..errors import EddyhopError
     from ..spec import load_study
     from ..sweep import run_sweep
@@ -59,6 +67,12 @@ def command(study, out, backend, jobs, scheduler, workers, merged, no_merge, ret
     scheduler_address(scheduler)  # a malformed address is refused before any work
     spec = load_study(study)
     _check_outputs(study, out, merged, no_merge, replace)
+    if spec.sweep is not None:
+        # the base study stands for every point (the batch layout cannot be swept)
+        cost = study_cost_checked(spec, points=spec.sweep.n_points, allow_long=allow_long,
+                                  workers=workers if workers is not None else 1)
+        click.echo(cost.work_line())
+        click.echo(cost.estimate_line())
     if dry_run:
         _print_plan(spec)
         return

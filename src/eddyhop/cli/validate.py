@@ -9,14 +9,21 @@ import click
 
 @click.command("validate")
 @click.argument("studies", nargs=-1, required=True, type=click.Path(dir_okay=False))
-def command(studies):
+@click.option("--allow-long", is_flag=True,
+              help="Accept a study whose estimated CPU time exceeds 24 h (as run/sweep "
+                   "--allow-long would); the memory limit is never lifted.")
+def command(studies, allow_long):
     """Check one or more STUDIES files: every field, range and choice.
 
     Prints the resolved parameters (κ and Pe both, start regions, time grid)
     for each valid file, and for a gridded flow the field report (divergence of
     the data, interpolation error on the input grid); exits with status 2 if any
-    file is invalid.
+    file is invalid.  Also prints the work (particle-steps, output times,
+    tracked samples, aged pairs, sweep points) and the estimated peak memory
+    and CPU time, and refuses a study over the machine's available memory or
+    over 24 h of CPU time (unless --allow-long).
     """
+    from ..cost import study_cost_checked
     from ..errors import EddyhopError
     from ..runner import step_size_warnings
     from ..schedule import build_schedule
@@ -26,6 +33,9 @@ def command(studies):
     for path in studies:
         try:
             study = load_study(path)
+            points = study.sweep.n_points if study.sweep is not None else 1
+            # before the schedule is built: building it is itself work of the study's size
+            cost = study_cost_checked(study, points=points, allow_long=allow_long)
             schedule = build_schedule(study.run, study.aging, study.run.track_samples)
         except EddyhopError as exc:
             shown = path if len(path) <= 80 else path[:60] + "…" + path[-15:]
@@ -42,6 +52,8 @@ def command(studies):
         click.echo(f"  {study.run.particles} particles, {study.run.integrator}, dt = "
                    f"{study.run.dt:g}, {schedule.total_steps} steps, {schedule.out_steps.size} "
                    f"output times from {schedule.times[0]:g} to {schedule.times[-1]:g}")
+        click.echo(f"  {cost.work_line()}")
+        click.echo(f"  {cost.estimate_line()}")
         if study.flow.model.name == "gridded":
             from ..flows.gridded import field_attributes
 

@@ -327,6 +327,9 @@ def _range_values(spec: dict, where: str) -> list[float]:
             raise StudyError(f"{where}.count: expected an integer, got {count!r}")
     if count < 1:
         raise StudyError(f"{where}.count = {count}: the range is empty; give count >= 1")
+    if count > MAX_POINTS:  # before the values are built: a count of 10⁸ must answer at once
+        raise StudyError(f"{where}.count = {count} exceeds the limit of {MAX_POINTS} sweep "
+                         "points; split the sweep")
     if count == 1 and first != last:
         raise StudyError(f"{where}: count = 1 cannot span first = {first:g} to last = {last:g}")
     if count > 1 and first == last:
