@@ -98,7 +98,7 @@ def format_seconds(s: float) -> str:
 
 def _check_subsample(check_particles: int, particles: int, block: int, batches: int) -> tuple:
     """(subsample size, check batches) as ``runner.check_plan`` gives them, without arrays."""
-    from .spec import MIN_CHECK_BATCH
+    from .schedule import MIN_CHECK_BATCH
 
     n_blocks = min(-(-check_particles // block), -(-particles // block))
     size = min(particles, n_blocks * block)
