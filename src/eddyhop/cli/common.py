@@ -30,8 +30,18 @@ def _show_warning(message, category, filename, lineno, file=None, line=None):
     click.secho(f"warning: {message}", fg="yellow", err=True)
 
 
+def _is_failed_computation(exc) -> bool:
+    """A computation that ran and failed (exit 1), as opposed to bad input (exit 2)."""
+    from ..errors import BlowUpError
+    from ..reference.cell_problem import ReferenceConvergenceError
+
+    return isinstance(exc, (BlowUpError, ReferenceConvergenceError))
+
+
 def friendly_errors(function):
-    """Turn the package's own errors into one clear line and exit code 2; Ctrl-C into 130."""
+    """Turn the package's own errors into one clear line: exit code 2 for bad input, 1 for a
+    computation that failed (a blow-up, a reference solve that does not converge); Ctrl-C
+    into 130."""
 
     @functools.wraps(function)
     def wrapper(*args, **kwargs):
@@ -46,7 +56,7 @@ def friendly_errors(function):
                 return function(*args, **kwargs)
         except EddyhopError as exc:
             click.secho(f"error: {exc}", fg="red", err=True)
-            sys.exit(2)
+            sys.exit(1 if _is_failed_computation(exc) else 2)
         except KeyboardInterrupt:
             click.secho("interrupted: nothing was written", fg="red", err=True)
             sys.exit(130)
