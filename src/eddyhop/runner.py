@@ -327,16 +327,20 @@ def _parallel_map(function, tasks, workers: int, backend: str):
 def _check_finite_sums(moments, schedule, dt, label, lo, hi):
     """Positions can stay below the kernel's runaway limit while their powers (Δx⁴, |Δx|^q)
     overflow float64; such a run must fail loudly rather than write NaN moments."""
-    bad = ~np.isfinite(moments)
+    _raise_blow_up(~np.isfinite(moments), schedule, dt, label, lo, hi,
+                   "moment sums overflowed (displacements too large for float64 powers)",
+                   "reduce run.dt, lower the highest moments.orders, or check the flow "
+                   "parameters")
+
+
+def _raise_blow_up(bad, schedule, dt, label, lo, hi, what, advice):
+    """BlowUpError naming the first output step at which ``bad`` [batch, time, column] holds,
+    the particles, the start, dt and what to do; nothing when ``bad`` is all False."""
     if not bad.any():
         return
-    out_index = int(np.argmax(bad.any(axis=(0, 2))))
-    step = int(schedule.out_steps[out_index])
-    raise BlowUpError(
-        f"moment sums overflowed (displacements too large for float64 powers) for particles "
-        f"{lo}-{hi - 1} of start '{label}' by output step {step} (t = {step * dt:g}) with "
-        f"run.dt = {dt:g}; reduce run.dt, lower the highest moments.orders, or check the flow "
-        f"parameters")
+    step = int(schedule.out_steps[int(np.argmax(bad.any(axis=(0, 2))))])
+    raise BlowUpError(f"{what} for particles {lo}-{hi - 1} of start '{label}' by output step "
+                      f"{step} (t = {step * dt:g}) with run.dt = {dt:g}; {advice}")
 
 
 # Largest phase k·|Δx| a displacement may reach: 2**32 radians.  There one unit in the last
@@ -364,15 +368,9 @@ def _check_displacement_range(moments, schedule, dt, label, lo, hi, limit):
         return
     fourth = moments[:, :, _FOURTH_POWERS]
     beyond = fourth > limit ** 4 if limit < 1e75 else np.zeros(fourth.shape, bool)
-    if not beyond.any():
-        return
-    out_index = int(np.argmax(beyond.any(axis=(0, 2))))
-    step = int(schedule.out_steps[out_index])
-    raise BlowUpError(
-        f"runaway displacement (beyond {limit:.3g} = 2**32/k, where the flow is no longer "
-        f"resolved in float64) for particles {lo}-{hi - 1} of start '{label}' by output step "
-        f"{step} (t = {step * dt:g}) with run.dt = {dt:g}; reduce run.dt or check the flow "
-        f"parameters")
+    _raise_blow_up(beyond, schedule, dt, label, lo, hi,
+                   f"runaway displacement (beyond {limit:.3g} = 2**32/k, where the flow is no "
+                   "longer resolved in float64)", "reduce run.dt or check the flow parameters")
 
 
 def run_ensemble(study, *, workers: int | None = None, chunk: int | None = None,
