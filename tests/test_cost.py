@@ -142,3 +142,48 @@ def test_memory_estimate_is_within_a_factor_of_three_of_the_measured_peak():
     # CPU time: the stored figures come from a quiet machine; a factor 4 either way allows
     # for a loaded CI machine and tracemalloc's overhead
     assert cpu / 4 <= work.cpu_seconds <= 4 * cpu, (work.cpu_seconds, cpu)
+
+
+# ---- eddyhop reference: the noise-free solvers' cost is printed and checked first (issue 13) --
+
+def _reference_study(peclet: float) -> str:
+    return STUDY.replace("peclet = 10.0", f"peclet = {peclet}")
+
+
+def test_reference_prints_work_and_estimate_before_solving(tmp_path):
+    (tmp_path / "s.toml").write_text(_reference_study(10.0))
+    result = invoke(["reference", tmp_path / "s.toml", "--diffusivity-only"])
+    assert result.exit_code == 0, result.output
+    lines = result.output.splitlines()
+    assert lines[0].startswith("work: the cell problem with") and "unknowns" in lines[0]
+    assert lines[1].startswith("estimate: peak memory") and "CPU time" in lines[1]
+
+
+def test_reference_beyond_the_mode_limit_is_refused_at_once(tmp_path):
+    (tmp_path / "s.toml").write_text(_reference_study(1e5))
+    started = time.perf_counter()
+    line = refused(invoke(["reference", tmp_path / "s.toml", "--out", tmp_path / "r.nc"]),
+                   "needs about", "Fourier modes per direction", "limit of 512")
+    assert time.perf_counter() - started < 10, line
+    assert not (tmp_path / "r.nc").exists()
+
+
+def test_reference_over_the_memory_limit_is_refused(tmp_path, monkeypatch):
+    monkeypatch.setattr(cost_module, "available_memory", lambda: 2**20)
+    (tmp_path / "s.toml").write_text(_reference_study(10.0))
+    refused(invoke(["reference", tmp_path / "s.toml", "--out", tmp_path / "r.nc"]),
+            "peak memory", "available", "--modes")
+    assert not (tmp_path / "r.nc").exists()
+
+
+def test_reference_estimate_grows_with_the_peclet_number():
+    from eddyhop.reference.budget import reference_cost
+    from eddyhop.reference.fields import study_fields
+
+    costs = [reference_cost(study_fields(parse_study_text(_reference_study(pe))), 1)
+             for pe in (10.0, 1000.0, 10000.0)]
+    assert costs[0].cpu_seconds < costs[1].cpu_seconds < costs[2].cpu_seconds
+    assert costs[0].memory_bytes < costs[1].memory_bytes < costs[2].memory_bytes
+    # the issue's measured Pe = 10^4 cell problem took 118 s and 2.7 GB: the estimate (cell
+    # problem and one moment evolution) must at least reach the gigabyte and the minute
+    assert costs[2].memory_bytes > 1e9 and costs[2].cpu_seconds > 60

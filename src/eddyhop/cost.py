@@ -195,19 +195,28 @@ def check_limits(cost: Cost, *, allow_long: bool = False, available: int | None 
     is refused unless ``allow_long``.  ``available = -1`` reads the machine; None skips the
     memory check (the machine does not tell).
     """
+    check_resources(
+        cost.memory_bytes, cost.cpu_seconds, what=cost.work_line(),
+        work=f"{cost.particle_steps * cost.points:.3g} particle-steps",
+        remedy_memory="reduce run.particles, run.n_times, run.batches, run.tracked × "
+                      "run.track_samples, moments.orders or aging.times × aging.lags",
+        allow_long=allow_long, available=available)
+
+
+def check_resources(memory_bytes: float, cpu_seconds: float, *, what: str, work: str,
+                    remedy_memory: str, remedy_time: str = "reduce the work",
+                    allow_long: bool = False, available: int | None = -1) -> None:
+    """The limits of ``check_limits`` for any job whose memory and CPU time are estimated."""
     if available == -1:
         available = available_memory()
-    if available is not None and cost.memory_bytes > available:
+    if available is not None and memory_bytes > available:
         raise StudyError(
-            f"estimated peak memory {format_bytes(cost.memory_bytes)} exceeds the "
-            f"{format_bytes(available)} available on this machine ({cost.work_line()}); "
-            "reduce run.particles, run.n_times, run.batches, run.tracked × run.track_samples, "
-            "moments.orders or aging.times × aging.lags")
-    if not allow_long and cost.cpu_seconds > TIME_LIMIT_SECONDS:
+            f"estimated peak memory {format_bytes(memory_bytes)} exceeds the "
+            f"{format_bytes(available)} available on this machine ({what}); {remedy_memory}")
+    if not allow_long and cpu_seconds > TIME_LIMIT_SECONDS:
         raise StudyError(
-            f"estimated CPU time {format_seconds(cost.cpu_seconds)} "
-            f"({cost.particle_steps * cost.points:.3g} particle-steps) exceeds the limit of "
-            f"{format_seconds(TIME_LIMIT_SECONDS)}; reduce the work or pass --allow-long")
+            f"estimated CPU time {format_seconds(cpu_seconds)} ({work}) exceeds the limit of "
+            f"{format_seconds(TIME_LIMIT_SECONDS)}; {remedy_time} or pass --allow-long")
 
 
 def study_cost_checked(study, *, points: int = 1, allow_long: bool = False,
@@ -223,6 +232,7 @@ __all__ = [
     "Cost",
     "available_memory",
     "check_limits",
+    "check_resources",
     "estimate",
     "format_bytes",
     "format_seconds",

@@ -6,7 +6,13 @@ from pathlib import Path
 
 import click
 
-from .common import finite_option_check, friendly_errors, refuse, replace_option
+from .common import (
+    allow_long_option,
+    finite_option_check,
+    friendly_errors,
+    refuse,
+    replace_option,
+)
 
 
 def default_output(study_output: str) -> str:
@@ -42,8 +48,9 @@ def _check_modes(value):
 @click.option("--diffusivity-only", is_flag=True,
               help="Only solve the cell problem and print the homogenized tensor (no file).")
 @replace_option
+@allow_long_option
 @friendly_errors
-def command(study, out, modes, rtol, no_check, diffusivity_only, replace):
+def command(study, out, modes, rtol, no_check, diffusivity_only, replace, allow_long):
     """Deterministic reference for STUDY: exact mean and MSD versus time for
     every start region (no particles, no sampling noise), plus the long-time
     homogenized diffusivity tensor.
@@ -61,6 +68,7 @@ def command(study, out, modes, rtol, no_check, diffusivity_only, replace):
 
     spec = load_study(study)
     if diffusivity_only:
+        _announce_cost(spec, 0, modes, rtol, allow_long)
         result = effective_diffusivity(spec, rtol=rtol, modes=modes)
         click.echo(f"{spec.title}: homogenized diffusivity (cell problem)")
         click.echo(f"  {result.summary()}")
@@ -71,9 +79,26 @@ def command(study, out, modes, rtol, no_check, diffusivity_only, replace):
 
     guard_output(target, kind="result", inputs=study_inputs(spec, study), replace=replace,
                  default=out is None)
+    _announce_cost(spec, len(spec.starts), modes, rtol, allow_long)
     ds = moment_evolution(spec, modes=modes, rtol=rtol, check=not no_check)
     write_netcdf(ds, target)
     _summary(ds, target)
+
+
+def _announce_cost(spec, starts, modes, rtol, allow_long):
+    """Print the solve's work and estimate; refuse it over the memory or time limit."""
+    from ..cost import check_resources
+    from ..reference.budget import reference_cost
+    from ..reference.fields import study_fields
+
+    cost = reference_cost(study_fields(spec), starts, modes=modes, rtol=rtol)
+    check_resources(cost.memory_bytes, cost.cpu_seconds, what=cost.work_line(),
+                    work=f"{cost.modes} Fourier modes per direction",
+                    remedy_memory="give fewer --modes or a looser --rtol",
+                    remedy_time="give fewer --modes, a looser --rtol or --diffusivity-only",
+                    allow_long=allow_long)
+    click.echo(cost.work_line())
+    click.echo(cost.estimate_line())
 
 
 def _summary(ds, path):
