@@ -10,6 +10,7 @@ from .common import (
     allow_long_option,
     finite_option_check,
     friendly_errors,
+    progress_option,
     refuse,
     replace_option,
 )
@@ -47,10 +48,11 @@ def _check_modes(value):
               help="Skip the second, coarser solve that estimates the resolution error.")
 @click.option("--diffusivity-only", is_flag=True,
               help="Only solve the cell problem and print the homogenized tensor (no file).")
+@progress_option
 @replace_option
 @allow_long_option
 @friendly_errors
-def command(study, out, modes, rtol, no_check, diffusivity_only, replace, allow_long):
+def command(study, out, modes, rtol, no_check, diffusivity_only, progress, replace, allow_long):
     """Deterministic reference for STUDY: exact mean and MSD versus time for
     every start region (no particles, no sampling noise), plus the long-time
     homogenized diffusivity tensor.
@@ -80,7 +82,8 @@ def command(study, out, modes, rtol, no_check, diffusivity_only, replace, allow_
     guard_output(target, kind="result", inputs=study_inputs(spec, study), replace=replace,
                  default=out is None)
     _announce_cost(spec, len(spec.starts), modes, rtol, allow_long)
-    ds = moment_evolution(spec, modes=modes, rtol=rtol, check=not no_check)
+    ds = moment_evolution(spec, modes=modes, rtol=rtol, check=not no_check,
+                          progress=spec.run.progress if progress is None else progress)
     write_netcdf(ds, target)
     _summary(ds, target)
 

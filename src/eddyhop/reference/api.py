@@ -96,7 +96,8 @@ def study_times(study) -> np.ndarray:
 
 def moment_evolution(study, times=None, *, modes: int | None = None, check: bool = True,
                      rtol: float = DEFAULT_RTOL, tol: float = 1e-10,
-                     homogenized: bool = True, quadrature: int | None = None):
+                     homogenized: bool = True, quadrature: int | None = None,
+                     progress: bool = False):
     """Exact (noise-free) mean and MSD versus time for every start region of ``study``.
 
     Returns an ``xarray.Dataset`` with the Monte Carlo layout: ``msd, msd_x, msd_y, msd_xy,
@@ -108,6 +109,7 @@ def moment_evolution(study, times=None, *, modes: int | None = None, check: bool
     issued when it exceeds ``rtol`` for fixed ``modes``, or √rtol for automatic ones).  ``tol``
     is the tolerance of the time propagation.  With ``homogenized`` the cell-problem tensor is
     added (``homogenized_dxx`` …), the long-time limit the MSD slope must approach.
+    ``progress`` shows a bar of output times solved (both resolutions, every start).
     """
     from ..starts import area_fraction
     from .initial import DEFAULT_QUADRATURE, initial_modes
@@ -122,6 +124,13 @@ def moment_evolution(study, times=None, *, modes: int | None = None, check: bool
     quadrature = DEFAULT_QUADRATURE if quadrature is None else int(quadrature)
     started = time.perf_counter()
     curves = []
+    bar = None
+    if progress:
+        from tqdm.auto import tqdm
+
+        passes = len(study.starts) * (2 if check else 1)
+        bar = tqdm(total=passes * int(positive.sum()), unit="time", desc="reference solve",
+                   leave=False, dynamic_ncols=True)
     with single_threaded_blas():
         for region in study.starts:
             resolution = suggested_modes(fields, rtol) if modes is None else int(modes)
@@ -130,7 +139,8 @@ def moment_evolution(study, times=None, *, modes: int | None = None, check: bool
             initial = initial_modes(region, family, params, fields.lx, fields.ly, resolution,
                                     quadrature)
             curve = moment_curves(fields, initial, values[positive], modes=resolution,
-                                  check=check, tol=tol, rtol=rtol)
+                                  check=check, tol=tol, rtol=rtol,
+                                  on_outputs=None if bar is None else bar.update)
             curves.append(_with_zero_times(curve, values, positive))
             limit = rtol if modes is not None else math.sqrt(rtol)
             if check and curve.relative_error > limit:
@@ -140,12 +150,16 @@ def moment_evolution(study, times=None, *, modes: int | None = None, check: bool
                     f"{curve.relative_error:.1e} (relative) from modes = {curve.check_modes}; "
                     "raise modes for a tighter reference", ResolutionWarning, stacklevel=2)
         tensor = None
+        if bar is not None:
+            bar.set_description("cell problem")
         if homogenized:
             try:
                 tensor = homogenized_diffusivity(fields, rtol=rtol)
             except ReferenceConvergenceError as exc:
                 warnings.warn(f"the homogenized tensor is omitted: {exc}", ResolutionWarning,
                               stacklevel=2)
+    if bar is not None:
+        bar.close()
     fractions = [area_fraction(r, family, params) for r in study.starts]
     extra = _provenance(curves, tensor, tol, quadrature, time.perf_counter() - started)
     from .dataset import build_reference_dataset

@@ -73,7 +73,7 @@ def assemble(fields: CellFields, modes: int) -> tuple[TriangularSystem, Spectral
 
 
 def evolve(fields: CellFields, initial: np.ndarray, times, modes: int,
-           tol: float = DEFAULT_TOL) -> tuple[np.ndarray, dict]:
+           tol: float = DEFAULT_TOL, on_outputs=None) -> tuple[np.ndarray, dict]:
     """Outputs [len(times), 5] (columns ``OUTPUTS``) at one resolution.
 
     ``initial`` is the [2K+1, 2K+1] array of start coefficients p̂ (K ≥ modes) from
@@ -87,7 +87,7 @@ def evolve(fields: CellFields, initial: np.ndarray, times, modes: int,
     density = cell.real_vector(trimmed.ravel())
     state = np.concatenate([density, np.zeros(2 * cell.size)])
     start = time.perf_counter()
-    values = propagate(system, state, times, tol=tol)
+    values = propagate(system, state, times, tol=tol, on_outputs=on_outputs)
     stats = dict(system.stats, seconds=time.perf_counter() - start, unknowns=3 * cell.size)
     return values, stats
 
@@ -128,22 +128,23 @@ class MomentCurves:
 
 def moment_curves(fields: CellFields, initial: np.ndarray, times, *, modes: int | None = None,
                   check: bool = True, tol: float = DEFAULT_TOL,
-                  rtol: float = DEFAULT_RTOL) -> MomentCurves:
+                  rtol: float = DEFAULT_RTOL, on_outputs=None) -> MomentCurves:
     """Moments of one start region; ``modes`` defaults to the a-priori choice for ``rtol``.
 
     With ``check`` the curves are also computed at modes/√2 and the largest relative change of
-    the MSD is reported as the resolution error estimate.
+    the MSD is reported as the resolution error estimate.  ``on_outputs`` is passed to the
+    propagator (progress: output times completed, by both resolutions).
     """
     start = time.perf_counter()
     if modes is None:
         modes = suggested_modes(fields, rtol)
-    values, stats = evolve(fields, initial, times, modes, tol)
+    values, stats = evolve(fields, initial, times, modes, tol, on_outputs)
     check_modes = None
     error = float("nan")
     if check:
         check_modes = max(fields.highest_mode + 1, round(modes / GROWTH))
         if check_modes < modes:
-            coarse, _ = evolve(fields, initial, times, check_modes, tol)
+            coarse, _ = evolve(fields, initial, times, check_modes, tol, on_outputs)
             msd = values[:, 2] + values[:, 3]
             change = np.abs(msd - (coarse[:, 2] + coarse[:, 3]))
             error = float(np.max(change / np.maximum(np.abs(msd), 1e-300)))
