@@ -23,11 +23,11 @@ def command(studies, allow_long):
     and CPU time, and refuses a study over the machine's available memory or
     over 24 h of CPU time (unless --allow-long).
     """
-    from ..cost import study_cost_checked
+    from ..engine.runner import step_size_warnings
+    from ..engine.schedule import build_schedule
     from ..errors import EddyhopError
-    from ..runner import step_size_warnings
-    from ..schedule import build_schedule
-    from ..spec import load_study
+    from ..study.cost import study_cost_checked
+    from ..study.spec import load_study
 
     failed = False
     for path in studies:
