@@ -54,11 +54,9 @@ def command(studies, allow_long):
                    f"output times from {schedule.times[0]:g} to {schedule.times[-1]:g}")
         click.echo(f"  {cost.work_line()}")
         click.echo(f"  {cost.estimate_line()}")
-        if study.flow.model.name == "gridded":
-            from ..flows.gridded import field_attributes
-
-            report = field_attributes(study.flow.params)
-            click.echo("  gridded field (the file's, before flow.scale):")
+        report = study.flow.model.field_attributes(study.flow.params)  # data-driven families
+        if report:
+            click.echo(f"  {study.flow.model.field_report_heading}:")
             for name, value in report.items():
                 shown = value if isinstance(value, str) else f"{value:.6g}"
                 click.echo(f"    {name} = {shown}")

@@ -41,8 +41,7 @@ from __future__ import annotations
 import math
 
 from .._jit import jit
-from ..flows import cats_eye, cellular, drifting_cellular, fourier, oscillating_cellular, shear
-from ..flows.compiled import velocity
+from ..flows.compiled import fast_tile_velocity, velocity
 from .noise import CONSTANT, diffusivity
 
 EULER_MARUYAMA = 0
@@ -66,14 +65,6 @@ SCHEME_CONDITIONS = {
 NORMALS_PER_STEP = {"euler_maruyama": 2, "milstein": 2, "strang_rk2": 4, "rk4": 0}
 # Rows of the scratch array ``work`` that :func:`advance_tile` needs (tile width columns).
 TILE_WORK_ROWS = 12
-# Analytic families whose velocity :func:`tile_velocity` calls directly, so that the compiler
-# inlines it into the particle loop (other families go through ``flows.compiled.velocity``).
-_CELLULAR = cellular.FAMILY.code
-_CATS_EYE = cats_eye.FAMILY.code
-_SHEAR = shear.FAMILY.code
-_DRIFTING = drifting_cellular.FAMILY.code
-_OSCILLATING = oscillating_cellular.FAMILY.code
-_FOURIER = fourier.FAMILY.code
 
 
 @jit
@@ -141,31 +132,15 @@ def advance(scheme, fcode, fp, ncode, nq, x, y, t, dt, sqrt_dt, z0, z1, z2, z3):
 def tile_velocity(fcode, fp, xs, ys, t, us, vs, m):
     """(us[g], vs[g]) = velocity at (xs[g], ys[g], t) for g < m, family ``fcode``.
 
-    The same values as ``flows.compiled.velocity``; for the analytic families the switch is
-    taken once per tile and the family's own function is called in the loop with
-    ``fast=True``, where the compiler inlines and vectorises it.  ``fast`` marks the points
-    whose trigonometric arguments are beyond the branch-free range of ``flows._trig.sincos``
-    with nan; a second pass evaluates those (and only those) through the compiled dispatch.
+    The same values as ``flows.compiled.velocity``; for the families whose ``velocity`` takes
+    ``fast`` (the closed-form ones) the switch is taken once per tile and the family's own
+    function is called in the loop with ``fast=True``, where the compiler inlines and
+    vectorises it (``flows.compiled.fast_tile_velocity``, generated from the registry).
+    ``fast`` marks the points whose trigonometric arguments are beyond the branch-free range of
+    ``flows._trig.sincos`` with nan; a second pass evaluates those (and only those) through the
+    compiled dispatch.
     """
-    if fcode == _CELLULAR:
-        for g in range(m):
-            us[g], vs[g] = cellular.velocity(xs[g], ys[g], t, fp, True)
-    elif fcode == _CATS_EYE:
-        for g in range(m):
-            us[g], vs[g] = cats_eye.velocity(xs[g], ys[g], t, fp, True)
-    elif fcode == _SHEAR:
-        for g in range(m):
-            us[g], vs[g] = shear.velocity(xs[g], ys[g], t, fp, True)
-    elif fcode == _DRIFTING:
-        for g in range(m):
-            us[g], vs[g] = drifting_cellular.velocity(xs[g], ys[g], t, fp, True)
-    elif fcode == _OSCILLATING:
-        for g in range(m):
-            us[g], vs[g] = oscillating_cellular.velocity(xs[g], ys[g], t, fp, True)
-    elif fcode == _FOURIER:
-        for g in range(m):
-            us[g], vs[g] = fourier.velocity(xs[g], ys[g], t, fp, True)
-    else:
+    if not fast_tile_velocity(fcode, fp, xs, ys, t, us, vs, m):
         for g in range(m):
             us[g], vs[g] = velocity(fcode, xs[g], ys[g], t, fp)
         return

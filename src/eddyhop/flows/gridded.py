@@ -358,6 +358,11 @@ def load_field(values: dict):
 
 
 class GriddedFamily(FlowFamily):
+    field_report_heading = "gridded field (the file's, before flow.scale)"
+
+    def field_attributes(self, values: dict) -> dict:
+        return field_attributes(values)
+
     """Periodic gridded field; see the module docstring."""
 
     TEXT_KEYS = ("file", "stream_function", "velocity", "interpolation", "file_sha256")

@@ -215,9 +215,9 @@ def _parameters_section(ds) -> str:
     flow = flow if isinstance(flow, dict) else {}
     for name, value in flow.items():
         rows.append((f"flow.{name}", _e(value) if isinstance(value, list) else _number(value)))
-    for name, value in attrs.items():  # gridded flows: the field report of the input file
+    for name, value in attrs.items():  # data-driven flows: the family's field report
         if name.startswith("field_"):
-            rows.append((f"gridded {name.replace('_', ' ', 1)}",
+            rows.append((f"{attrs.get('flow_family', 'flow')} {name.replace('_', ' ', 1)}",
                          _e(value) if isinstance(value, str) else _number(value)))
     if attrs.get("kappa") is not None:
         rows.append(("molecular diffusivity κ", _number(attrs.get("kappa"))))

@@ -23,8 +23,6 @@ import numpy as np
 from ..errors import StudyError
 from .grids import Modes, add_modes, derivative_modes, fft_modes, max_mode
 
-# Families whose tracers reflect off solid walls: the whole-cell Fourier problem does not apply.
-WALLED_FAMILIES = ("obstacles",)
 FIRST_GRID = 32
 LARGEST_GRID = 512
 BAND_LIMIT = 1e-11
@@ -111,7 +109,7 @@ def cell_fields(family, params: dict, kappa: float, noise_model: str = "constant
             f"flow family {family.name!r} is time-dependent; {what} need a steady flow. "
             "Use the Monte Carlo ensemble instead (eddyhop run / eddyhop.simulate): its "
             "long-time MSD slope gives the effective diffusivity (eddyhop analyse)")
-    if family.name in WALLED_FAMILIES:
+    if family.has_walls:  # tracers reflect at walls: the whole-cell Fourier problem does not apply
         raise StudyError(
             f"flow family {family.name!r} has solid walls; {what} solve on the whole period "
             "cell without walls. Use the Monte Carlo ensemble (eddyhop run / eddyhop.simulate)")

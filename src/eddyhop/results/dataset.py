@@ -193,10 +193,9 @@ def step_check_weak_order(study) -> float:
     symmetrized reflection is weak order 1: Bossy, Gobet & Talay 2004, J. Appl. Probab. 41,
     877–889, quoted from memory; docs/obstacles_and_grids.md measures 0.89 ± 0.08)."""
     from ..engine.integrators import SCHEME_ORDERS
-    from ..reference.fields import WALLED_FAMILIES
 
     order = SCHEME_ORDERS[study.run.integrator][1]
-    return min(order, 1.0) if study.flow.family in WALLED_FAMILIES else order
+    return min(order, 1.0) if study.flow.model.has_walls else order
 
 
 def build_dataset(study, result) -> xr.Dataset:
@@ -259,9 +258,7 @@ def build_dataset(study, result) -> xr.Dataset:
     }
     if result.step_check_particles:
         extra["step_check_weak_order"] = step_check_weak_order(study)
-    if study.flow.model.name == "gridded":  # how faithful the simulated field is to the file
-        from ..flows.gridded import field_attributes
-
-        extra.update(field_attributes(study.flow.params))
+    # data-driven families: how faithful the simulated field is to its source (a family hook)
+    extra.update(study.flow.model.field_attributes(study.flow.params))
     ds.attrs.update(provenance_attrs(study, kind="monte_carlo", extra=extra))
     return ds
