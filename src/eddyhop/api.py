@@ -1,4 +1,9 @@
-"""The Python API the CLI and notebooks share: one call per job."""
+"""The Python API the CLI and notebooks share: one call per job.
+
+Stage 8 (between the reference solvers and sweeps): study → engine → results, with the cost
+check before and the step-bias warning after.  May import core, study, engine, results and
+analysis; sweeps, presentation and the CLI build on it.
+"""
 
 from __future__ import annotations
 
