@@ -35,7 +35,7 @@ from common import machine_note, markdown_table
 
 import eddyhop
 from eddyhop.reference import effective_diffusivity
-from eddyhop.spec import parse_study
+from eddyhop.study.spec import parse_study
 
 KAPPA = 0.1
 INTEGRATORS = ("euler_maruyama", "milstein", "strang_rk2")

@@ -30,7 +30,7 @@ _CHILD = r"""
 import json, resource, sys, time
 import numpy as np
 from eddyhop.reference import effective_diffusivity, moment_evolution
-from eddyhop.spec import parse_study
+from eddyhop.study.spec import parse_study
 job = json.loads(sys.argv[1])
 out = {}
 wall, cpu = time.perf_counter(), time.process_time()

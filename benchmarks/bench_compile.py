@@ -24,7 +24,7 @@ from common import machine_note, markdown_table
 CHILD = r"""
 import json, sys, time
 start = time.perf_counter()
-import eddyhop, eddyhop.api, eddyhop.runner, eddyhop.dataset
+import eddyhop, eddyhop.api, eddyhop.engine.runner, eddyhop.results.dataset
 imported = time.perf_counter()
 sys.path.insert(0, {bench_dir!r})
 from common import cellular_study

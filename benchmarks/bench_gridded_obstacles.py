@@ -19,8 +19,8 @@ from pathlib import Path
 import eddyhop
 from eddyhop.flows import get_family
 from eddyhop.flows.grid_file import grid_dataset
-from eddyhop.io import write_netcdf
-from eddyhop.spec import parse_study
+from eddyhop.results.io import write_netcdf
+from eddyhop.study.spec import parse_study
 
 
 def study(flow, particles, steps):

@@ -26,8 +26,8 @@ import numpy as np
 from common import best_times, cellular_study, machine_note, markdown_table
 
 import eddyhop
-from eddyhop import runner
-from eddyhop.schedule import build_schedule
+from eddyhop.engine import runner
+from eddyhop.engine.schedule import build_schedule
 from eddyhop.starts import sample_starts
 
 

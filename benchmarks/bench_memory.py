@@ -30,7 +30,7 @@ import json, resource, sys, warnings
 sys.path.insert(0, {bench_dir!r})
 from common import cellular_study
 import eddyhop
-from eddyhop.runner import run_ensemble
+from eddyhop.engine.runner import run_ensemble
 
 particles, times, chunk = {particles}, {times}, {chunk}
 eddyhop.simulate(cellular_study(64, 8, n_times=4, workers=2), progress=False)

@@ -60,7 +60,7 @@ def _one_point(study_path: str) -> float:
     import warnings
 
     from eddyhop.api import simulate
-    from eddyhop.spec import load_study
+    from eddyhop.study.spec import load_study
 
     warnings.simplefilter("ignore")
     sweep = load_study(study_path).sweep
@@ -95,7 +95,7 @@ def cli_sweep(study: Path, out: Path, *options: str) -> float:
 
 
 def same_numbers(a: Path, b: Path) -> bool:
-    from eddyhop.sweep import merge_sweep
+    from eddyhop.sweeps import merge_sweep
 
     first, second = merge_sweep(a, analyse=False), merge_sweep(b, analyse=False)
     return all(np.array_equal(first[n].values, second[n].values)
@@ -106,8 +106,8 @@ def workload(root: Path, tag: str, particles: int, t_end: float, points: int,
              repeat: int) -> dict:
     """Serial against 2 processes, via the CLI (fresh pool) and in this process (the first
     parallel run starts the pool, later ones reuse it); best of ``repeat`` interleaved runs."""
-    from eddyhop.spec import load_study
-    from eddyhop.sweep import run_sweep
+    from eddyhop.study.spec import load_study
+    from eddyhop.sweeps import run_sweep
 
     path = write(root, f"{tag}.toml", STUDY.format(particles=particles, t_end=t_end,
                                                    points=points))
@@ -162,8 +162,8 @@ def main():
                         help="only the long workload (and the overhead section)")
     options = parser.parse_args()
 
-    from eddyhop.spec import load_study
-    from eddyhop.sweep import run_sweep, warm_kernels
+    from eddyhop.study.spec import load_study
+    from eddyhop.sweeps import run_sweep, warm_kernels
 
     print(f"cores: {os.cpu_count()}; load average before: {load()} (other work on the "
           "machine lowers the parallel speed-up)")

@@ -5,7 +5,7 @@ from __future__ import annotations
 import os
 import time
 
-from eddyhop.spec import parse_study
+from eddyhop.study.spec import parse_study
 
 
 def cellular_study(particles, steps, dt=0.01, peclet=10.0, integrator="euler_maruyama",

@@ -20,9 +20,9 @@
 # reference time t_a, ⟨|X(t_a + τ) − X(t_a)|²⟩, compared with the MSD from release.
 #
 # Low Pe: D/κ ≈ 1 + Pe²/8 (leading order of the homogenization cell problem, see
-# `eddyhop.plots.asymptotes`); high Pe: D/κ ≈ 2ν Pe^{1/2}, 2ν ≈ 1.0654 (Soward 1987,
+# `eddyhop.presentation.plots.asymptotes`); high Pe: D/κ ≈ 2ν Pe^{1/2}, 2ν ≈ 1.0654 (Soward 1987,
 # J. Fluid Mech. 180, 267, as quoted by Haynes & Vanneste 2014, J. Fluid Mech. 745, 351 —
-# value from memory; `eddyhop.plots.asymptotes.CELLULAR_HIGH_PE`).
+# value from memory; `eddyhop.presentation.plots.asymptotes.CELLULAR_HIGH_PE`).
 #
 # Research estimate from a model flow: not for the design of real equipment.
 # `EDDYHOP_QUICK=1` runs a small ensemble (as the test suite does).
@@ -37,10 +37,10 @@ import numpy as np
 from IPython.display import display
 
 import eddyhop
-from eddyhop import plots
 from eddyhop.analysis.verdicts import flag_meaning
-from eddyhop.presentation import scaling_lines
-from eddyhop.sweep import run_sweep
+from eddyhop.presentation import plots
+from eddyhop.presentation.text import scaling_lines
+from eddyhop.sweeps import run_sweep
 
 QUICK = os.environ.get("EDDYHOP_QUICK") == "1"
 PARTICLES = 192 if QUICK else 3000

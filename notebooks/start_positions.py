@@ -20,7 +20,7 @@
 # analysis, and check that all three reach the same long-time effective diffusivity,
 # close to the boundary-layer prediction D_eff ≈ C κ Pe^{1/2}, C = 2ν ≈ 1.0654 (Soward 1987,
 # J. Fluid Mech. 180, 267, as quoted by Haynes & Vanneste 2014, J. Fluid Mech. 745, 351 —
-# value from memory; the constant is `eddyhop.plots.asymptotes.CELLULAR_HIGH_PE`).
+# value from memory; the constant is `eddyhop.presentation.plots.asymptotes.CELLULAR_HIGH_PE`).
 #
 # Research estimate from a model flow: not for the design of real equipment; use validated
 # methods and the applicable codes for that.
@@ -37,9 +37,9 @@ import numpy as np
 from IPython.display import display
 
 import eddyhop
-from eddyhop import plots
 from eddyhop.analysis import analyse
-from eddyhop.plots.asymptotes import CELLULAR_HIGH_PE
+from eddyhop.presentation import plots
+from eddyhop.presentation.plots.asymptotes import CELLULAR_HIGH_PE
 
 QUICK = os.environ.get("EDDYHOP_QUICK") == "1"
 PARTICLES = 256 if QUICK else 4000

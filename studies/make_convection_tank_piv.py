@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from eddyhop.io import write_netcdf
+from eddyhop.results.io import write_netcdf
 
 N = 48  # intervals per direction; the file holds N + 1 samples (closed periodic grid)
 L = 0.04  # m

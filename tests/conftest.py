@@ -12,7 +12,7 @@ os.environ.setdefault("MPLBACKEND", "Agg")
 
 def make_study(**sections):
     """A valid small study; keyword arguments override whole sections or single keys."""
-    from eddyhop.spec import parse_study
+    from eddyhop.study.spec import parse_study
 
     document = {
         "title": "test study",

@@ -16,9 +16,9 @@ from click.testing import CliRunner
 
 import eddyhop
 import eddyhop.analysis
-import eddyhop.io
+import eddyhop.results.io
 from eddyhop.cli import main
-from eddyhop.presentation import LATE_SLOPE_NAME, analysis_lines
+from eddyhop.presentation.text import LATE_SLOPE_NAME, analysis_lines
 from tests.conftest import make_study
 
 
@@ -183,7 +183,7 @@ def test_summary_never_prints_a_diffusivity_that_is_not_claimed(small_run):
 def test_one_late_slope_in_every_command(small_run, tmp_path):
     """The late log-log slope has one definition (the analysis's deff_alpha): `run`/`info`
     print the same value as `analyse`, unanalysed or analysed, and the report shows it."""
-    from eddyhop.report import build_report
+    from eddyhop.presentation.report import build_report
 
     path, raw, analysed = small_run
     expected = {label: f"{float(analysed['deff_alpha'].sel(start=label)):.3f}"
@@ -191,7 +191,7 @@ def test_one_late_slope_in_every_command(small_run, tmp_path):
     runner = CliRunner()
     for source in (path, tmp_path / "analysed.nc"):
         if source != path:
-            eddyhop.io.write_netcdf(analysed, source)
+            eddyhop.results.io.write_netcdf(analysed, source)
         answer = runner.invoke(main, ["info", str(source)])
         assert answer.exit_code == 0, answer.output
         for label, value in expected.items():

@@ -284,7 +284,7 @@ def test_summary_and_report_never_show_a_number_for_a_bounded_variance(capsys):
     D_eff table — a bounded variance (Ornstein–Uhlenbeck positions, as above) reads as "no
     diffusivity", never as a value."""
     from eddyhop.cli.analyse import print_analysis
-    from eddyhop.report import run_warnings
+    from eddyhop.presentation.report import run_warnings
 
     rng = np.random.default_rng(25)
     t = np.geomspace(0.1, 1000.0, 40)

@@ -250,7 +250,7 @@ def _readme_study():
     """The study of the README's "Worked example" section, read from README.md itself."""
     from pathlib import Path
 
-    from eddyhop.spec import parse_study, tomllib  # tomllib, or tomli before Python 3.11
+    from eddyhop.study.spec import parse_study, tomllib  # tomllib, or tomli before Python 3.11
 
     text = (Path(__file__).resolve().parent.parent / "README.md").read_text(encoding="utf-8")
     section = text[text.index("## Worked example"):]

@@ -54,12 +54,12 @@ def test_bad_study_values(work, old, new, words):
 def test_unexpected_exception_is_one_line_with_exit_1(work, monkeypatch):
     """The last resort: a bug surfaces as one 'internal error' line (exit 1), no traceback;
     EDDYHOP_DEBUG=1 lets it through for a developer."""
-    import eddyhop.io
+    import eddyhop.results.io
 
     def broken(path):
         raise RuntimeError("simulated bug\nsecond line")
 
-    monkeypatch.setattr(eddyhop.io, "open_result", broken)
+    monkeypatch.setattr(eddyhop.results.io, "open_result", broken)
     answer = invoke(["info", work / "r.nc"])
     assert answer.exit_code == 1
     lines = answer.output.strip().splitlines()

@@ -148,7 +148,7 @@ def test_ctrl_c_leaves_no_file(tmp_path):
 
 def test_demo_study_is_valid():
     from eddyhop.cli.demo import demo_text
-    from eddyhop.spec import parse_study_text
+    from eddyhop.study.spec import parse_study_text
 
     study = parse_study_text(demo_text())
     assert len(study.starts) >= 2

@@ -8,9 +8,9 @@ import tracemalloc
 
 import pytest
 
-from eddyhop import cost as cost_module
-from eddyhop.cost import TIME_LIMIT_SECONDS, estimate
-from eddyhop.spec import parse_study_text
+from eddyhop.study import cost as cost_module
+from eddyhop.study.cost import TIME_LIMIT_SECONDS, estimate
+from eddyhop.study.spec import parse_study_text
 
 from .test_output_safety import STUDY, invoke, refused
 
@@ -106,7 +106,7 @@ def test_time_limit_is_a_day():
 
 
 def test_layout_constants_agree_with_the_runner():
-    from eddyhop import kernel, runner, stepcheck
+    from eddyhop.engine import kernel, runner, stepcheck
 
     assert cost_module._MAX_BLOCK == runner.MAX_BLOCK
     assert cost_module._MOMENT_BASE_COLUMNS == kernel.N_BASE

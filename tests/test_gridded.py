@@ -18,7 +18,7 @@ from eddyhop.flows import get_family
 from eddyhop.flows.compiled import evaluate_gradient, evaluate_psi, evaluate_velocity
 from eddyhop.flows.grid_file import grid_dataset, unit_powers
 from eddyhop.flows.gridded import GriddedFieldWarning, field_report
-from eddyhop.io import write_netcdf
+from eddyhop.results.io import write_netcdf
 from tests.conftest import make_study
 
 CELLULAR = get_family("cellular")
@@ -392,7 +392,7 @@ def test_field_report_is_stored_in_the_run_attributes(tmp_path):
     strings only), equal to the report, and survives the netCDF round trip."""
     import eddyhop
     from eddyhop.flows.gridded import field_attributes
-    from eddyhop.io import open_result
+    from eddyhop.results.io import open_result
 
     path = _divergent_file(tmp_path)
     with pytest.warns(GriddedFieldWarning):
@@ -447,7 +447,7 @@ def test_validate_prints_the_field_report(tmp_path):
 
 def test_html_report_lists_the_field_report(tmp_path):
     import eddyhop
-    from eddyhop.report import build_report
+    from eddyhop.presentation.report import build_report
 
     path = _write(tmp_path, "c.nc", "cellular", {"U": 1.0, "k": 1.0}, 32)
     study = make_study(flow={"family": "gridded", "file": path, "_replace": True},

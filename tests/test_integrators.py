@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from scipy.special import ellipk
 
-from eddyhop.integrators import euler_maruyama_increment, milstein_increment
+from eddyhop.engine.integrators import euler_maruyama_increment, milstein_increment
 
 
 def _strong_errors(rule, seed=20010101, paths=4000):
@@ -89,7 +89,7 @@ def _weak_bias(integrator, dt, particles, exact, seed=5):
     import warnings
 
     import eddyhop
-    from eddyhop.runner import StepSizeWarning
+    from eddyhop.engine.runner import StepSizeWarning
     from tests.conftest import make_study
 
     study = make_study(noise={"peclet": 10.0},

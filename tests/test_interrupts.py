@@ -21,7 +21,12 @@ import numpy as np
 import pytest
 import xarray as xr
 
-from eddyhop.io import atomic_write_text, interrupts_deferred, stale_temporaries, write_netcdf
+from eddyhop.results.io import (
+    atomic_write_text,
+    interrupts_deferred,
+    stale_temporaries,
+    write_netcdf,
+)
 from eddyhop.sweeps.manifest import folder_lock
 
 
@@ -104,7 +109,7 @@ WRITER = textwrap.dedent("""
     import numpy as np
     import xarray as xr
 
-    from eddyhop.io import write_netcdf
+    from eddyhop.results.io import write_netcdf
     from eddyhop.sweeps.manifest import folder_lock
 
     folder = Path(sys.argv[1])
@@ -152,7 +157,7 @@ def test_sigint_in_a_sweep_between_staging_and_rename(tmp_path):
     import queue
     import threading
 
-    from eddyhop.sweep import run_sweep
+    from eddyhop.sweeps import run_sweep
 
     from .test_sweep_run import study_text, write_study
 

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 import xarray as xr
 
-from eddyhop.io import atomic_write_text, write_netcdf
+from eddyhop.results.io import atomic_write_text, write_netcdf
 
 
 def _dataset():
@@ -68,7 +68,7 @@ def _bad_inputs(tmp_path):
 
 def test_open_result_names_the_file_for_every_kind_of_bad_input(tmp_path):
     from eddyhop.errors import InputDataError
-    from eddyhop.io import open_result
+    from eddyhop.results.io import open_result
 
     for kind, path in _bad_inputs(tmp_path).items():
         with pytest.raises(InputDataError) as caught:

@@ -9,8 +9,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from eddyhop import rng
-from eddyhop.rng import fill_normals, normal_draws, split_seed, ziggurat_tables
+from eddyhop.engine import rng
+from eddyhop.engine.rng import fill_normals, normal_draws, split_seed, ziggurat_tables
 
 SEED = 97531
 

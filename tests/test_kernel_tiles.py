@@ -9,20 +9,20 @@ import numpy as np
 import pytest
 
 import eddyhop
-from eddyhop import runner
-from eddyhop.flows import get_family
-from eddyhop.flows.compiled import evaluate_velocity
-from eddyhop.integrators import (
+from eddyhop.engine import runner
+from eddyhop.engine.integrators import (
     SCHEME_CODES,
     TILE_WORK_ROWS,
     advance,
     advance_tile,
     tile_velocity,
 )
-from eddyhop.kernel import N_BASE, TILE, _abs_power
-from eddyhop.noise import MODEL_CODES
-from eddyhop.rng import normal_draws
-from eddyhop.schedule import build_schedule
+from eddyhop.engine.kernel import N_BASE, TILE, _abs_power
+from eddyhop.engine.noise import MODEL_CODES
+from eddyhop.engine.rng import normal_draws
+from eddyhop.engine.schedule import build_schedule
+from eddyhop.flows import get_family
+from eddyhop.flows.compiled import evaluate_velocity
 from tests.conftest import make_study
 
 FLOWS = [

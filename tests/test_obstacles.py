@@ -14,15 +14,15 @@ from numba import prange
 
 import eddyhop
 from eddyhop._jit import jit
+from eddyhop.engine.integrators import SCHEME_CODES, advance
+from eddyhop.engine.noise import CONSTANT
+from eddyhop.engine.rng import normal_pair, split_seed
+from eddyhop.engine.runner import StepSizeWarning
 from eddyhop.errors import StudyError
 from eddyhop.flows import get_family
 from eddyhop.flows import stokes_lattice as sl
 from eddyhop.flows.compiled import confine, evaluate_gradient, evaluate_velocity
 from eddyhop.flows.obstacles import HEADER, lattice_of
-from eddyhop.integrators import SCHEME_CODES, advance
-from eddyhop.noise import CONSTANT
-from eddyhop.rng import normal_pair, split_seed
-from eddyhop.runner import StepSizeWarning
 from tests.conftest import make_study
 
 OBSTACLES = get_family("obstacles")

@@ -7,7 +7,7 @@ from __future__ import annotations
 import pytest
 
 from eddyhop.errors import StudyError
-from eddyhop.spec import MAX_STEP_PHASE, parse_study_text
+from eddyhop.study.spec import MAX_STEP_PHASE, parse_study_text
 
 from .test_output_safety import STUDY, invoke, refused
 

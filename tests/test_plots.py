@@ -13,9 +13,9 @@ from matplotlib.collections import PolyCollection
 from matplotlib.figure import Figure
 
 import eddyhop
-from eddyhop import plots
 from eddyhop.errors import EddyhopError, InputDataError
-from eddyhop.plots.asymptotes import CELLULAR_HIGH_PE
+from eddyhop.presentation import plots
+from eddyhop.presentation.plots.asymptotes import CELLULAR_HIGH_PE
 from tests.conftest import make_study
 
 CENTRE = math.pi / 2
@@ -50,8 +50,8 @@ def analysed_ds(run_ds):
 @pytest.fixture(scope="module")
 def sweep_ds(tmp_path_factory):
     """A merged three-point Péclet sweep (serial backend), analysed per point by the merge."""
-    from eddyhop.spec import parse_study
-    from eddyhop.sweep import merge_sweep, run_sweep
+    from eddyhop.study.spec import parse_study
+    from eddyhop.sweeps import merge_sweep, run_sweep
 
     study = parse_study({
         "title": "plot test sweep", "flow": {"family": "cellular"}, "noise": {"peclet": 10.0},
@@ -111,7 +111,7 @@ def test_lines_use_the_colour_blind_safe_palette_in_order(analysed_ds):
     """Okabe & Ito (2008), "Color Universal Design" palette, one colour per start region."""
     from matplotlib.colors import to_hex
 
-    from eddyhop.plots._style import PALETTE
+    from eddyhop.presentation.plots._style import PALETTE
 
     for figure in (plots.msd_figure(analysed_ds), plots.exponent_figure(analysed_ds),
                    plots.starts_figure(analysed_ds)):
@@ -204,7 +204,7 @@ def test_trajectory_figure_content(run_ds):
 def test_separatrix_lies_on_cell_edges():
     """Cellular flow: the separatrix ψ = 0 is the lines x = nπ/k, y = mπ/k (flows/cellular.py);
     every vertex of the drawn contour satisfies |sin kx sin ky| ≤ grid-spacing error."""
-    from eddyhop.plots.trajectories import draw_flow
+    from eddyhop.presentation.plots.trajectories import draw_flow
 
     family = eddyhop.get_family("cellular")
     params = family.validate({"U": 1.0, "k": 2.0})
@@ -246,7 +246,7 @@ def test_residence_tail_fits_follow_the_analysis(analysed_ds):
     integrates over [t_min, t_max] to the tail fraction N_tail / N (quadrature error only)."""
     from scipy.integrate import trapezoid
 
-    from eddyhop.plots.residence import tail_fit_densities
+    from eddyhop.presentation.plots.residence import tail_fit_densities
 
     part = analysed_ds.sel(start="anywhere")
     edges = analysed_ds["residence_time_edges"].values
@@ -302,7 +302,7 @@ def test_exponent_map_content(sweep_ds):
     assert ax.get_xscale() == "log" and "time" in ax.get_xlabel()
     assert "(dimensionless)" in ax.get_xlabel() or "[" in ax.get_xlabel()  # units shown
     assert np.isfinite(np.ma.compressed(values)).all()
-    from eddyhop.plots._style import EXPONENT_CMAP
+    from eddyhop.presentation.plots._style import EXPONENT_CMAP
 
     assert mesh.get_cmap().name == EXPONENT_CMAP  # diverging, colour-blind safe
     with pytest.raises(InputDataError, match=r"alpha.*eddyhop analyse"):

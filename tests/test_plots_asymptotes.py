@@ -12,7 +12,7 @@ Checks are against closed forms that follow from the homogenization cell problem
   Δu = −2k²u, so χ = u/(2κk²) and D_xx − κ = ⟨u χ⟩ = ⟨u²⟩/(2κk²) = U²/(8κk²): D = κ(1 + Pe²/8)
   + O(Pe⁴) (Pavliotis & Stuart 2008, *Multiscale Methods*, ch. 13, for the expansion);
 * cellular flow, large Pe: D/κ → C Pe^½ with C = 2ν = 1.0654 (the constant and its sources in
-  ``eddyhop.plots.asymptotes``; checked against the cell-problem solver in
+  ``eddyhop.presentation.plots.asymptotes``; checked against the cell-problem solver in
   ``tests/test_reference_cell_problem.py``).
 Each is exact arithmetic, so tolerances are rounding only.
 """
@@ -22,7 +22,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from eddyhop.plots.asymptotes import (
+from eddyhop.presentation.plots.asymptotes import (
     CELLULAR_HIGH_PE,
     asymptotes,
     is_exact_shear,

@@ -14,7 +14,7 @@ import pytest
 
 from eddyhop.errors import StudyError
 from eddyhop.flows import get_family
-from eddyhop.plots.asymptotes import CELLULAR_HIGH_PE, SOWARD_NU
+from eddyhop.presentation.plots.asymptotes import CELLULAR_HIGH_PE, SOWARD_NU
 from eddyhop.reference import (
     ReferenceConvergenceError,
     ResolutionWarning,
@@ -78,7 +78,7 @@ def test_cellular_low_peclet_is_quadratic():
 def test_cellular_large_peclet_extrapolates_to_the_boundary_layer_constant():
     """D/κ → C Pe^(1/2) with C = 2ν, ν ≈ 0.5327 (Soward 1987, J. Fluid Mech. 180, 267, as
     quoted by Haynes & Vanneste 2014, J. Fluid Mech. 745, 351; value from memory; the one copy
-    is ``eddyhop.plots.asymptotes.CELLULAR_HIGH_PE``).
+    is ``eddyhop.presentation.plots.asymptotes.CELLULAR_HIGH_PE``).
 
     The cell problem is solved at Pe = 10², 3·10², 10³, 3·10³ (rtol 1e-7; each solve's own
     error estimate is ≲ 6e-8) and D/(κ Pe^½) extrapolated by fitting C + a Pe^(−p).  The
@@ -223,7 +223,7 @@ def test_bicubic_gridded_flow_is_refused_with_hint():
     interpolation and the Monte Carlo alternative (no silently truncated answer)."""
     from pathlib import Path
 
-    from eddyhop.spec import load_study
+    from eddyhop.study.spec import load_study
 
     study = load_study(Path(__file__).resolve().parents[1] / "studies" /
                        "convection_tank_piv.toml")

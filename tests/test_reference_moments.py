@@ -139,9 +139,9 @@ def test_dataset_layout_matches_monte_carlo_conventions(tmp_path):
     study's own output times; provenance kind 'reference'; round trip through netCDF; the
     analysis layer accepts it (its fitted D agrees with the cell problem within 2%)."""
     from eddyhop.analysis import analyse
-    from eddyhop.dataset import VARIABLE_ATTRS
-    from eddyhop.io import open_result, write_netcdf
-    from eddyhop.schedule import build_schedule
+    from eddyhop.engine.schedule import build_schedule
+    from eddyhop.results.dataset import VARIABLE_ATTRS
+    from eddyhop.results.io import open_result, write_netcdf
 
     study = make_study(noise={"peclet": 10.0},
                        start=[{"kind": "uniform"}, {"kind": "centre", "label": "centres"}],

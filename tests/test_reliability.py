@@ -143,7 +143,7 @@ def _count(suite: str, outcome: str) -> None:
 
 
 def test_base_study_is_valid():
-    from eddyhop.spec import parse_study_text
+    from eddyhop.study.spec import parse_study_text
 
     parse_study_text(to_toml(BASE), "base.toml")
 
@@ -151,8 +151,8 @@ def test_base_study_is_valid():
 @FUZZ
 @given(document=mangled_documents())
 def test_mangled_study_is_accepted_or_refused_in_one_line(document):
-    from eddyhop.schedule import build_schedule
-    from eddyhop.spec import parse_study_text
+    from eddyhop.engine.schedule import build_schedule
+    from eddyhop.study.spec import parse_study_text
 
     outcome = "broken"
     try:

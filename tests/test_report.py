@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 
 import eddyhop
-from eddyhop.report import CAUTION, build_report, run_warnings, write_report
+from eddyhop.presentation.report import CAUTION, build_report, run_warnings, write_report
 from tests.conftest import make_study
 
 
@@ -47,8 +47,8 @@ def report_file(result):
 
 @pytest.fixture(scope="module")
 def sweep_file(tmp_path_factory):
-    from eddyhop.spec import parse_study
-    from eddyhop.sweep import run_sweep
+    from eddyhop.study.spec import parse_study
+    from eddyhop.sweeps import run_sweep
 
     study = parse_study({
         "title": "report test sweep", "flow": {"family": "shear"}, "noise": {"peclet": 2.0},

@@ -21,7 +21,7 @@ def test_one_chunk_seven_chunks_and_two_workers_are_bit_identical():
         aging={"times": [0.5], "lags": 5},
         hopping={"enabled": True},
     )
-    from eddyhop.runner import _chunks, block_size_for
+    from eddyhop.engine.runner import _chunks, block_size_for
 
     block = block_size_for(study.run.particles, study.run.batches)
     seven_chunks = -(-study.run.particles // 7 // block) * block  # a whole number of blocks

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import stats
 
-from eddyhop.rng import normal_draws, philox_block
+from eddyhop.engine.rng import normal_draws, philox_block
 
 # Known-answer values of Philox4x32-10 (counter[4], key[2] -> output[4]) published with
 # Salmon, Moraes, Dror & Shaw (2011), "Parallel random numbers: as easy as 1, 2, 3",

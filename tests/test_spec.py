@@ -6,9 +6,9 @@ import math
 
 import pytest
 
+from eddyhop.engine.noise import convert_peclet, kappa_from_peclet, peclet_from_kappa
 from eddyhop.errors import StudyError
-from eddyhop.noise import convert_peclet, kappa_from_peclet, peclet_from_kappa
-from eddyhop.spec import load_study, parse_study_text
+from eddyhop.study.spec import load_study, parse_study_text
 from tests.conftest import make_study
 
 
@@ -117,7 +117,7 @@ def test_each_step_size_warning_fires_once_per_run(sections, phrase):
     import warnings
 
     import eddyhop
-    from eddyhop.runner import StepSizeWarning
+    from eddyhop.engine.runner import StepSizeWarning
 
     study = make_study(**sections)
     with warnings.catch_warnings(record=True) as caught:
@@ -131,7 +131,7 @@ def test_each_step_size_warning_fires_once_per_run(sections, phrase):
 def test_a_strong_drift_counts_in_the_advective_step_check():
     """dt·U·k = 0.005 for the cells, but a drift of 8 U makes the peak speed ≈ 9 U (Euler–
     Maruyama without the measured check: static limit 0.01)."""
-    from eddyhop.runner import step_size_warnings
+    from eddyhop.engine.runner import step_size_warnings
 
     run = {"dt": 0.005, "integrator": "euler_maruyama", "step_check": False}
     calm = make_study(flow={"family": "drifting_cellular"}, run=run)
@@ -141,7 +141,7 @@ def test_a_strong_drift_counts_in_the_advective_step_check():
 
 
 def test_small_steps_give_no_step_size_warning():
-    from eddyhop.runner import step_size_warnings
+    from eddyhop.engine.runner import step_size_warnings
 
     assert step_size_warnings(make_study()) == []
 
@@ -152,7 +152,7 @@ def test_study_built_in_code_records_its_toml():
     import numpy as np
     import tomllib
 
-    from eddyhop.spec import parse_study
+    from eddyhop.study.spec import parse_study
 
     document = {
         "title": 'tray "A" — cores',
@@ -169,7 +169,8 @@ def test_study_built_in_code_records_its_toml():
 
 
 def test_step_limit_matches_the_random_streams():
-    from eddyhop import rng, spec
+    from eddyhop.engine import rng
+    from eddyhop.study import spec
 
     assert spec.STEP_LIMIT == rng.STEP_LIMIT
     with pytest.raises(StudyError, match="steps exceeds"):

@@ -28,7 +28,7 @@ from scipy import integrate, stats
 from eddyhop import starts as S
 from eddyhop.errors import StudyError
 from eddyhop.flows import get_family
-from eddyhop.spec import FlowSpec
+from eddyhop.study.spec import FlowSpec
 
 
 def flow(name, **params):

@@ -15,8 +15,8 @@ import pytest
 
 import eddyhop
 from eddyhop.analysis import analyse, step_check
+from eddyhop.engine.runner import StepBiasWarning, check_plan, run_ensemble, step_size_warnings
 from eddyhop.errors import StudyError
-from eddyhop.runner import StepBiasWarning, check_plan, run_ensemble, step_size_warnings
 
 from .conftest import make_study
 
@@ -114,10 +114,10 @@ def test_fine_path_of_the_check_is_the_runs_own_path(integrator):
     """The check kernel, asked to integrate the fine path too, reproduces the ensemble
     kernel's moments of the same particles (same Philox normals, same step) to round-off:
     only the order of summation differs (the ensemble folds block sums into batches)."""
-    from eddyhop.runner import _make_context
-    from eddyhop.schedule import build_schedule
+    from eddyhop.engine.runner import _make_context
+    from eddyhop.engine.schedule import build_schedule
+    from eddyhop.engine.stepcheck import CHECK_COLUMNS, run_step_check
     from eddyhop.starts import sample_starts
-    from eddyhop.stepcheck import CHECK_COLUMNS, run_step_check
 
     study = make_study(noise={"peclet": 30.0},
                        run={"particles": 48, "dt": 0.05, "t_end": 5.0, "n_times": 9,

@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 import eddyhop
-from eddyhop import plots
+from eddyhop.presentation import plots
 
 STUDIES = Path(__file__).resolve().parent.parent / "studies"
 ALL = sorted(STUDIES.glob("*.toml"))

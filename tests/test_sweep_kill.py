@@ -31,7 +31,7 @@ from pathlib import Path
 import psutil
 import pytest
 
-from eddyhop.sweep import Manifest, merge_sweep, run_sweep
+from eddyhop.sweeps import Manifest, merge_sweep, run_sweep
 
 from .test_sweep_run import assert_same_numbers, study_text, write_study
 

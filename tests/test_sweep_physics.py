@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 import xarray as xr
 
-from eddyhop.sweep import fit_power_law, run_sweep, scaling_summary
+from eddyhop.sweeps import fit_power_law, run_sweep, scaling_summary
 
 STUDY = """
 title = "Taylor dispersion in a periodic shear, Pe sweep"

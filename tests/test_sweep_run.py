@@ -21,8 +21,8 @@ import pytest
 import xarray as xr
 
 from eddyhop.errors import EddyhopError, StudyError
-from eddyhop.spec import parse_study_text
-from eddyhop.sweep import Manifest, merge_sweep, run_sweep
+from eddyhop.study.spec import parse_study_text
+from eddyhop.sweeps import Manifest, merge_sweep, run_sweep
 
 SMALL = """
 title = "sweep run test"
@@ -122,7 +122,7 @@ def test_serial_sweep_layout_and_manifest(reference):
 def test_merged_file_opens_with_netcdf4_and_xarray_with_units(reference, tmp_path):
     import netCDF4
 
-    from eddyhop.io import write_netcdf
+    from eddyhop.results.io import write_netcdf
 
     target = write_netcdf(reference["merged"], tmp_path / "merged.nc")
     with netCDF4.Dataset(target) as nc:
@@ -151,7 +151,7 @@ def test_merged_file_with_analysis_opens_with_netcdf4_and_xarray(reference, tmp_
     pytest.importorskip("eddyhop.analysis")
     import netCDF4
 
-    from eddyhop.io import write_netcdf
+    from eddyhop.results.io import write_netcdf
 
     merged = merge_sweep(reference["report"].directory)
     for name in ("D_eff", "D_eff_se", "regime_label", "regime_start", "regime_end",

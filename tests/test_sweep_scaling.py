@@ -13,7 +13,7 @@ import pytest
 import xarray as xr
 
 from eddyhop.errors import InputDataError
-from eddyhop.sweep import fit_power_law, scaling_summary
+from eddyhop.sweeps import fit_power_law, scaling_summary
 from eddyhop.sweeps.scaling import nearest_scale
 
 
@@ -193,7 +193,7 @@ def test_fit_over_undetermined_points_is_counted_and_said():
     """The case of the issue: every point has deff_converged = undetermined.  The fit is
     made (the points carry errors) but its verdict is undetermined, the count of undetermined
     points is stored, and the printed line says so instead of a bare interval."""
-    from eddyhop.presentation import scaling_lines
+    from eddyhop.presentation.text import scaling_lines
 
     pe = [10.0, 30.0, 100.0, 300.0, 1000.0]
     ds = merged_like(pe)
@@ -218,7 +218,7 @@ def test_fit_over_undetermined_points_is_counted_and_said():
     corner = next(line for line in lines if "start=centre" in line)
     assert "4 of 4 points UNDETERMINED" in corner and "1 point(s) left out" in corner
     # the report's scaling table says the same
-    from eddyhop.report import scaling_html
+    from eddyhop.presentation.report import scaling_html
 
     page = scaling_html(merged.assign_attrs(sweep_deff_status="10 results: 9 undetermined, "
                                             "1 bounded"))

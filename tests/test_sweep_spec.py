@@ -11,7 +11,7 @@ import math
 import pytest
 
 from eddyhop.errors import StudyError
-from eddyhop.spec import parse_study
+from eddyhop.study.spec import parse_study
 
 BASE = {
     "title": "sweep spec test",

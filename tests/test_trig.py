@@ -17,10 +17,10 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from eddyhop.engine.integrators import tile_velocity
 from eddyhop.flows import get_family
 from eddyhop.flows._trig import LIMIT, sincos
 from eddyhop.flows.compiled import evaluate_velocity
-from eddyhop.integrators import tile_velocity
 from tests.test_kernel_tiles import FLOWS as TILE_FLOWS
 
 ULP_TOLERANCE = 2.0

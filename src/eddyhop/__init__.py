@@ -11,25 +11,29 @@ from __future__ import annotations
 
 __version__ = "0.1.0"
 
+from . import _compat
+
+_compat.install()
+
 _LAZY = {
-    "load_study": ("eddyhop.spec", "load_study"),
-    "parse_study": ("eddyhop.spec", "parse_study"),
-    "parse_study_text": ("eddyhop.spec", "parse_study_text"),
-    "Study": ("eddyhop.spec", "Study"),
+    "load_study": ("eddyhop.study.spec", "load_study"),
+    "parse_study": ("eddyhop.study.spec", "parse_study"),
+    "parse_study_text": ("eddyhop.study.spec", "parse_study_text"),
+    "Study": ("eddyhop.study.spec", "Study"),
     "simulate": ("eddyhop.api", "simulate"),
     "run_study": ("eddyhop.api", "run_study"),
-    "write_netcdf": ("eddyhop.io", "write_netcdf"),
-    "open_result": ("eddyhop.io", "open_result"),
-    "run_sweep": ("eddyhop.sweep", "run_sweep"),
-    "merge_sweep": ("eddyhop.sweep", "merge_sweep"),
+    "write_netcdf": ("eddyhop.results.io", "write_netcdf"),
+    "open_result": ("eddyhop.results.io", "open_result"),
+    "run_sweep": ("eddyhop.sweeps", "run_sweep"),
+    "merge_sweep": ("eddyhop.sweeps", "merge_sweep"),
     "analyse": ("eddyhop.analysis", "analyse"),
     "get_family": ("eddyhop.flows", "get_family"),
     "FAMILIES": ("eddyhop.flows", "FAMILIES"),
     "StudyError": ("eddyhop.errors", "StudyError"),
     "BlowUpError": ("eddyhop.errors", "BlowUpError"),
     "EddyhopError": ("eddyhop.errors", "EddyhopError"),
-    "StepSizeWarning": ("eddyhop.runner", "StepSizeWarning"),
-    "StepBiasWarning": ("eddyhop.runner", "StepBiasWarning"),
+    "StepSizeWarning": ("eddyhop.engine.runner", "StepSizeWarning"),
+    "StepBiasWarning": ("eddyhop.engine.runner", "StepBiasWarning"),
 }
 
 

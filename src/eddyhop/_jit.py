@@ -5,7 +5,9 @@ a test, a joblib or Dask worker, the next ``eddyhop run`` — loads machine code
 of compiling again.  Numba checks only the timestamp of the file that defines a cached function,
 not of the modules it calls, so an edited flow module could silently reuse a stale kernel.  We
 therefore key the cache directory by a hash of the package's own source files: any edit to the
-package gives a fresh cache.
+package gives a fresh cache.  A flow family registered from outside the package (a plugin, a
+test) adds its own source to that key (:func:`add_cache_key`), since the compiled dispatch is
+generated from the registered families.
 """
 
 from __future__ import annotations
@@ -20,6 +22,8 @@ import numba
 from numba.core import config as _numba_config
 
 _PACKAGE_DIR = Path(__file__).resolve().parent
+_EXTRA_KEYS: list[str] = []  # sources outside the package that compiled code depends on
+_DISPATCHERS: list = []  # every dispatcher made by :func:`jit`, to re-key their caches
 
 
 @functools.lru_cache(maxsize=1)
@@ -29,6 +33,8 @@ def kernel_cache_dir() -> str:
     for path in sorted(_PACKAGE_DIR.rglob("*.py")):
         digest.update(path.relative_to(_PACKAGE_DIR).as_posix().encode())
         digest.update(path.read_bytes())
+    for text in _EXTRA_KEYS:
+        digest.update(text.encode())
     root = os.environ.get("EDDYHOP_CACHE_DIR") or os.path.join(
         os.environ.get("XDG_CACHE_HOME") or os.path.join(Path.home(), ".cache"), "eddyhop"
     )
@@ -54,6 +60,23 @@ def jit(function=None, **options):
 
     def decorate(func):
         with _cache_dir_for_decoration():
-            return numba.njit(**settings)(func)
+            dispatcher = numba.njit(**settings)(func)
+        _DISPATCHERS.append(dispatcher)
+        return dispatcher
 
     return decorate if function is None else decorate(function)
+
+
+def add_cache_key(text: str) -> None:
+    """Make the kernel cache depend on ``text`` too (the source of a family registered from
+    outside the package), re-pointing the caches of the dispatchers already decorated."""
+    _EXTRA_KEYS.append(text)
+    kernel_cache_dir.cache_clear()
+    with _cache_dir_for_decoration():
+        for dispatcher in _DISPATCHERS:
+            dispatcher.enable_caching()
+
+
+def any_compiled() -> bool:
+    """Whether any of the package's kernels has been compiled or loaded in this process."""
+    return any(dispatcher.overloads for dispatcher in _DISPATCHERS)

@@ -1,8 +1,13 @@
-"""The Python API the CLI and notebooks share: one call per job."""
+"""The Python API the CLI and notebooks share: one call per job.
+
+Stage 8 (between the reference solvers and sweeps): study → engine → results, with the cost
+check before and the step-bias warning after.  May import core, study, engine, results and
+analysis; sweeps, presentation and the CLI build on it.
+"""
 
 from __future__ import annotations
 
-from .spec import Study, load_study
+from .study.spec import Study, load_study
 
 
 def simulate(study: Study, *, workers: int | None = None, chunk: int | None = None,
@@ -14,9 +19,9 @@ def simulate(study: Study, *, workers: int | None = None, chunk: int | None = No
     would exceed the machine's available memory is refused, and one whose estimated CPU time
     exceeds 24 h unless ``allow_long``.
     """
-    from .cost import study_cost_checked
-    from .dataset import build_dataset
-    from .runner import run_ensemble
+    from .engine.runner import run_ensemble
+    from .results.dataset import build_dataset
+    from .study.cost import study_cost_checked
 
     study_cost_checked(study, allow_long=allow_long, workers=workers)
 
@@ -30,7 +35,7 @@ def _warn_step_bias(ds) -> None:
     """A :class:`StepBiasWarning` when the measured step-size bias is not shown below the
     statistical error of D_eff (verdict ``biased`` or ``inconclusive``)."""
     from .analysis.stepcheck import has_step_check, step_bias_messages, step_check
-    from .runner import StepBiasWarning
+    from .engine.runner import StepBiasWarning
 
     if not has_step_check(ds):
         return
@@ -42,7 +47,7 @@ def _warn_step_bias(ds) -> None:
 
 def run_study(path_or_study, out=None, **options):
     """Load (if a path), simulate and write the result atomically; returns the Dataset."""
-    from .io import check_output_path, write_netcdf
+    from .results.io import check_output_path, write_netcdf
 
     study = path_or_study if isinstance(path_or_study, Study) else load_study(path_or_study)
     target = out or study.output.path

@@ -5,6 +5,10 @@ and ``units``); :func:`analyse` runs all that the Dataset supports and returns t
 every derived variable.  Works on Monte Carlo results (with error bars from particle batches)
 and on deterministic reference results (same ``msd``… on ``time``; no error bars), with or
 without a ``start`` dimension.  Knows nothing of numba or the engine.
+
+Stage 6.  May import: core (``errors``) and, where a result needs it, the stages before it
+(flows, starts, engine, study, results); in practice it reads everything from the Dataset.
+Never reference, sweeps, presentation or the CLI.
 """
 
 from __future__ import annotations

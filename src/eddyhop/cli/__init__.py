@@ -2,6 +2,8 @@
 
 Nothing heavy is imported here, so ``eddyhop --help`` answers at once; commands import the
 Python API when they run.
+
+Stage 11, the last.  May import every stage; nothing imports it (but ``eddyhop.__main__``).
 """
 
 from __future__ import annotations

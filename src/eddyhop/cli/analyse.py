@@ -72,8 +72,8 @@ def command(result, out, quiet, no_reference, replace, **chosen):
     Example:  eddyhop analyse lattice.nc --out lattice.analysed.nc
     """
     from ..analysis import analyse
-    from ..io import open_result, require_kind, write_netcdf
-    from ..outputs import guard_output
+    from ..results.io import open_result, require_kind, write_netcdf
+    from ..results.outputs import guard_output
 
     target = out or _default_out(result)
     guard_output(target, kind="result", inputs=[result], replace=replace, default=out is None)
@@ -89,8 +89,8 @@ def command(result, out, quiet, no_reference, replace, **chosen):
 
 def print_analysis(ds, reference: bool = True) -> None:
     """Per start region: regimes, crossovers, D_eff and its verdicts
-    (:func:`eddyhop.presentation.analysis_lines`)."""
-    from ..presentation import analysis_lines
+    (:func:`eddyhop.presentation.text.analysis_lines`)."""
+    from ..presentation.text import analysis_lines
 
     for line in analysis_lines(ds, reference=reference):
         click.echo(line)

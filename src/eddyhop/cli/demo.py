@@ -29,14 +29,14 @@ def command(out, show_study, workers, progress, replace):
     file, save it, and edit it as a starting point for your own.
     """
     from ..api import run_study
-    from ..spec import parse_study_text
+    from ..study.spec import parse_study_text
     from .summary import print_summary
 
     text = demo_text()
     if show_study:
         click.echo(text)
         return
-    from ..outputs import guard_output
+    from ..results.outputs import guard_output
 
     target = out or "demo.nc"
     guard_output(target, kind="result", replace=replace, default=out is None)

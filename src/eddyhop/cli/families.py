@@ -8,8 +8,8 @@ import click
 @click.command("families")
 def command():
     """List flow families with their parameters, the integrators and start regions."""
+    from ..engine.integrators import SCHEME_CONDITIONS, SCHEME_ORDERS
     from ..flows import FAMILIES
-    from ..integrators import SCHEME_CONDITIONS, SCHEME_ORDERS
     from ..starts import KINDS
 
     click.echo("Flow families ([flow] family = ...):")

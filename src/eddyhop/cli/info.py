@@ -13,7 +13,7 @@ from .common import friendly_errors
 @friendly_errors
 def command(result, show_attrs):
     """Summarise a RESULT netCDF file: dimensions, variables with units, provenance."""
-    from ..io import open_result
+    from ..results.io import open_result
     from .summary import print_summary
 
     ds = open_result(result)
@@ -25,7 +25,7 @@ def command(result, show_attrs):
                                                                     "lag", "aging_time",
                                                                     "check_batch")]
         click.echo("  sweep over: " + ", ".join(f"{d} ({ds.sizes[d]})" for d in swept))
-        from ..presentation import scaling_lines
+        from ..presentation.text import scaling_lines
 
         for line in scaling_lines(ds):  # the same counts and verdicts merge and sweep print
             click.echo(line)

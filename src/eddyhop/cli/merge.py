@@ -30,9 +30,9 @@ def command(folder, out, no_analysis, fit_peclet, replace):
     boundary-layer and diffusive time scales) and stored in the file.
     Example:  eddyhop merge pan/ --out pan_sweep.nc
     """
-    from ..io import write_netcdf
-    from ..outputs import guard_output
-    from ..sweep import merge_sweep
+    from ..results.io import write_netcdf
+    from ..results.outputs import guard_output
+    from ..sweeps import merge_sweep
 
     if fit_peclet is not None and not fit_peclet[0] < fit_peclet[1]:
         refuse(f"--fit-peclet {fit_peclet[0]:g} {fit_peclet[1]:g} is not allowed: give LOW < "
@@ -52,8 +52,8 @@ def command(folder, out, no_analysis, fit_peclet, replace):
 
 def print_scaling(summary):
     """The scaling fits with their verdicts and undetermined counts
-    (:func:`eddyhop.presentation.scaling_lines`)."""
-    from ..presentation import scaling_lines
+    (:func:`eddyhop.presentation.text.scaling_lines`)."""
+    from ..presentation.text import scaling_lines
 
     for line in scaling_lines(summary):
         click.echo(line)

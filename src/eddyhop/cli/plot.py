@@ -52,10 +52,10 @@ def command(result, out_dir, names, formats, dpi, list_only, replace):
     Example:  eddyhop plot lattice.nc --figure msd --figure aging --format png
     """
     from ..errors import EddyhopError
-    from ..io import open_result, require_kind
-    from ..outputs import check_name, check_not_in_sweep, guard_output
-    from ..plots import available_figures, figures_for, save_figure
-    from ..plots.catalogue import FIGURES
+    from ..presentation.plots import available_figures, figures_for, save_figure
+    from ..presentation.plots.catalogue import FIGURES
+    from ..results.io import open_result, require_kind
+    from ..results.outputs import check_name, check_not_in_sweep, guard_output
 
     fmts = _formats(formats)
     if not DPI_RANGE[0] <= dpi <= DPI_RANGE[1]:
@@ -75,7 +75,7 @@ def command(result, out_dir, names, formats, dpi, list_only, replace):
     if not chosen:
         click.echo("no figure applies to this file (see --list)")
         return
-    from ..plots.catalogue import FIGURES as KNOWN
+    from ..presentation.plots.catalogue import FIGURES as KNOWN
 
     unknown = [name for name in chosen if name not in KNOWN]
     if unknown:

@@ -63,10 +63,10 @@ def command(study, out, modes, rtol, no_check, diffusivity_only, progress, repla
     overlaid.  Needs a steady flow without walls and kappa > 0.
     Example:  eddyhop reference studies/lattice_mixer.toml --out ref.nc
     """
-    from ..io import write_netcdf
-    from ..outputs import guard_output
     from ..reference.api import effective_diffusivity, moment_evolution
-    from ..spec import load_study
+    from ..results.io import write_netcdf
+    from ..results.outputs import guard_output
+    from ..study.spec import load_study
 
     spec = load_study(study)
     if diffusivity_only:

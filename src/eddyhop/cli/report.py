@@ -28,8 +28,8 @@ def command(result, out, names, no_analyse, replace):
     with confidence intervals, warnings (large dt, too-short run) and
     provenance.  Example:  eddyhop report lattice.nc --out lattice.html
     """
-    from ..outputs import guard_output
-    from ..report import write_report
+    from ..presentation.report import write_report
+    from ..results.outputs import guard_output
 
     target = out or "report.html"
     guard_output(target, kind="report", inputs=[result], replace=replace, default=out is None)

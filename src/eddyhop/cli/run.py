@@ -36,9 +36,9 @@ def command(study, out, workers, progress, replace, allow_long):
     --out or --replace.
     """
     from ..api import run_study
-    from ..cost import study_cost_checked
-    from ..outputs import guard_output
-    from ..spec import load_study
+    from ..results.outputs import guard_output
+    from ..study.cost import study_cost_checked
+    from ..study.spec import load_study
     from .summary import print_summary
 
     spec = load_study(study)

@@ -1,7 +1,7 @@
 """Short human-readable summaries of a result Dataset (shared by run, demo and info).
 
 The late log-log slope is the analysis's ``deff_alpha`` (one definition everywhere:
-:func:`eddyhop.presentation.late_slopes`), never a quick look of its own."""
+:func:`eddyhop.presentation.text.late_slopes`), never a quick look of its own."""
 
 from __future__ import annotations
 
@@ -24,7 +24,7 @@ def print_summary(ds, path=None):
     starts = [str(v) for v in np.atleast_1d(ds["start"].values)] if "start" in ds.coords else [""]
     multi = "start" in ds.dims
     t = ds["time"].values
-    from ..presentation import LATE_SLOPE_NAME, late_slopes
+    from ..presentation.text import LATE_SLOPE_NAME, late_slopes
 
     slopes = late_slopes(ds)
     verdicts = _step_verdicts(ds)

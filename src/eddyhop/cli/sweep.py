@@ -55,10 +55,10 @@ def command(study, out, backend, jobs, scheduler, workers, merged, no_merge, ret
     holding another study's sweep is refused.
     Example:  eddyhop sweep studies/sweep_pan_rolls.toml --out pan/ -j 2
     """
-    from ..cost import study_cost_checked
     from ..errors import EddyhopError
-    from ..spec import load_study
-    from ..sweep import run_sweep
+    from ..study.cost import study_cost_checked
+    from ..study.spec import load_study
+    from ..sweeps import run_sweep
     from ..sweeps.backends import scheduler_address
 
     if not (timeout > 0 and timeout < float("inf")):
@@ -97,7 +97,7 @@ def command(study, out, backend, jobs, scheduler, workers, merged, no_merge, ret
     for point_id, error in report.failed.items():
         click.secho(f"  failed {point_id}: {error}", fg="red", err=True)
     if report.merged is not None:
-        from ..io import open_result
+        from ..results.io import open_result
         from .merge import print_scaling
 
         click.echo(f"wrote {report.merged}")
@@ -117,9 +117,10 @@ def _print_plan(study):
 
 
 def _check_outputs(study, out, merged, no_merge, replace) -> None:
-    """The output rule (:mod:`eddyhop.outputs`) for the folder and the merged file, before any
-    point runs.  The folder's own merged file (OUT/sweep.nc) is replaced by a new merge."""
-    from ..outputs import check_name, check_not_in_sweep, guard_output
+    """The output rule (:mod:`eddyhop.results.outputs`) for the folder and the merged file,
+    before any point runs.  The folder's own merged file (OUT/sweep.nc) is replaced by a new
+    merge."""
+    from ..results.outputs import check_name, check_not_in_sweep, guard_output
     from ..sweeps.execute import MERGED_NAME
 
     folder = check_name(out, option="--out", want_dir=True)

@@ -23,11 +23,11 @@ def command(studies, allow_long):
     and CPU time, and refuses a study over the machine's available memory or
     over 24 h of CPU time (unless --allow-long).
     """
-    from ..cost import study_cost_checked
+    from ..engine.runner import step_size_warnings
+    from ..engine.schedule import build_schedule
     from ..errors import EddyhopError
-    from ..runner import step_size_warnings
-    from ..schedule import build_schedule
-    from ..spec import load_study
+    from ..study.cost import study_cost_checked
+    from ..study.spec import load_study
 
     failed = False
     for path in studies:
@@ -54,11 +54,9 @@ def command(studies, allow_long):
                    f"output times from {schedule.times[0]:g} to {schedule.times[-1]:g}")
         click.echo(f"  {cost.work_line()}")
         click.echo(f"  {cost.estimate_line()}")
-        if study.flow.model.name == "gridded":
-            from ..flows.gridded import field_attributes
-
-            report = field_attributes(study.flow.params)
-            click.echo("  gridded field (the file's, before flow.scale):")
+        report = study.flow.model.field_attributes(study.flow.params)  # data-driven families
+        if report:
+            click.echo(f"  {study.flow.model.field_report_heading}:")
             for name, value in report.items():
                 shown = value if isinstance(value, str) else f"{value:.6g}"
                 click.echo(f"    {name} = {shown}")

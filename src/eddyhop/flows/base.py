@@ -168,6 +168,23 @@ class FlowFamily:
         values_psi = evaluate_psi(self, values, gx.ravel(), gy.ravel(), 0.0)
         return float(values_psi.min()), float(values_psi.max())
 
+    # ---- family hooks -----------------------------------------------------------------------
+    @property
+    def has_walls(self) -> bool:
+        """Whether tracers reflect at solid walls: the family module declares ``confine``."""
+        from .registry import family_module, has_walls
+
+        return has_walls(family_module(self.code))
+
+    # heading of the field report ``eddyhop validate`` prints (see :meth:`field_attributes`)
+    field_report_heading = "flow field"
+
+    def field_attributes(self, values: dict) -> dict:
+        """How faithful the simulated field is to its source data, as flat ``field_*``
+        attributes (plain numbers or strings) for the Dataset, the report and ``validate``;
+        empty for families given by a formula."""
+        return {}
+
     def describe(self) -> str:
         lines = [f"{self.name}: {self.summary}"]
         for p in self.parameters:

@@ -202,7 +202,7 @@ def read_grid_field(path, stream_function=None, velocity=None, closure_tolerance
     """Read and check a periodic field file; see the module docstring for the rules."""
     import xarray as xr
 
-    from .gridded import _wavenumbers, stream_function_from_velocity
+    from ._spectral import _wavenumbers, stream_function_from_velocity
 
     where = f"{where} {str(path)!r}" if where else f"{str(path)!r}"
     try:

@@ -185,10 +185,6 @@ class ObstacleLattice(FlowFamily):
                 f"{gap_cells:.2g} grid steps at flow.resolution = {resolution}; the Stokes "
                 f"solver needs at least {MIN_GAP_CELLS:g}: raise flow.resolution to {needed} "
                 "or more, or lower flow.solid_fraction")
-        # obstacle start regions (uniform in the fluid, wall, wake) register themselves here,
-        # late, because the start-region registry imports the flow package
-        from .. import obstacle_starts  # noqa: F401
-
         return checked
 
     def pack(self, values):

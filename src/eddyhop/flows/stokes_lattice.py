@@ -51,7 +51,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..io import atomic_path
+from ..atomic import atomic_path
 
 PENALTY = 16.0  # (μ/η) h² / μ
 MASK_HALF_WIDTH = 0.5  # tanh half-width of the mask, in grid steps

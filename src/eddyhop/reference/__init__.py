@@ -7,6 +7,9 @@
   returned as a Dataset with the layout of a Monte Carlo run.
 
 Imports are lazy so that ``import eddyhop`` stays fast.
+
+Stage 7.  May import: core, flows, starts, engine (noise, schedule), study and results (the
+Dataset layout it shares with Monte Carlo runs); never the API, sweeps, presentation or the CLI.
 """
 
 from __future__ import annotations

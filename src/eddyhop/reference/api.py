@@ -35,7 +35,7 @@ def effective_diffusivity(source, params: dict | None = None, kappa: float | Non
                           modes: int | None = None, max_modes: int = DEFAULT_MAX_MODES):
     """Homogenized diffusivity tensor of a steady periodic flow, with a convergence estimate.
 
-    ``source`` is a validated :class:`~eddyhop.spec.Study` (its flow and noise are used), or a
+    ``source`` is a validated :class:`~eddyhop.study.spec.Study` (its flow and noise are used), or a
     flow family (object or name) with ``params`` (checked by the family) and either ``kappa``
     (length²/time) or ``peclet`` (Pe = U/(κk), the package's default convention).  Optional
     ``noise_model = "modulated"`` with ``modulation`` a: κ(x, y) = κ (1 + a sin kx sin ky).
@@ -46,15 +46,15 @@ def effective_diffusivity(source, params: dict | None = None, kappa: float | Non
     ``rtol``.  Time-dependent flows and flows with walls raise :class:`StudyError` naming the
     alternative (the Monte Carlo ensemble).
     """
-    from ..spec import Study
+    from ..study.spec import Study
 
     if isinstance(source, Study):
         if params is not None or kappa is not None or peclet is not None:
             raise TypeError("give either a Study or (family, params, kappa or peclet), not both")
         fields = study_fields(source, what="the homogenized-diffusivity solver")
     else:
+        from ..engine.noise import kappa_from_peclet
         from ..flows import get_family
-        from ..noise import kappa_from_peclet
 
         family = get_family(source) if isinstance(source, str) else source
         checked = family.validate(dict(params or {}))
@@ -87,7 +87,7 @@ def _check_times(times) -> np.ndarray:
 
 def study_times(study) -> np.ndarray:
     """The output times of the study's Monte Carlo run (identical coordinates for overlays)."""
-    from ..schedule import output_steps
+    from ..engine.schedule import output_steps
 
     run = study.run
     return output_steps(run.dt, run.t_end, run.n_times, run.spacing, run.t_first,

@@ -1,6 +1,6 @@
 """Reference curves → a labelled Dataset with the layout of a Monte Carlo run.
 
-Same variable names, dimensions, long names and units as ``eddyhop.dataset`` for what both
+Same variable names, dimensions, long names and units as ``eddyhop.results.dataset`` for what both
 produce (``msd, msd_x, msd_y, msd_xy, mean_dx, mean_dy, var_x, var_y`` on ``time``; a ``start``
 dimension with several start regions, a scalar ``start`` coordinate with one), so analysis and
 plots accept either and a user can overlay them.  There is no sampling error, hence no ``*_se``
@@ -12,8 +12,8 @@ from __future__ import annotations
 import numpy as np
 import xarray as xr
 
-from ..dataset import COORD_ATTRS, VARIABLE_ATTRS
-from ..io import provenance_attrs, units_for
+from ..results.dataset import COORD_ATTRS, VARIABLE_ATTRS
+from ..results.io import provenance_attrs, units_for
 
 EXTRA_ATTRS = {
     "msd_resolution_error": (

@@ -2,15 +2,15 @@
 
 The velocity is read off an FFT of samples of the package's own compiled velocity
 (``eddyhop.flows.compiled.evaluate_velocity``), the diffusivity off samples of
-``eddyhop.noise.diffusivity``; so the reference solvers see exactly the fields the Monte Carlo
-kernel integrates.  Sampling doubles the grid until the spectrum has no content in its outer
+``eddyhop.engine.noise.diffusivity``; so the reference solvers see exactly the fields the Monte
+Carlo kernel integrates.  Sampling doubles the grid until the spectrum has no content in its outer
 quarter (the field is a trigonometric polynomial, represented exactly); a field that never
 passes this test is refused rather than silently truncated.
 
 Which flows qualify: steady (time-independent) flows without solid walls whose velocity is a
 finite Fourier series — every family except the time-periodic and obstacle ones, and the
 gridded family only with ``interpolation = "spectral"``.  Conventions: ``u = ∂ψ/∂y``,
-``v = −∂ψ/∂x``; Itô noise ``sqrt(2κ) dW`` with drift ``∇κ`` (see ``eddyhop.noise``).
+``v = −∂ψ/∂x``; Itô noise ``sqrt(2κ) dW`` with drift ``∇κ`` (see ``eddyhop.engine.noise``).
 """
 
 from __future__ import annotations
@@ -23,8 +23,6 @@ import numpy as np
 from ..errors import StudyError
 from .grids import Modes, add_modes, derivative_modes, fft_modes, max_mode
 
-# Families whose tracers reflect off solid walls: the whole-cell Fourier problem does not apply.
-WALLED_FAMILIES = ("obstacles",)
 FIRST_GRID = 32
 LARGEST_GRID = 512
 BAND_LIMIT = 1e-11
@@ -103,15 +101,15 @@ def cell_fields(family, params: dict, kappa: float, noise_model: str = "constant
 
     ``what`` names the calling solver in error messages.
     """
+    from ..engine.noise import MODEL_CODES, diffusivity
     from ..flows.compiled import evaluate_velocity
-    from ..noise import MODEL_CODES, diffusivity
 
     if not family.steady:
         raise StudyError(
             f"flow family {family.name!r} is time-dependent; {what} need a steady flow. "
             "Use the Monte Carlo ensemble instead (eddyhop run / eddyhop.simulate): its "
             "long-time MSD slope gives the effective diffusivity (eddyhop analyse)")
-    if family.name in WALLED_FAMILIES:
+    if family.has_walls:  # tracers reflect at walls: the whole-cell Fourier problem does not apply
         raise StudyError(
             f"flow family {family.name!r} has solid walls; {what} solve on the whole period "
             "cell without walls. Use the Monte Carlo ensemble (eddyhop run / eddyhop.simulate)")

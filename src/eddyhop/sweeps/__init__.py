@@ -1,7 +1,38 @@
-"""Parameter sweeps: ``[sweep]`` schema, resumable execution, merging and scaling summaries.
+"""Stage 9 — parameter sweeps: resumable execution, merging and scaling summaries.
 
-One module per responsibility: ``axes`` (schema → points), ``manifest`` (the sweep folder),
-``backends`` (serial, local processes, Dask), ``execute`` (the resumable loop), ``merge``
-(points → one Dataset) and ``scaling`` (exponents across a Péclet sweep).  The public names are
-re-exported by :mod:`eddyhop.sweep`.
+::
+
+    study = eddyhop.load_study("studies/sweep_pan_rolls.toml")   # a study with a [sweep] table
+    report = run_sweep(study, "pan_sweep/", backend="processes")  # resumable; writes pan_sweep/
+    merged = merge_sweep("pan_sweep/")                            # swept parameters as dims
+    summary = scaling_summary(merged)                             # exponents vs Pe with CIs
+
+One module per responsibility: ``manifest`` (the sweep folder), ``backends`` (serial, local
+processes, Dask), ``execute`` (the resumable loop), ``merge`` (points → one Dataset) and
+``scaling`` (exponents across a Péclet sweep).  The ``[sweep]`` table itself (axes → points) is
+part of the study schema, ``eddyhop.study.sweep_table``; its names are re-exported here.
+
+May import: every stage below it (core, flows, starts, engine, study, results, analysis,
+reference, ``eddyhop.api``); never presentation or the CLI.
 """
+
+from __future__ import annotations
+
+from ..study.sweep_table import Axis, SweepPoint, SweepSpec, sweepable
+from ..study.sweep_table import parse_sweep as _parse_sweep
+from .execute import SweepReport, compute_point, run_sweep, warm_kernels
+from .manifest import Manifest
+from .merge import merge_sweep
+from .scaling import PowerLaw, fit_power_law, scaling_summary, time_scales
+
+
+def parse_sweep(table: dict, document: dict, source_path: str = "", *, parse_study=None):
+    """:func:`eddyhop.study.sweep_table.parse_sweep` with the package's study parser."""
+    if parse_study is None:
+        from ..study.spec import parse_study
+    return _parse_sweep(table, document, source_path, parse_study=parse_study)
+
+
+__all__ = ["Axis", "Manifest", "PowerLaw", "SweepPoint", "SweepReport", "SweepSpec",
+           "compute_point", "fit_power_law", "merge_sweep", "parse_sweep", "run_sweep",
+           "scaling_summary", "sweepable", "time_scales", "warm_kernels"]

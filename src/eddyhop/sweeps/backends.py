@@ -71,10 +71,10 @@ def _preload(parent: int) -> None:
     Neither compiles nor reads the kernel cache (which the parent may still be filling)."""
     _exit_with_parent(parent)
     import eddyhop.api
-    import eddyhop.dataset
-    import eddyhop.runner
-    import eddyhop.spec
-    import eddyhop.sweeps.execute  # noqa: F401
+    import eddyhop.engine.runner
+    import eddyhop.results.dataset
+    import eddyhop.study.spec
+    import eddyhop.sweeps  # noqa: F401  (its __init__ loads the execute module)
 
     try:
         from numba.core.registry import cpu_target

@@ -54,8 +54,8 @@ def compute_point(payload: dict) -> dict:
     started = time.perf_counter()
     try:
         from ..api import simulate
-        from ..runner import StepSizeWarning
-        from ..spec import parse_study
+        from ..engine.runner import StepSizeWarning
+        from ..study.spec import parse_study
 
         study = parse_study(payload["document"], source_text=payload["source_text"],
                             source_path=payload["source_path"])
@@ -84,8 +84,8 @@ def warm_kernels(document: dict, *, once: bool = False) -> float:
     cache, so a sweep started again (resumed, rerun) dispatches without the warm-up."""
     from .._jit import kernel_cache_dir
     from ..api import simulate
-    from ..runner import StepBiasWarning, StepSizeWarning
-    from ..spec import parse_study
+    from ..engine.runner import StepBiasWarning, StepSizeWarning
+    from ..study.spec import parse_study
 
     started = time.perf_counter()
     tiny = copy.deepcopy(document)
@@ -164,8 +164,8 @@ def run_sweep(study, out, *, backend: str = "auto", jobs: int | None = None,
     no merge.  ``timeout`` (s) bounds the wait for a Dask scheduler and its first worker (one
     deadline for all of it).  None of these options changes any number.
     """
-    from ..runner import step_size_warnings
-    from ..spec import Study, load_study
+    from ..engine.runner import step_size_warnings
+    from ..study.spec import Study, load_study
     from .backends import check_count, make_pool
 
     started = time.perf_counter()
@@ -215,7 +215,7 @@ def run_sweep(study, out, *, backend: str = "auto", jobs: int | None = None,
             finally:
                 pool.close()
         if merge_to is not None and manifest.counts()["done"]:
-            from ..io import write_netcdf
+            from ..results.io import write_netcdf
             from .merge import merge_sweep
 
             target = directory / MERGED_NAME if merge_to == "default" else Path(merge_to)
@@ -237,7 +237,7 @@ def progress_text(counts: dict) -> str:
 def _write_point(ds, point, manifest, seconds: float, messages: list) -> Path:
     """Write a point's file so that no kill can lose or double it: complete file under a
     temporary name → its checksum in the manifest → rename → marked done (see ``manifest``)."""
-    from ..io import write_netcdf
+    from ..results.io import write_netcdf
 
     ds.attrs.update({
         "sweep_point": point.id,

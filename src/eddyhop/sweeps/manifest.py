@@ -33,8 +33,8 @@ import os
 from pathlib import Path
 
 from ..errors import EddyhopError
-from ..io import atomic_write_text
-from ..outputs import LOCK_NAME, MANIFEST_NAME, POINTS_DIR
+from ..results.io import atomic_write_text
+from ..results.outputs import LOCK_NAME, MANIFEST_NAME, POINTS_DIR
 
 FORMAT = "eddyhop sweep manifest"
 FORMAT_VERSION = 2  # 2: entries carry ``staged`` (checksum recorded before the final rename)

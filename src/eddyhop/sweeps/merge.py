@@ -62,7 +62,7 @@ def _blank(template):
 
 
 def _load_point(manifest, entry, analyse, verify):
-    from ..io import open_result
+    from ..results.io import open_result
 
     path = manifest.directory / entry["file"]
     if not path.exists():
@@ -139,7 +139,7 @@ def merge_sweep(directory, *, analyse: bool = True, verify: bool = True, scaling
     import xarray as xr
 
     from .. import __version__
-    from ..io import CONVENTIONS, units_for
+    from ..results.io import CONVENTIONS, units_for
 
     manifest = Manifest.read(directory)
     data = manifest.data
@@ -200,7 +200,7 @@ def merge_sweep(directory, *, analyse: bool = True, verify: bool = True, scaling
         if axis["units"] is not None:
             attrs["units"] = units(axis["units"])
         if axis["address"] == "noise.peclet":
-            from ..noise import PECLET_DEFINITIONS
+            from ..engine.noise import PECLET_DEFINITIONS
 
             convention = data.get("peclet_convention", "wavenumber")
             attrs["definition"] = PECLET_DEFINITIONS[convention]

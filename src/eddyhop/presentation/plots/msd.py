@@ -1,0 +1,237 @@
+"""MSD figures: log-log MSD with regimes and reference slopes, start regions compared, α(t).
+
+Conventions: ``msd = <|X(t) − X(0)|²>`` of the unwrapped displacement (``eddyhop.results.dataset``);
+the apparent diffusivity ``(var_x + var_y)/(4 t)`` removes any mean drift, and tends to the
+isotropic part of D_eff at long times (for a 2-D diffusion ⟨|ΔX|²⟩ = 4 D t; common practice).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from . import _regimes
+from ._style import (
+    GUIDE,
+    caption,
+    label,
+    new_figure,
+    positive,
+    provenance_line,
+    require,
+    require_finite,
+    select_start,
+    start_labels,
+    start_name,
+    styles,
+    title,
+)
+
+RUN_HINT = "make it with `eddyhop run STUDY.toml` (or eddyhop.simulate)"
+
+
+def _regime_note(ax, ds, start, where="lower right", starts=None):
+    """Shade the regimes of ``start`` (or, given several ``starts``, draw each start's own
+    regimes as a strip); a second legend names the classes (and the start)."""
+    if starts is not None and len(starts) > 1:
+        colours = [colour for _, (colour, _) in zip(starts, styles())]
+        bands = _regimes.strips(ax, ds, starts, colours)
+        start = None
+    else:
+        bands = _regimes.shade(ax, ds, start)
+    if bands:
+        handles = [b for b in bands if b.get_label() and not b.get_label().startswith("_")]
+        handles += [line for line in ax.get_lines() if line.get_gid() == "crossover"][:1]
+        if "start" not in ds.dims:
+            heading = "regimes"
+        elif start is None:
+            heading = "regimes (strip per start)"
+        else:
+            heading = f"regimes (start {start_name(ds, start)})"
+        placement = {"loc": where}
+        if start is None and starts is not None:  # keep the strips visible
+            placement["bbox_to_anchor"] = (1.0, _regimes.strips_top(len(starts)))
+        legend = ax.legend(handles=handles, fontsize=7, title=heading, title_fontsize=7,
+                           framealpha=0.9, **placement)
+        ax.add_artist(legend)
+    return bands
+
+
+def _guide(ax, t, anchor_t, anchor_y, exponent, text, left=True):
+    """Dashed reference power law y ∝ t^exponent through (anchor_t, anchor_y)."""
+    y = anchor_y * (t / anchor_t) ** exponent
+    (line,) = ax.plot(t, y, color=GUIDE, lw=1.0, ls=(0, (4, 3)), zorder=1)
+    line.set_gid(f"guide_slope_{exponent:g}")
+    middle = len(t) // 2
+    ax.annotate(text, (t[middle], y[middle]), textcoords="offset points",
+                xytext=(-6, 0) if left else (0, -12), fontsize=8, color=GUIDE,
+                ha="right" if left else "center")
+    return line
+
+
+def msd_figure(ds, *, variable: str = "msd", start=None, guides: bool = True,
+               regimes: bool = True, band: bool = True):
+    """MSD against time on log-log axes, one curve per start region.
+
+    Shading ±2 standard errors (when ``<variable>_se`` exists), the analysed regime intervals
+    (when ``eddyhop analyse`` has run) and dashed reference slopes t² (ballistic) and t¹
+    (diffusive) anchored at the first and last points.  ``start`` restricts to one region.
+    """
+    what = f"the {variable} figure"
+    require(ds, [variable, "time"], what, RUN_HINT)
+    figure, ax = new_figure()
+    t = ds["time"].values
+    starts = [start] if start is not None else start_labels(ds)
+    drawn = []
+    handles = []
+    for label_, (colour, style) in zip(starts, styles()):
+        part = select_start(ds, label_)
+        y = require_finite(part[variable].values, variable, what)
+        good = positive(t, y)
+        name = start_name(ds, label_)
+        handles += ax.plot(t[good], y[good], color=colour, ls=style, lw=1.8, label=name,
+                           gid=f"data_{name}")
+        se_name = f"{variable}_se"
+        if band and se_name in part:
+            se = np.nan_to_num(part[se_name].values)
+            low = np.maximum(y - 2 * se, y * 1e-3)
+            ax.fill_between(t[good], low[good], (y + 2 * se)[good], color=colour, alpha=0.18,
+                            lw=0)
+        drawn.append((t[good], y[good]))
+    if regimes:
+        _regime_note(ax, ds, start if start is not None else starts[0], starts=starts)
+    if guides and drawn:
+        tt, yy = drawn[0]
+        early = tt[: max(3, len(tt) // 4)]
+        late = tt[-max(3, len(tt) // 4):]
+        _guide(ax, early, tt[0], yy[0], 2.0, "∝ t²  ballistic", left=True)
+        # drawn a factor 3 below the data so that it never hides the curve
+        _guide(ax, late, tt[-1], yy[-1] / 3.0, 1.0, "∝ t  diffusive", left=False)
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    ax.set_xlabel(label(ds["time"]))
+    ax.set_ylabel(label(ds[variable]))
+    ax.grid(True, which="major", alpha=0.3)
+    ax.legend(handles=handles, title="start region", fontsize=8, title_fontsize=8,
+              loc="upper left")
+    ax.set_title(title(ds.attrs.get("title", "")), fontsize=10)
+    caption(figure, provenance_line(ds))
+    return figure
+
+
+def starts_figure(ds):
+    """Start regions compared: MSD (top) and apparent diffusivity over κ (bottom).
+
+    The lower panel shows ``(var_x + var_y) / (4 κ t)``: 1 for pure molecular diffusion, and
+    the ratio D_eff/κ once the run reaches its long-time effective-diffusion regime.
+    """
+    what = "the start-region comparison"
+    require(ds, ["msd", "var_x", "var_y", "time"], what, RUN_HINT)
+    kappa = float(ds.attrs.get("kappa", np.nan))
+    figure, (top, bottom) = new_figure(2, 1, height=6.4, sharex=True)
+    t = ds["time"].values
+    for label_, (colour, style) in zip(start_labels(ds), styles()):
+        part = select_start(ds, label_)
+        name = start_name(ds, label_)
+        y = require_finite(part["msd"].values, "msd", what)
+        good = positive(t, y)
+        top.plot(t[good], y[good], color=colour, ls=style, lw=1.8, label=name)
+        spread = part["var_x"].values + part["var_y"].values
+        apparent = spread / (4.0 * t)
+        if kappa > 0:
+            apparent = apparent / kappa
+        ok = positive(t, apparent)
+        bottom.plot(t[ok], apparent[ok], color=colour, ls=style, lw=1.8, label=name)
+    for ax in (top, bottom):
+        ax.set_xscale("log")
+        ax.set_yscale("log")
+        ax.grid(True, which="major", alpha=0.3)
+    from matplotlib.ticker import LogLocator, NullFormatter, ScalarFormatter
+
+    bottom.yaxis.set_major_locator(LogLocator(base=10.0, subs=(1.0, 2.0, 5.0)))
+    bottom.yaxis.set_major_formatter(ScalarFormatter())
+    bottom.yaxis.set_minor_formatter(NullFormatter())
+    if kappa > 0:
+        bottom.axhline(1.0, color=GUIDE, lw=1.0, ls=(0, (4, 3)))
+        bottom.annotate("molecular diffusion alone", (t[-1], 1.0), textcoords="offset points",
+                        xytext=(-2, 4), fontsize=8, color=GUIDE, ha="right")
+        bottom.set_ylabel("apparent diffusivity over κ\n(var_x + var_y)/(4 κ t) (dimensionless)")
+    else:
+        bottom.set_ylabel(f"apparent diffusivity (var_x + var_y)/(4 t)"
+                          f"{_units_over_time(ds)}")
+    top.set_ylabel(label(ds["msd"], width=34))
+    bottom.set_xlabel(label(ds["time"]))
+    top.legend(title="start region", fontsize=8, title_fontsize=8, loc="upper left")
+    top.set_title(title(f"Start regions compared — {ds.attrs.get('title', '')}"), fontsize=10)
+    caption(figure, provenance_line(ds))
+    return figure
+
+
+def _units_over_time(ds):
+    length = ds["msd"].attrs.get("units", "1")
+    time = ds["time"].attrs.get("units", "1")
+    if length == "1" and time == "1":
+        return " (dimensionless)"
+    return f" [{length} / {time}]"
+
+
+EXPONENT_NAMES = ("alpha", "local_exponent")
+
+
+def exponent_variable(ds) -> str:
+    """Name of the analysed local-exponent variable α(t) = d log MSD / d log t."""
+    for name in EXPONENT_NAMES:
+        if name in ds.variables:
+            return name
+    raise _missing_analysis(ds, "the local-exponent figure", "alpha (the local exponent)")
+
+
+def _missing_analysis(ds, what, name):
+    from ...errors import InputDataError
+
+    return InputDataError(f"{what} needs {name}, which this Dataset lacks; run "
+                          f"`eddyhop analyse RESULT.nc` (or eddyhop.analysis.analyse) first")
+
+
+def exponent_figure(ds, *, start=None, regimes: bool = True):
+    """Local exponent α(t) = d log MSD / d log t on a log time axis, one curve per start.
+
+    Horizontal guides at α = 2 (ballistic), 1 (diffusive) and ½ (the intermediate regime of
+    tracer spreading along the separatrix network of cellular flows; Young, Pumir & Pomeau 1989,
+    "Anomalous diffusion of tracer in convection rolls", Phys. Fluids A 1, 462 — recalled from
+    memory).  The band is ±2 jackknife standard errors (``alpha_se``) when present.
+    """
+    what = "the local-exponent figure"
+    name = exponent_variable(ds)
+    time_name = ds[name].dims[-1]
+    figure, ax = new_figure()
+    t = ds[time_name].values
+    starts = [start] if start is not None else start_labels(ds)
+    handles = []
+    for label_, (colour, style) in zip(starts, styles()):
+        part = select_start(ds, label_)
+        alpha = require_finite(part[name].values, name, what)
+        good = np.isfinite(alpha) & (t > 0)
+        handles += ax.plot(t[good], alpha[good], color=colour, ls=style, lw=1.8,
+                           label=start_name(ds, label_), gid=f"data_{start_name(ds, label_)}")
+        se_name = f"{name}_se"
+        if se_name in part:
+            se = np.nan_to_num(part[se_name].values)
+            ax.fill_between(t[good], (alpha - 2 * se)[good], (alpha + 2 * se)[good],
+                            color=colour, alpha=0.18, lw=0)
+    for level, text in ((2.0, "ballistic"), (1.0, "diffusive"), (0.5, "α = ½")):
+        ax.axhline(level, color=GUIDE, lw=0.9, ls=(0, (4, 3)), zorder=1)
+        ax.annotate(text, (t[t > 0][0], level), textcoords="offset points", xytext=(2, 3),
+                    fontsize=8, color=GUIDE)
+    if regimes:
+        _regime_note(ax, ds, start if start is not None else starts[0], starts=starts)
+    ax.set_xscale("log")
+    top = max([2.4] + [float(np.nanmax(line.get_ydata())) + 0.15 for line in handles])
+    ax.set_ylim(-0.1, min(top, 3.5))
+    ax.set_xlabel(label(ds[time_name]))
+    ax.set_ylabel(label(ds[name], fallback="local exponent d log MSD / d log t"))
+    ax.grid(True, which="major", alpha=0.3)
+    ax.legend(handles=handles, title="start region", fontsize=8, title_fontsize=8,
+              loc="upper right")
+    ax.set_title(title(f"Local exponent — {ds.attrs.get('title', '')}"), fontsize=10)
+    caption(figure, provenance_line(ds))
+    return figure
