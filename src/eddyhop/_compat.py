@@ -52,10 +52,15 @@ class _Alias(importlib.abc.Loader):
         self.target = target
 
     def create_module(self, spec):
-        return importlib.import_module(self.target)
+        module = importlib.import_module(self.target)
+        self.own_spec = module.__spec__
+        return module
 
     def exec_module(self, module):
-        pass  # the target module is already executed
+        # the target module is already executed; the import system has just set its __spec__
+        # to the old name's: restore its own, or its relative imports would warn that
+        # __package__ != __spec__.parent
+        module.__spec__ = self.own_spec
 
 
 class _MovedModuleFinder(importlib.abc.MetaPathFinder):

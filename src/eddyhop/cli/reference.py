@@ -90,9 +90,9 @@ def command(study, out, modes, rtol, no_check, diffusivity_only, progress, repla
 
 def _announce_cost(spec, starts, modes, rtol, allow_long):
     """Print the solve's work and estimate; refuse it over the memory or time limit."""
-    from ..cost import check_resources
     from ..reference.budget import reference_cost
     from ..reference.fields import study_fields
+    from ..study.cost import check_resources
 
     cost = reference_cost(study_fields(spec), starts, modes=modes, rtol=rtol)
     check_resources(cost.memory_bytes, cost.cpu_seconds, what=cost.work_line(),

@@ -25,8 +25,8 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from ..cost import format_bytes, format_seconds
 from ..errors import StudyError
+from ..study.cost import format_bytes, format_seconds
 from .cell_problem import DEFAULT_MAX_MODES, GROWTH, suggested_modes
 
 # time ≈ T·(U/U₀)^p, memory ≈ B + b·U (fits through the table above)
