@@ -293,3 +293,18 @@ def test_trajectories_out_needs_tracked_particles(tmp_path):
     assert result.exit_code == 2
     assert "--trajectories-out needs tracked particles" in result.output
     assert not (tmp_path / "r.nc").exists()
+
+
+def test_shipped_demo_set_reads_the_same_from_csv_and_netcdf():
+    """The invented demo set in studies/tracks (made by its script) in both formats."""
+    from pathlib import Path
+
+    folder = Path(__file__).resolve().parent.parent / "studies" / "tracks"
+    csv = track_statistics(open_tracks(folder / "vortex_tank_tracks.csv"), length_unit="mm",
+                           time_unit="s")
+    cf = track_statistics(open_tracks(folder / "vortex_tank_tracks.nc"))
+    assert int(csv.n_particles) == int(cf.n_particles) == 60
+    for name in ("msd", "tamsd", "ergodicity_breaking", "track_velocity_autocorrelation"):
+        np.testing.assert_allclose(csv[name].values, cf[name].values, rtol=1e-12,
+                                   equal_nan=True, err_msg=name)
+    assert cf["msd"].attrs["units"] == "mm2" and cf["time"].attrs["units"] == "s"

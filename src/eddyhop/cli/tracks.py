@@ -101,7 +101,41 @@ def command(track_file, out, file_format, period, orders, aging_times, pdf_times
     write_netcdf(ds, target)
     click.echo(f"wrote {target}: {ds.attrs['tracks_analysed']} of {ds.attrs['tracks_in_file']} "
                f"tracks ({source.layout}); errors: {ds.attrs['error_method']}")
+    if ds.attrs.get("track_notes"):
+        for note in str(ds.attrs["track_notes"]).split(" | "):
+            click.echo(f"note: {note}")
     if not quiet:
         from .analyse import print_analysis
 
         print_analysis(ds, reference=False)
+        for line in track_lines(ds):
+            click.echo(line)
+
+
+def track_lines(ds) -> list[str]:
+    """Time averages and velocity autocorrelation of a measured-track result, in words."""
+    import numpy as np
+
+    def pm(value, se):
+        return f"{value:.3g} ± {se:.2g}" if np.isfinite(se) else f"{value:.3g}"
+
+    unit = str(ds["time"].attrs.get("units", "1"))
+    unit = "" if unit == "1" else f" {unit}"
+    lines = []
+    if "ergodicity_breaking" in ds:
+        lags = ds["tamsd_lag"].values
+        total = float(ds["tamsd_duration"])
+        picks = sorted({0, int(np.argmin(np.abs(lags - total / 10)))})
+        eb, se = ds["ergodicity_breaking"].values, ds["ergodicity_breaking_se"].values
+        text = ", ".join(f"EB({lags[i]:.4g}{unit}) = {pm(eb[i], se[i])}" for i in picks)
+        lines.append(f"  time averages (T = {total:.4g}{unit}): {text} "
+                     "(EB -> 0 as lag/T -> 0 when ergodic)")
+    if "track_velocity_autocorrelation_normalised" in ds:
+        c = ds["track_velocity_autocorrelation_normalised"].values
+        lag = ds["velocity_lag"].values
+        crossing = np.flatnonzero(c <= 0)
+        where = (f"first crosses 0 at lag {lag[crossing[0]]:.4g}{unit}" if crossing.size
+                 else f"stays positive up to lag {lag[-1]:.4g}{unit}")
+        how = ds["track_velocity_autocorrelation"].attrs.get("velocity_source", "")
+        lines.append(f"  velocity autocorrelation ({how}): {where}")
+    return lines

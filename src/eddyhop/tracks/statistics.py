@@ -57,7 +57,7 @@ DEFAULT_VELOCITY_LAGS = 32
 ORIGINS = ("track_start", "clock")
 ERROR_METHOD = ("delete-one-group jackknife over groups of whole tracks (tracks dealt "
                 "round-robin into the batches; Efron & Tibshirani 1993, ch. 11)")
-_DENSE_LIMIT = 4_000_000  # samples per dense block of tracks
+_DENSE_LIMIT = 1_000_000  # samples per dense block of tracks (bounds the working memory)
 
 
 class TrackOptionError(InputDataError):
@@ -531,7 +531,12 @@ def _assemble(s) -> xr.Dataset:
             "group mean of |X(t)-X(0)|^q", units("Lq"))
         coords["order"] = _var(("order",), orders, "order q of the absolute moment", "1")
     a = s["aged"].sums
-    if a and np.any(np.all(a["count"] > 0, axis=0)):
+    notes = []
+    if not (a and np.any(np.all(a["count"] > 0, axis=0))):
+        notes.append("aged MSD not computed: at no aging time (clock time since the clock "
+                     "origin) do tracks of every error group reach a lag; give aging_times "
+                     "where tracks are present, or fewer batches")
+    else:
         dims = ("aging_time", "lag")
         n_a = a["count"].sum(axis=0)
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -648,6 +653,8 @@ def _assemble(s) -> xr.Dataset:
     ds = ds.assign_coords(start=s["label"] or _stem(s["source"].path))
     ds["start"].attrs["long_name"] = "label of the start region (here: the track set)"
     ds.attrs.update(_attrs(s))
+    if notes:
+        ds.attrs["track_notes"] = " | ".join(notes)
     return ds
 
 
