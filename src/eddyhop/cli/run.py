@@ -68,11 +68,11 @@ def check_trajectories_out(spec, path, target, study, replace) -> None:
     from ..errors import StudyError
     from ..outputs import guard_output
 
+    guard_output(path, kind="trajectories", inputs=[*study_inputs(spec, study), target],
+                 replace=replace, option="--trajectories-out")
     if spec.run.tracked <= 0:
         raise StudyError("--trajectories-out needs tracked particles: set [run] tracked = N "
                          "(N > 0) in the study")
-    guard_output(path, kind="trajectories", inputs=[*study_inputs(spec, study), target],
-                 replace=replace, option="--trajectories-out")
 
 
 def study_inputs(spec, path) -> list:
