@@ -308,3 +308,90 @@ def test_shipped_demo_set_reads_the_same_from_csv_and_netcdf():
         np.testing.assert_allclose(csv[name].values, cf[name].values, rtol=1e-12,
                                    equal_nan=True, err_msg=name)
     assert cf["msd"].attrs["units"] == "mm2" and cf["time"].attrs["units"] == "s"
+
+
+def test_frame_major_csv_rows_give_the_same_statistics(tmp_path, rows, reference):
+    """Rows ordered by time across tracks (as tracking software writes frames)."""
+    ids, t, x, y = rows
+    order = np.argsort(t, kind="stable")
+    path = tmp_path / "frames.csv"
+    write_csv(path, np.asarray(ids)[order], t[order], x[order], y[order])
+    ds = track_statistics(open_tracks(path))
+    # tracks come in order of first appearance, so the error groups differ: compare the
+    # pooled curves at the common times and each track's own time average by its id
+    common = np.intersect1d(ds["time"].values, reference["time"].values)
+    np.testing.assert_allclose(ds["msd"].sel(time=common).values,
+                               reference["msd"].sel(time=common).values, rtol=1e-12)
+    mine = ds["tamsd"].assign_coords(particle=ds["track_id"].values)
+    theirs = reference["tamsd"].assign_coords(particle=reference["track_id"].values)
+    np.testing.assert_allclose(mine.sel(particle=theirs.particle.values).values,
+                               theirs.values, rtol=1e-12, equal_nan=True)
+    np.testing.assert_allclose(ds["ergodicity_breaking"].values,
+                               reference["ergodicity_breaking"].values, rtol=1e-9)
+
+
+def test_given_velocities_are_used_for_the_autocorrelation():
+    """Tracks moving at constant, given velocities: <u(t)·u(t+m)> = |u|² at every lag."""
+    ids, t, x, y, u, v = [], [], [], [], [], []
+    for i in range(10):
+        speed = 0.5 + 0.1 * i
+        times = np.arange(50) * 0.2
+        ids += [str(i)] * 50
+        t += list(times)
+        x += list(speed * times)
+        y += list(np.zeros(50))
+        u += [speed] * 50
+        v += [0.0] * 50
+    ds = track_statistics(tracks_from_arrays(ids, t, x, y, u, v), batches=5)
+    c = ds["track_velocity_autocorrelation"]
+    assert c.attrs["velocity_source"] == "given (file u, v)"
+    expected = np.mean([(0.5 + 0.1 * i) ** 2 for i in range(10)])
+    np.testing.assert_allclose(c.values, expected, rtol=1e-12)
+    np.testing.assert_allclose(ds["track_velocity_autocorrelation_normalised"].values, 1.0)
+
+
+def test_common_release_gives_the_same_clock_and_track_start_curves():
+    ids, t, x, y = brownian_rows(seed=4, tracks=50, gaps=0.0)
+    shift = {}
+    for i, ident in enumerate(ids):  # move every track to start at t = 0
+        shift.setdefault(ident, t[i])
+    t = t - np.array([shift[i] for i in ids])
+    source = tracks_from_arrays(ids, t, x, y)
+    start = track_statistics(source)
+    clock = track_statistics(source, time_origin="clock")
+    for name in ("msd", "mean_dx", "batch_msd_y"):
+        np.testing.assert_allclose(clock[name].values, start[name].values, rtol=1e-12)
+    assert "aged_msd" in clock  # every track is present at the release (t_a = 0)
+
+
+@pytest.mark.slow  # about 10 s
+def test_memory_does_not_grow_with_tracks_times_samples(monkeypatch):
+    """Peak traced memory for 4× the tracks stays far below 4× (and below one dense
+    (tracks × samples) copy of the positions): the statistics stream over the tracks."""
+    import tracemalloc
+
+    from eddyhop.tracks import Track, TrackSource
+    from eddyhop.tracks import statistics as module
+
+    monkeypatch.setattr(module, "_DENSE_LIMIT", 50_000)
+    samples = 400
+
+    def source(tracks):
+        def chunks(size):
+            for start in range(0, tracks, size):
+                rng = np.random.default_rng(start)
+                yield [Track(str(i), np.arange(samples, dtype=float),
+                             np.cumsum(rng.standard_normal(samples)),
+                             np.cumsum(rng.standard_normal(samples)), np.arange(samples))
+                       for i in range(start, min(start + size, tracks))]
+        return TrackSource("<gen>", "arrays", None, None, False, chunks)
+
+    peaks = []
+    for tracks in (1000, 4000):
+        tracemalloc.start()
+        track_statistics(source(tracks), chunk=200, velocity_lags=4)
+        peaks.append(tracemalloc.get_traced_memory()[1])
+        tracemalloc.stop()
+    dense = 4000 * samples * 2 * 8
+    assert peaks[1] < 0.5 * dense, (peaks, dense)
+    assert peaks[1] < 1.6 * peaks[0], peaks
