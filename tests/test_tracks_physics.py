@@ -164,3 +164,55 @@ def test_ctrw_weak_ergodicity_breaking_matches_the_mittag_leffler_value():
     tamsd = ds["tamsd_mean"].values[small]
     slope = np.polyfit(np.log(lags[small]), np.log(tamsd), 1)[0]
     assert abs(slope - 1.0) < 0.1, slope
+
+
+def brownian_drift_source(tracks: int, samples: int, drift: float, seed: int) -> TrackSource:
+    """2-D Brownian motion with D = 1 and a mean drift ``drift`` along x, sampled every 0.1
+    (steps N(drift·0.1, 2·D·0.1)); unequal lengths (samples/2 … samples)."""
+    def chunks(size):
+        rng = np.random.default_rng(seed)
+        out = []
+        for i in range(tracks):
+            n = int(rng.integers(samples // 2, samples + 1))
+            t = np.arange(n) * 0.1
+            steps = rng.normal(0.0, math.sqrt(0.2), (2, n))
+            steps[:, 0] = 0.0
+            out.append(Track(str(i), t, np.cumsum(steps[0]) + drift * t, np.cumsum(steps[1]),
+                             np.arange(n)))
+            if len(out) == size:
+                yield out
+                out = []
+        if out:
+            yield out
+
+    return TrackSource("<brownian>", "arrays", None, None, False, chunks)
+
+
+@pytest.mark.slow  # about 20 s: 60 independent track sets
+def test_track_jackknife_errors_of_d_eff_are_calibrated_and_drift_is_removed():
+    """Brownian tracks with D = 1 and a drift 0.5 along x: the analysis (variance, drift
+    removed) finds D_xx = D_yy = 1 and the drift, and the delete-one-group jackknife over
+    whole tracks gives standard errors equal to the spread over independent sets."""
+    from eddyhop.analysis import effective_diffusivity
+
+    values, errors, drift, drift_se = [], [], [], []
+    for seed in range(60):
+        ds = track_statistics(brownian_drift_source(40, 200, 0.5, seed), velocity_lags=0,
+                              orders=(), tamsd_lags=2)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            fit = effective_diffusivity(ds)
+        values.append(float(fit["D_eff"]))
+        errors.append(float(fit["D_eff_se"]))
+        drift.append(float(fit["mean_velocity_x"]))
+        drift_se.append(float(fit["mean_velocity_x_se"]))
+    values, errors = np.array(values), np.array(errors)
+    spread = values.std(ddof=1)
+    # the mean of 60 estimates is within 4 of its standard errors of the exact D = 1
+    assert abs(values.mean() - 1.0) <= 4 * spread / math.sqrt(values.size), values.mean()
+    assert abs(np.mean(drift) - 0.5) <= 4 * np.std(drift, ddof=1) / math.sqrt(len(drift))
+    # calibration: spread of the estimates against the mean reported se; tolerance 4 times
+    # the sampling error of a standard deviation from 60 sets, 1/sqrt(2*59) = 9 %
+    tolerance = 4 / math.sqrt(2 * (values.size - 1))
+    assert abs(np.mean(errors) / spread - 1) <= tolerance, (np.mean(errors), spread)
+    assert abs(np.mean(drift_se) / np.std(drift, ddof=1) - 1) <= tolerance
