@@ -395,3 +395,36 @@ def test_memory_does_not_grow_with_tracks_times_samples(monkeypatch):
     dense = 4000 * samples * 2 * 8
     assert peaks[1] < 0.5 * dense, (peaks, dense)
     assert peaks[1] < 1.6 * peaks[0], peaks
+
+
+def test_units_in_the_csv_header_and_ragged_counts_that_do_not_add_up(tmp_path, rows):
+    path = tmp_path / "u.csv"
+    write_csv(path, *rows, header="id,t [s],x [um],y [um]")
+    ds = track_statistics(open_tracks(path))
+    assert ds["msd"].attrs["units"] == "um2" and ds["time"].attrs["units"] == "s"
+    cf = tmp_path / "c.nc"
+    write_cf(cf, *rows, "contiguous")
+    with netCDF4.Dataset(cf, "a") as nc:
+        nc.variables["row_size"][0] += 5
+    with pytest.raises(TrackFileError, match="the counts in row_size sum to"):
+        track_statistics(open_tracks(cf))
+
+
+def test_trajectories_of_several_start_regions():
+    """Each start region's tracked particles become trajectories named label:index."""
+    from eddyhop.tracks import trajectories_dataset
+
+    times = np.arange(5) * 0.5
+    rng = np.random.default_rng(0)
+    run = xr.Dataset(
+        {"track_x": (("start", "particle", "track_time"), rng.normal(size=(2, 3, 5)),
+                     {"units": "1"}),
+         "track_y": (("start", "particle", "track_time"), rng.normal(size=(2, 3, 5)),
+                     {"units": "1"})},
+        coords={"start": ["edges", "cores"], "particle": np.arange(3),
+                "track_time": ("track_time", times, {"units": "1"})},
+        attrs={"eddyhop_kind": "monte_carlo", "title": "two starts"})
+    out = trajectories_dataset(run)
+    assert list(out["trajectory_id"].values[:4]) == ["edges:0", "edges:1", "edges:2", "cores:0"]
+    assert out.sizes["obs"] == 30 and out.attrs["featureType"] == "trajectory"
+    np.testing.assert_array_equal(out["x"].values[15:20], run["track_x"].values[1, 0])
