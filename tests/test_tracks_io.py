@@ -428,3 +428,13 @@ def test_trajectories_of_several_start_regions():
     assert list(out["trajectory_id"].values[:4]) == ["edges:0", "edges:1", "edges:2", "cores:0"]
     assert out.sizes["obs"] == 30 and out.attrs["featureType"] == "trajectory"
     np.testing.assert_array_equal(out["x"].values[15:20], run["track_x"].values[1, 0])
+
+
+def test_trajectories_out_needs_one_sampling_interval(tmp_path):
+    study = tmp_path / "s.toml"
+    study.write_text(STUDY.replace("track_samples = 100", "track_samples = 150"))
+    result = CliRunner().invoke(main, ["run", str(study), "--out", str(tmp_path / "r.nc"),
+                                       "--trajectories-out", str(tmp_path / "t.nc")])
+    assert result.exit_code == 2
+    assert "track_samples = 150 does not divide the run's 400 steps" in result.output
+    assert not (tmp_path / "r.nc").exists()

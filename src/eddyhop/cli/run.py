@@ -73,6 +73,17 @@ def check_trajectories_out(spec, path, target, study, replace) -> None:
     if spec.run.tracked <= 0:
         raise StudyError("--trajectories-out needs tracked particles: set [run] tracked = N "
                          "(N > 0) in the study")
+    import numpy as np
+
+    from ..schedule import build_schedule
+
+    steps = build_schedule(spec.run, spec.aging, spec.run.track_samples).track_steps
+    spacing = np.unique(np.diff(steps))
+    if spacing.size > 1:  # a trajectory file (and eddyhop tracks) needs one interval
+        raise StudyError(f"--trajectories-out: run.track_samples = {spec.run.track_samples} "
+                         f"does not divide the run's {int(steps[-1])} steps, so the tracked "
+                         f"samples fall every {spacing[0]} or {spacing[-1]} steps; choose a "
+                         f"track_samples that divides {int(steps[-1])}")
 
 
 def study_inputs(spec, path) -> list:
