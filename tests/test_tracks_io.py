@@ -185,6 +185,9 @@ BAD = [
     ("id,t,x [m],y [km]\na,0,0,0\na,0.1,1,1\n", "mixed length units"),
     ("id,t,x,y\na,0,0,0\na,0.1,0,0\na,0.25,1,1\nb,0,0,0\nb,0.1,1,1\n",
      "track a, row 4: t = 0.25 is not on the sampling grid"),
+    ("id,t [s],x [mm],y [mm],u [m/s],v [m/s]\na,0,0,0,0,0\n", "mixed units: velocity in "
+     "'m/s', positions in 'mm' and times in 's'"),
+    ("id,t,x,y\na,0,0,0\nb,0,0,0\n", "every track has one sample"),
 ]
 
 
@@ -211,6 +214,16 @@ def test_not_a_trajectory_file_and_too_short_tracks(tmp_path, rows):
         cf = tmp_path / "t.nc"
         write_cf(cf, *rows, "contiguous")
         track_statistics(open_tracks(cf), length_unit="mm")
+
+
+def test_longitude_latitude_positions_are_refused(tmp_path):
+    path = tmp_path / "ll.nc"
+    xr.Dataset({"lon": ("obs", [0.0, 1.0], {"standard_name": "longitude"}),
+                "lat": ("obs", [0.0, 1.0], {"standard_name": "latitude"}),
+                "time": ("obs", [0.0, 1.0], {"standard_name": "time"})},
+               attrs={"featureType": "trajectory"}).to_netcdf(path)
+    with pytest.raises(TrackFileError, match="longitude/latitude; project them"):
+        open_tracks(path)
 
 
 def test_cli_refuses_bad_input_without_writing(tmp_path):
