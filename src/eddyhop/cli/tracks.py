@@ -73,8 +73,8 @@ def command(track_file, out, file_format, period, orders, aging_times, pdf_times
 
     \b
     Errors come from a delete-one-group jackknife over groups of whole tracks.
-    Example:  eddyhop tracks studies/tracks/pillar_array_tracks.csv \\
-                  --length-unit um --time-unit s --out pillars.nc
+    Example:  eddyhop tracks studies/tracks/vortex_tank_tracks.csv \\
+                  --length-unit mm --time-unit s --out tank.nc
     """
     from ..analysis import analyse
     from ..io import write_netcdf
