@@ -28,6 +28,7 @@ STAGES = (
     ("results", ("results",)),
     ("analysis", ("analysis",)),
     ("reference", ("reference",)),
+    ("tracks", ("tracks",)),
     ("api", ("api",)),
     ("sweeps", ("sweeps",)),
     ("presentation", ("presentation",)),

@@ -88,6 +88,8 @@ def files(tmp_path_factory):
     answer = invoke(["sweep", root / "sweep.toml", "--out", root / "sw", "--backend", "serial"])
     assert answer.exit_code == 0, answer.output
     (root / "notes.txt").write_text("my notes: not an eddyhop file\n")
+    (root / "tracks.csv").write_text("id,t,x,y\n" + "".join(
+        f"{i},{k},{(i * k) % 7 * 0.1},{k * 0.2}\n" for i in range(6) for k in range(12)))
     return root
 
 
@@ -146,6 +148,19 @@ def _cases(w):
                                point, "inside the sweep folder"),
         "plot-out-points": (["plot", w / "r.nc", "--out", sw / "points" / "figs"], point,
                             "inside the sweep folder"),
+        # measured tracks in, CF trajectories out
+        "tracks-out-input": (["tracks", w / "tracks.csv", "--out", w / "tracks.csv"],
+                             w / "tracks.csv", "same file as the input"),
+        "tracks-out-notes": (["tracks", w / "tracks.csv", "--out", w / "notes.txt"],
+                             w / "notes.txt", "is not an eddyhop result"),
+        "tracks-out-point": (["tracks", w / "tracks.csv", "--out", point], point,
+                             "inside the sweep folder"),
+        "run-trajectories-out-result": (["run", w / "study.toml", "--out", w / "new.nc",
+                                         "--trajectories-out", w / "r.nc"], w / "r.nc",
+                                        "is not a CF trajectory file"),
+        "run-trajectories-out-study": (["run", w / "study.toml", "--out", w / "new.nc",
+                                        "--trajectories-out", w / "study.toml"],
+                                       w / "study.toml", "same file as the input"),
     }
 
 
@@ -154,7 +169,9 @@ CASE_NAMES = [
     "sweep-merged-study", "run-out-notes", "demo-out-notes", "analyse-out-notes",
     "report-out-result", "merge-out-result", "reference-out-notes", "sweep-merged-notes",
     "merge-out-manifest", "merge-out-point", "run-out-point", "analyse-out-point",
-    "report-out-manifest", "demo-out-point", "sweep-merged-point", "plot-out-points"]
+    "report-out-manifest", "demo-out-point", "sweep-merged-point", "plot-out-points",
+    "tracks-out-input", "tracks-out-notes", "tracks-out-point", "run-trajectories-out-result",
+    "run-trajectories-out-study"]
 
 
 @pytest.mark.parametrize("case", CASE_NAMES)

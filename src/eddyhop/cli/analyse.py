@@ -78,7 +78,8 @@ def command(result, out, quiet, no_reference, replace, **chosen):
     target = out or _default_out(result)
     guard_output(target, kind="result", inputs=[result], replace=replace, default=out is None)
     options = {k: v for k, v in chosen.items() if v is not None and v != ()}
-    source = require_kind(open_result(result), result, ("monte_carlo", "reference"), "analyse",
+    source = require_kind(open_result(result), result, ("monte_carlo", "reference", "measured"),
+                          "analyse",
                           foreign_ok=True)
     ds = analyse(source, **options)
     write_netcdf(ds, target)

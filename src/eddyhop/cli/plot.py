@@ -63,8 +63,8 @@ def command(result, out_dir, names, formats, dpi, list_only, replace):
                            f"[{DPI_RANGE[0]}, {DPI_RANGE[1]}]")
     if out_dir:
         check_name(out_dir, option="--out", want_dir=True)
-    ds = require_kind(open_result(result), result, ("monte_carlo", "reference", "sweep"),
-                      "plot", foreign_ok=True)
+    ds = require_kind(open_result(result), result,
+                      ("monte_carlo", "reference", "sweep", "measured"), "plot", foreign_ok=True)
     available = available_figures(ds)
     if list_only:
         for name, (_function, _needs, text) in FIGURES.items():

@@ -619,7 +619,8 @@ def write_report(source, out, *, figures=None, analyse: bool = True) -> Path:
     source_name = None
     if isinstance(source, (str, os.PathLike)):
         source_name = Path(source).name
-        ds = require_kind(open_result(source), source, ("monte_carlo", "reference", "sweep"),
+        ds = require_kind(open_result(source), source, ("monte_carlo", "reference", "sweep",
+                                                           "measured"),
                           "report")
     else:
         ds = source

@@ -164,6 +164,7 @@ def open_result(path):
 
 
 RESULT_KIND_TEXT = {"monte_carlo": "a run", "reference": "a reference solution",
+                    "measured": "a measured-track analysis (eddyhop tracks)",
                     "sweep": "a merged sweep"}
 
 

@@ -37,8 +37,9 @@ KIND_TEXT = {
     "sweep": "a merged sweep netCDF file (merge or sweep)",
     "report": "an eddyhop HTML report",
     "figure": "a figure file of the same format",
+    "trajectories": "a CF trajectory file written by eddyhop run",
 }
-RESULT_KINDS = ("monte_carlo", "reference")
+RESULT_KINDS = ("monte_carlo", "reference", "measured")
 REPLACE_HINT = "choose another name or pass --replace to replace it"
 NAME_MAX_FALLBACK = 255
 PATH_MAX_FALLBACK = 4096
@@ -129,9 +130,9 @@ FIGURE_MAGIC = {".png": (b"\x89PNG",), ".pdf": (b"%PDF",)}
 def is_kind(path: Path, kind: str) -> bool:
     """Whether the existing file ``path`` is an output of ``kind`` (so replacing it loses
     nothing the command could not write again)."""
-    if kind in ("result", "sweep"):
+    if kind in ("result", "sweep", "trajectories"):
         found = _netcdf_kind(path)
-        return found in RESULT_KINDS if kind == "result" else found == "sweep"
+        return found in RESULT_KINDS if kind == "result" else found == kind
     try:
         with open(path, "rb") as stream:
             head = stream.read(4096)
