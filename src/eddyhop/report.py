@@ -624,4 +624,8 @@ def write_report(source, out, *, figures=None, analyse: bool = True) -> Path:
     else:
         ds = source
     text = build_report(ds, source_name=source_name, figures=figures, analyse=analyse)
+    from .provenance import html_meta  # software, command, input checksum in <head>
+
+    text = text.replace("<head>", "<head>" + html_meta(
+        source if isinstance(source, (str, os.PathLike)) else None), 1)
     return atomic_write_text(out, text)

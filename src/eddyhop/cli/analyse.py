@@ -74,13 +74,14 @@ def command(result, out, quiet, no_reference, replace, **chosen):
     from ..analysis import analyse
     from ..io import open_result, require_kind, write_netcdf
     from ..outputs import guard_output
+    from ..provenance import derive
 
     target = out or _default_out(result)
     guard_output(target, kind="result", inputs=[result], replace=replace, default=out is None)
     options = {k: v for k, v in chosen.items() if v is not None and v != ()}
     source = require_kind(open_result(result), result, ("monte_carlo", "reference"), "analyse",
                           foreign_ok=True)
-    ds = analyse(source, **options)
+    ds = derive(analyse(source, **options), "analyse", inputs=[result])  # history + 1 line
     write_netcdf(ds, target)
     click.echo(f"wrote {target}")
     if not quiet:
