@@ -44,7 +44,13 @@ class Reference:
     kind: str = "article"  # article | book | inproceedings
 
     def short(self) -> str:
-        """'Strang 1968' / 'Majda & Kramer 1999' / 'Salmon et al. 2011'."""
+        """Author-year label.
+
+        >>> REFERENCES["strang1968"].short(), REFERENCES["majda1999"].short()
+        ('Strang 1968', 'Majda & Kramer 1999')
+        >>> REFERENCES["salmon2011"].short()
+        'Salmon et al. 2011'
+        """
         families = [a.split(",")[0] for a in self.authors]
         if len(families) == 1:
             who = families[0]
@@ -229,7 +235,12 @@ METHODS = (
 
 
 def methods_used(attrs) -> list[Method]:
-    """The :data:`METHODS` a result with global attributes ``attrs`` used."""
+    """The :data:`METHODS` a result with global attributes ``attrs`` used.
+
+    >>> [m.references for m in methods_used({"eddyhop_kind": "monte_carlo",
+    ...                                       "integrator": "milstein"})]
+    [('milstein1975', 'kloeden1992'), ('salmon2011',)]
+    """
     return [m for m in METHODS if m.used(attrs)]
 
 

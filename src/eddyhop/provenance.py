@@ -164,7 +164,11 @@ def _stand_in(path: Path) -> Path:
 
 
 def text_checksum(text: str) -> str:
-    """``sha256:<hex>`` of ``text`` encoded as UTF-8 (the bytes a study file holds)."""
+    """``sha256:<hex>`` of ``text`` encoded as UTF-8 (the bytes a study file holds).
+
+    >>> text_checksum("")[:23]
+    'sha256:e3b0c44298fc1c14'
+    """
     return "sha256:" + hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 

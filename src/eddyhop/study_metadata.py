@@ -46,7 +46,12 @@ class MetadataSpec:
     keywords: tuple = ()
 
     def attrs(self) -> dict:
-        """The fields that were given, as flat netCDF attributes (keywords comma-separated)."""
+        """The fields that were given, as flat netCDF attributes (keywords comma-separated).
+
+        >>> parse_metadata({"creator_name": "A. Researcher", "keywords": ["mixing", "eddies"]}
+        ...                ).attrs()
+        {'creator_name': 'A. Researcher', 'keywords': 'mixing, eddies'}
+        """
         out = {name: getattr(self, name) for name in TEXT_FIELDS if getattr(self, name)}
         if self.keywords:
             out["keywords"] = ", ".join(self.keywords)
