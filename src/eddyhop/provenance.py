@@ -227,7 +227,6 @@ def study_attrs(study, kind: str) -> dict:
         "history": history_line(f"created ({kind})", inputs),
         "date_created": now_text(),
         "keywords": ", ".join(dict.fromkeys(keywords)),
-        "product_version": __version__,
     }
     if inputs:
         attrs["input_files"] = "\n".join(inputs)
