@@ -74,6 +74,7 @@ def command(result, out, quiet, no_reference, replace, **chosen):
     from ..analysis import analyse
     from ..results.io import open_result, require_kind, write_netcdf
     from ..results.outputs import guard_output
+    from ..results.provenance import derive
 
     target = out or _default_out(result)
     guard_output(target, kind="result", inputs=[result], replace=replace, default=out is None)
@@ -81,7 +82,7 @@ def command(result, out, quiet, no_reference, replace, **chosen):
     source = require_kind(open_result(result), result, ("monte_carlo", "reference", "measured"),
                           "analyse",
                           foreign_ok=True)
-    ds = analyse(source, **options)
+    ds = derive(analyse(source, **options), "analyse", inputs=[result])  # history + 1 line
     write_netcdf(ds, target)
     click.echo(f"wrote {target}")
     if not quiet:

@@ -32,6 +32,7 @@ CAUTION = ("Research estimate from an idealised model flow. These numbers are no
            "and standards.")
 
 STYLE = """
+.provenance td{white-space:pre-line;overflow-wrap:anywhere}
 body{font-family:system-ui,-apple-system,"Segoe UI",sans-serif;margin:0 auto;max-width:1100px;
 padding:1.2em 1.6em;color:#1b1b1b;line-height:1.45}
 h1{font-size:1.45em;margin-bottom:.2em}h2{font-size:1.15em;border-bottom:1px solid #ccc;
@@ -518,8 +519,9 @@ def _figures_section(ds, names=None) -> tuple[str, list[str]]:
 
 def _provenance_section(ds, source_name) -> str:
     attrs = ds.attrs
-    rows = [(k, _e(attrs[k])) for k in ("eddyhop_version", "eddyhop_kind", "history", "seed",
-                                         "integrator", "study_file", "Conventions")
+    rows = [(k, _e(attrs[k])) for k in ("eddyhop_version", "eddyhop_kind", "history",
+                                         "command_line", "input_files", "seed", "integrator",
+                                         "study_file", "creator_name", "license", "Conventions")
             if k in attrs]
     if source_name:
         rows.insert(0, ("input file", _e(source_name)))
@@ -533,7 +535,8 @@ def _provenance_section(ds, source_name) -> str:
             resolved = json.dumps(json.loads(resolved), indent=2, sort_keys=True)
         except ValueError:
             pass
-    return (f"<h2 id='provenance'>Provenance</h2><table><tbody>{body}</tbody></table>"
+    return (f"<h2 id='provenance'>Provenance</h2><table class='provenance'><tbody>{body}"
+            "</tbody></table>"
             + (f"<details><summary>Study file as run</summary><pre>{_e(toml)}</pre></details>"
                if toml and toml != "none" else "")
             + (f"<details><summary>Resolved study (every default filled in)</summary>"
@@ -625,4 +628,8 @@ def write_report(source, out, *, figures=None, analyse: bool = True) -> Path:
     else:
         ds = source
     text = build_report(ds, source_name=source_name, figures=figures, analyse=analyse)
+    from ..results.provenance import html_meta  # software, command, input checksum in <head>
+
+    text = text.replace("<head>", "<head>" + html_meta(
+        source if isinstance(source, (str, os.PathLike)) else None), 1)
     return atomic_write_text(out, text)

@@ -7,10 +7,8 @@ integrator, dt, κ, the Péclet number and its convention.
 
 from __future__ import annotations
 
-import datetime as _dt
 import json
 import math
-import sys
 from pathlib import Path
 
 from .. import __version__
@@ -22,7 +20,7 @@ from ..atomic import (  # noqa: F401  (re-exported: the atomic-file helpers used
     stale_temporaries,
 )
 
-CONVENTIONS = "CF-1.10"
+CONVENTIONS = "CF-1.10, ACDD-1.3"
 
 
 def units_for(length_unit: str, time_unit: str):
@@ -56,8 +54,8 @@ def _flat(prefix: str, values: dict) -> dict:
             out[name] = int(value)
         elif isinstance(value, (int, float, str)):
             out[name] = value
-        elif value is None:
-            out[name] = "none"
+        elif value is None or value == [] or value == ():
+            continue  # not given: left out (no string standing for nothing)
         else:
             out[name] = json.dumps(value)
     return out
@@ -66,15 +64,12 @@ def _flat(prefix: str, values: dict) -> dict:
 def provenance_attrs(study, kind: str, extra: dict | None = None) -> dict:
     """Global attributes: CF header plus full provenance of ``study``."""
     from ..engine.noise import PECLET_DEFINITIONS
+    from .provenance import study_attrs
 
-    now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
-    command = " ".join([Path(sys.argv[0]).name, *sys.argv[1:]]) if sys.argv else "python"
     family = study.flow.model
     attrs = {
-        "Conventions": CONVENTIONS,
         "title": study.title,
         "summary": study.description or study.title,
-        "history": f"{now} created by eddyhop {__version__} ({kind}): {command}",
         "source": f"eddyhop {__version__} {kind} ensemble of tracers advected by a "
                   f"'{family.name}' flow with molecular diffusion",
         "comment": "Research estimate from a model flow. Not a validated engineering "
@@ -92,12 +87,15 @@ def provenance_attrs(study, kind: str, extra: dict | None = None) -> dict:
         "peclet": float(study.noise.peclet) if study.noise.peclet is not None else math.inf,
         "peclet_convention": study.noise.peclet_convention,
         "peclet_definition": PECLET_DEFINITIONS[study.noise.peclet_convention],
-        "length_scale": "1/k (inverse wavenumber); one eddy has side pi/k",
         "ito_convention": "Ito: dX = (u + grad kappa) dt + sqrt(2 kappa) dW",
-        "study_file": study.source_path or "none",
-        "study_toml": study.source_text or "none",
         "study_resolved": json.dumps(study.as_dict(), default=str, sort_keys=True),
     }
+    if study.source_path:
+        attrs["study_file"] = study.source_path
+    if study.source_text:
+        attrs["study_toml"] = study.source_text
+    # Conventions, history, date_created, keywords, input files, scales, [metadata]
+    attrs.update(study_attrs(study, kind))
     attrs.update(_flat("flow", study.flow.params))
     attrs.update(_flat("run", {k: v for k, v in study.as_dict()["run"].items()}))
     if extra:
@@ -117,7 +115,10 @@ def check_output_path(path) -> Path:
 
 def write_netcdf(ds, path) -> Path:
     """Write ``ds`` to ``path`` atomically (see :func:`atomic_path`)."""
+    from .provenance import prepare_for_writing
+
     path = check_output_path(path)
+    ds = prepare_for_writing(ds)  # writer's software, CF/ACDD rules (eddyhop.results.provenance)
     with atomic_path(path) as temporary:
         ds.to_netcdf(temporary, engine="netcdf4", format="NETCDF4")
     return path

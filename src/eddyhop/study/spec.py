@@ -18,6 +18,7 @@ from typing import Any
 from ..engine.schedule import MIN_CHECK_BATCH
 from ..errors import StudyError, range_text
 from ..flows import get_family
+from .metadata import MetadataSpec, parse_metadata
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -205,6 +206,7 @@ class Study:
     hopping: HoppingSpec = field(default_factory=HoppingSpec)
     output: OutputSpec = field(default_factory=OutputSpec)
     sweep: Any = None
+    metadata: MetadataSpec = field(default_factory=MetadataSpec)
     source_text: str = ""
     source_path: str = ""
 
@@ -215,6 +217,8 @@ class Study:
             value = getattr(self, f.name)
             if f.name in ("source_text", "source_path"):
                 continue
+            if f.name == "metadata" and value == MetadataSpec():
+                continue  # absent: resolved studies (and sweep fingerprints) stay as before
             if f.name == "starts":
                 out[f.name] = [s.as_dict() for s in value]
             elif hasattr(value, "__dataclass_fields__"):
@@ -477,7 +481,7 @@ def _parse_output(document):
 
 
 TOP_LEVEL = {"schema_version", "title", "description", "flow", "noise", "start", "run", "aging",
-             "moments", "hopping", "output", "sweep"}
+             "moments", "hopping", "output", "sweep", "metadata"}
 
 
 def parse_study(document: dict, source_text: str = "", source_path: str = "") -> Study:
@@ -512,6 +516,7 @@ def parse_study(document: dict, source_text: str = "", source_path: str = "") ->
         hopping=_parse_hopping(document),
         output=_parse_output(document),
         sweep=sweep,
+        metadata=parse_metadata(document.get("metadata")),
         # a study built in code still records its parameters as TOML text (provenance)
         source_text=source_text or study_document_toml(document),
         source_path=source_path,

@@ -259,14 +259,12 @@ def _note_undetermined(merged) -> None:
 
 
 def _merged_attrs(manifest, datasets, notes, version, conventions) -> dict:
-    import datetime as _dt
-    import sys
-    from pathlib import Path
 
     data = manifest.data
     counts = manifest.counts()
-    now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
-    command = " ".join([Path(sys.argv[0]).name, *sys.argv[1:]]) if sys.argv else "python"
+    from ..results.provenance import history_line, input_lines
+
+    inputs = input_lines([manifest.path])  # the manifest holds every point file's checksum
     messages = []
     not_done = counts["failed"] + counts["pending"] + counts["running"]
     if not_done:
@@ -288,8 +286,9 @@ def _merged_attrs(manifest, datasets, notes, version, conventions) -> dict:
         "Conventions": conventions,
         "title": data.get("title", ""),
         "summary": (data.get("description") or data.get("title", "")) + " (parameter sweep)",
-        "history": f"{now} merged by eddyhop {version} from {len(datasets)} point files of "
-                   f"{manifest.directory}: {command}",
+        "history": _point_history(datasets) + history_line(
+            f"merge of {len(datasets)} point files of {manifest.directory}", inputs),
+        "input_files": "\n".join(inputs),
         "eddyhop_version": version,
         "eddyhop_kind": "sweep",
         "sweep_fingerprint": data["fingerprint"],
@@ -301,13 +300,21 @@ def _merged_attrs(manifest, datasets, notes, version, conventions) -> dict:
         "sweep_points_failed": counts["failed"],
         "sweep_warnings": " | ".join(messages) if messages else "none",
         "sweep_base_study": json.dumps(data.get("base_document", {}), sort_keys=True),
-        "study_file": data.get("study_file") or "none",
-        "study_toml": data.get("study_toml") or "none",
+        "study_file": data.get("study_file") or "",  # "" is left out when written
+        "study_toml": data.get("study_toml") or "",
         "comment": "Research estimate from a model flow. Not a validated engineering "
                    "correlation: for heat or mass transfer in real equipment use validated "
                    "methods and the applicable codes.",
     })
     return attrs
+
+
+def _point_history(datasets) -> str:
+    """The first point's history lines (the parent's provenance; points differ only in their
+    parameters, recorded in sweep_axes), each ending in a newline; empty if it has none."""
+    first = next(iter(datasets), None)
+    text = str(first.attrs.get("history", "")).strip() if first is not None else ""
+    return text + "\n" if text else ""
 
 
 def _grouped(what: str, found: list) -> str:

@@ -203,11 +203,6 @@ def save_figure(figure, path, formats=("png",), dpi: int = 150) -> list[Path]:
 
 
 def _metadata(fmt):
-    from ... import __version__
+    from ...results.provenance import figure_metadata
 
-    creator = f"eddyhop {__version__}"
-    if fmt == "png":
-        return {"Software": creator}
-    if fmt == "pdf":
-        return {"Creator": creator}
-    return {"Creator": creator} if fmt == "svg" else None
+    return figure_metadata(fmt)  # software versions and command line
