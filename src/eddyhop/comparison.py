@@ -40,6 +40,7 @@ Z_TENSION = 2.0
 Z_DIFFER = 3.0
 SCALARS = (("D_xx", "D_xx_se"), ("D_yy", "D_yy_se"), ("D_eff", "D_eff_se"),
            ("D_eff_over_kappa", "D_eff_over_kappa_se"))
+SHOWN = {"D_eff_over_kappa": "D_eff/κ"}
 REFERENCE_TENSOR = {"D_xx": "homogenized_dxx", "D_yy": "homogenized_dyy"}
 
 
@@ -288,7 +289,8 @@ def comparison_table(comparison: xr.Dataset) -> list[dict]:
     last = comparison["msd"].isel(time=-1).values
     last_se = comparison["msd_se"].isel(time=-1).values
     t_last = float(comparison["time"].values[-1])
-    quantities = [(key, comparison[key].values, comparison[se].values) for key, se in SCALARS]
+    quantities = [(SHOWN.get(key, key), comparison[key].values, comparison[se].values)
+                  for key, se in SCALARS]
     quantities.append((f"MSD(t = {t_last:g})", last, last_se))
     status = comparison["deff_converged"].values
     for key, values, errors in quantities:
@@ -321,7 +323,7 @@ def table_lines(comparison: xr.Dataset) -> list[str]:
         if row["quantity"] != quantity:
             quantity = row["quantity"]
             out.append(f"  {quantity}:")
-        value = _pm(row["value"], row["se"]) if row["se"] != 0 else f"{row['value']:.6g} (exact)"
+        value = _pm(row["value"], row["se"]) if row["se"] != 0 else f"{row['value']:.6g} (noise-free)"
         text = f"    {row['series']:<{width}}  {value}"
         if math.isfinite(row["difference"]):
             text += f"   Δ = {row['difference']:+.3g}"

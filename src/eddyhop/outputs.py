@@ -37,6 +37,8 @@ KIND_TEXT = {
     "sweep": "a merged sweep netCDF file (merge or sweep)",
     "report": "an eddyhop HTML report",
     "figure": "a figure file of the same format",
+    "table": "an eddyhop table (CSV or LaTeX)",
+    "comparison": "an eddyhop comparison netCDF file",
 }
 RESULT_KINDS = ("monte_carlo", "reference")
 REPLACE_HINT = "choose another name or pass --replace to replace it"
@@ -129,14 +131,16 @@ FIGURE_MAGIC = {".png": (b"\x89PNG",), ".pdf": (b"%PDF",)}
 def is_kind(path: Path, kind: str) -> bool:
     """Whether the existing file ``path`` is an output of ``kind`` (so replacing it loses
     nothing the command could not write again)."""
-    if kind in ("result", "sweep"):
+    if kind in ("result", "sweep", "comparison"):
         found = _netcdf_kind(path)
-        return found in RESULT_KINDS if kind == "result" else found == "sweep"
+        return found in RESULT_KINDS if kind == "result" else found == kind
     try:
         with open(path, "rb") as stream:
             head = stream.read(4096)
     except OSError:
         return False
+    if kind == "table":  # eddyhop writes a first comment line naming itself
+        return head.lstrip().startswith((b"# eddyhop", b"% eddyhop"))
     if kind == "report":
         return head.lstrip().lower().startswith(b"<!doctype html") and \
             b"<meta name='generator' content='eddyhop" in head

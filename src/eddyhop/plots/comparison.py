@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ._style import GUIDE, caption, math_label, new_figure, positive, styles, time_label
+from ._style import GUIDE, math_label, new_figure, positive, styles, time_label
 
 
 def comparison_figure(comparison, *, width: float = 7.2, height: float = 7.6):
@@ -83,9 +83,9 @@ def comparison_figure(comparison, *, width: float = 7.2, height: float = 7.6):
     z_ax.set_ylabel(r"$z(t)$ of the MSD against" + "\n" + "the baseline (SE)")
     for ax in (alpha_ax, z_ax):
         ax.set_xlabel(time_label(time_attrs.get("units", "1")))
+    figure.suptitle(f"{comparison.attrs.get('title', 'comparison')} (baseline: "
+                    f"{comparison.attrs.get('baseline', '')})\n"
+                    f"time grid: {comparison.attrs.get('time_grid', '')}", fontsize=9)
     figure.legend(handles=handles, loc="outside lower center", ncol=min(3, len(handles)),
-                  fontsize=8, title=f"baseline: {comparison.attrs.get('baseline', '')}",
-                  title_fontsize=8, frameon=False)
-    figure.suptitle(f"{comparison.attrs.get('title', 'comparison')}", fontsize=10)
-    caption(figure, f"time grid: {comparison.attrs.get('time_grid', '')}")
+                  fontsize=8, frameon=False)
     return figure
