@@ -84,7 +84,7 @@ def test_msd_figure_content(analysed_ds):
     (ax,) = figure.axes
     assert ax.get_xscale() == "log" and ax.get_yscale() == "log"
     assert "time since release" in ax.get_xlabel() and "[s]" in ax.get_xlabel()
-    assert "mean-squared displacement" in ax.get_ylabel() and "[mm2]" in ax.get_ylabel()
+    assert "mean-squared displacement" in ax.get_ylabel() and "[mm²]" in ax.get_ylabel()
     lines = data_lines(ax)
     assert [line.get_label() for line in lines] == ["anywhere", "centre"]
     # the plotted values are the Dataset's MSD (all positive here, so nothing is dropped)
@@ -156,6 +156,15 @@ def test_exponent_figure_content(analysed_ds):
     levels = sorted(float(line.get_ydata()[0]) for line in ax.get_lines()
                     if line.get_gid() is None and len(set(line.get_ydata())) == 1)
     assert levels[:3] == [0.5, 1.0, 2.0]
+    # the axis holds every α and its ±2 SE band: nothing clipped, also below 0
+    low, high = ax.get_ylim()
+    alpha, se = analysed_ds["alpha"].values, analysed_ds["alpha_se"].values
+    assert low <= min(-0.1, np.nanmin(alpha - 2 * se)) and high >= np.nanmax(alpha + 2 * se)
+    # guide names sit in the right margin (axes x > 1), never on a curve
+    guide_texts = [t for t in ax.texts if str(t.get_gid()).startswith("guide_label_")]
+    assert len(guide_texts) == 3 and all(t.get_position()[0] > 1.0 for t in guide_texts)
+    # one legend, outside the axes
+    assert figure.legends and ax.get_legend() is None
     assert_finite_lines(figure)
 
 
@@ -277,13 +286,38 @@ def test_residence_figure_names_the_setting(run_ds):
 def test_deff_peclet_figure_content(sweep_ds):
     figure = plots.deff_peclet_figure(sweep_ds)
     (ax,) = figure.axes
-    assert "Péclet number" in ax.get_xlabel() and "D/κ" in ax.get_ylabel()
-    containers = ax.containers
-    assert len(containers) == 2  # D_xx and D_yy with error bars
-    points = containers[0].lines[0]
-    np.testing.assert_allclose(points.get_xdata(), [1.0, 10.0, 100.0])
-    np.testing.assert_allclose(points.get_ydata(),
-                               sweep_ds["D_xx"].values / sweep_ds["kappa"].values)
+    assert "Péclet number" in ax.get_xlabel() and r"$D/\kappa$" in ax.get_ylabel()
+    from eddyhop.analysis.verdicts import flag_meaning
+
+    confirmed = np.array([flag_meaning(sweep_ds["deff_converged"], v) == "diffusive"
+                          for v in sweep_ds["deff_converged"].values])
+    # D_xx and D_yy with error bars: confirmed points filled, the others open
+    points = {}
+    for line in ax.get_lines():
+        gid = str(line.get_gid())
+        if gid.startswith(("points_None_", "unconfirmed_None_")):
+            points[gid] = line
+    filled = points["points_None_xx"]
+    # series at one Pe are spread sideways by under 5 %, never stacked
+    np.testing.assert_allclose(filled.get_xdata(), np.array([1.0, 10.0, 100.0])[confirmed],
+                               rtol=0.05)
+    assert not np.allclose(filled.get_xdata(), points["points_None_yy"].get_xdata())
+    np.testing.assert_allclose(filled.get_ydata(),
+                               (sweep_ds["D_xx"].values / sweep_ds["kappa"].values)[confirmed])
+    if (~confirmed).any():
+        assert points["unconfirmed_None_xx"].get_markerfacecolor() == "white"
+        assert any(line.get_gid() == "unconfirmed_key" for line in ax.get_lines())
+    # the fitted law, when there is one, is drawn with its exponent in the label
+    fits = [line for line in ax.get_lines() if str(line.get_gid()).startswith("fit_")]
+    exponent = float(sweep_ds["D_xx_exponent"]) if "D_xx_exponent" in sweep_ds else np.nan
+    if np.isfinite(exponent):
+        (fit,) = [line for line in fits if line.get_gid() == "fit_None_xx"]
+        x, y = fit.get_data()
+        slope = np.polyfit(np.log(x), np.log(y), 1)[0]
+        assert slope == pytest.approx(exponent, rel=1e-9)
+        assert f"{exponent:.2f}" in fit.get_label()
+    # the legend stands outside the axes (a figure legend)
+    assert figure.legends and not ax.get_legend()
     labels = [line.get_label() for line in ax.get_lines()]
     assert any(text.startswith("low Pe: 1 + 0.125 Pe²") for text in labels)
     assert any(text.startswith(f"high Pe: {CELLULAR_HIGH_PE:.4f} Pe^½") for text in labels)

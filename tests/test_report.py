@@ -63,7 +63,7 @@ def sweep_file(tmp_path_factory):
     return folder / "sweep.nc"
 
 
-FIGURE = re.compile(r"<figure id='fig-(\w+)' data-figure='\w+'><img alt='[^']*' "
+FIGURE = re.compile(r"<figure id='fig-(\w+)' data-figure='\w+'[^>]*><img alt='[^']*' "
                     r"src='data:image/png;base64,([A-Za-z0-9+/=]+)'>")
 
 

@@ -51,7 +51,6 @@ pre{background:#f6f8fa;padding:.7em;overflow-x:auto;font-size:.85em}
 nav a{margin-right:1em;display:inline-block}
 .table-scroll{overflow-x:auto;max-width:100%;-webkit-overflow-scrolling:touch}
 .table-scroll table{margin:.3em 0}
-td,th{overflow-wrap:anywhere}
 .summary{border-left:5px solid #0072B2;background:#f3f8fc;padding:.4em 1em;overflow-wrap:anywhere}
 .summary ul{margin:.2em 0;padding-left:1.3em}.summary-head{margin:.6em 0 .2em}
 strong.alert{color:#fff;background:#B04A00;padding:0 .25em;border-radius:2px}
@@ -157,8 +156,10 @@ def run_warnings(ds) -> list[str]:
     for key, prefix in (("step_size_warnings", "Large time step: "), ("sweep_warnings", "")):
         text = str(ds.attrs.get(key, "none") or "none")
         if text != "none":
-            messages += [f"{prefix}{plain_words(m.strip())}" for m in text.split(" | ")
-                         if m.strip()]
+            notes = [m.strip() for m in text.split(" | ") if m.strip()]
+            if "deff_converged" in ds.variables:  # said once below, from the flags
+                notes = [m for m in notes if "ShortRunWarning" not in m]
+            messages += [f"{prefix}{plain_words(m)}" for m in notes]
     if "deff_converged" in ds.variables:
         flags = ds["deff_converged"]
         ratios = ds["deff_slope_ratio"] if "deff_slope_ratio" in ds.variables else None
@@ -180,7 +181,9 @@ def run_warnings(ds) -> list[str]:
 
         short = places("too_short")
         if short:
-            ratio = "" if ratios is None else (
+            finite = ratios is not None and all(
+                np.isfinite(float(ratios.values[index])) for index in short)
+            ratio = "" if not finite else (
                 " (growth rate of the spread var_x + var_y in the late half of the window "
                 "over the early half: " + ", ".join(
                     f"{float(ratios.values[index]):.2f}" for index in short) + "; 1 when "
