@@ -78,7 +78,7 @@ def test_different_time_grids_are_interpolated_on_the_common_range(files):
 def test_comparison_figure_content(files):
     comparison = compare([files["a"], files["b"], files["ref"]])
     figure = comparison_figure(comparison)
-    msd_ax, spread_ax, alpha_ax, z_ax = figure.axes
+    msd_ax, _spread_ax, alpha_ax, z_ax = figure.axes
     lines = [line for line in msd_ax.get_lines() if str(line.get_gid()).startswith("series_")]
     assert len(lines) == 3
     np.testing.assert_allclose(lines[0].get_ydata(), comparison["msd"].values[0])

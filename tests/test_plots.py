@@ -292,11 +292,7 @@ def test_deff_peclet_figure_content(sweep_ds):
     confirmed = np.array([flag_meaning(sweep_ds["deff_converged"], v) == "diffusive"
                           for v in sweep_ds["deff_converged"].values])
     # D_xx and D_yy with error bars: confirmed points filled, the others open
-    points = {}
-    for line in ax.get_lines():
-        gid = str(line.get_gid())
-        if gid.startswith(("points_None_", "unconfirmed_None_")):
-            points[gid] = line
+    points = {str(c.lines[0].get_gid()): c.lines[0] for c in ax.containers}
     filled = points["points_None_xx"]
     # series at one Pe are spread sideways by under 5 %, never stacked
     np.testing.assert_allclose(filled.get_xdata(), np.array([1.0, 10.0, 100.0])[confirmed],

@@ -78,7 +78,7 @@ def _drawn_colours(bands):
 @pytest.mark.parametrize("vision", VISIONS)
 def test_drawn_regime_tints_are_distinct_under_colour_blindness(drawing, vision):
     ds = _every_class_dataset()
-    figure, ax = new_figure()
+    _figure, ax = new_figure()
     ax.set_xscale("log")
     bands = _regimes.shade(ax, ds) if drawing == "shade" else \
         _regimes.strips(ax, ds, [None], ["#000000"])

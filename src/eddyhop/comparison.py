@@ -323,7 +323,8 @@ def table_lines(comparison: xr.Dataset) -> list[str]:
         if row["quantity"] != quantity:
             quantity = row["quantity"]
             out.append(f"  {quantity}:")
-        value = _pm(row["value"], row["se"]) if row["se"] != 0 else f"{row['value']:.6g} (noise-free)"
+        value = _pm(row["value"], row["se"]) if row["se"] != 0 \
+            else f"{row['value']:.6g} (noise-free)"
         text = f"    {row['series']:<{width}}  {value}"
         if math.isfinite(row["difference"]):
             text += f"   Δ = {row['difference']:+.3g}"

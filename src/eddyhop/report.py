@@ -24,8 +24,8 @@ import numpy as np
 from . import __version__
 from .analysis.verdicts import flag_meaning
 from .errors import EddyhopError
-from .presentation import transition_words
 from .io import atomic_write_text
+from .presentation import transition_words
 
 CAUTION = ("Research estimate from an idealised model flow. These numbers are not a validated "
            "engineering correlation and are not for the design of real equipment: for heat or "
@@ -641,7 +641,8 @@ def build_report(ds, *, source_name: str | None = None, figures=None,
         f"<h1>{_e(title)}</h1>",
         f"<p class='meta'>eddyhop {__version__} {kind} report · generated {now}"
         + (f" · from {_e(source_name)}" if source_name else "") + "</p>",
-        "<nav><a href='#summary'>Summary</a><a href='#parameters'>Parameters</a><a href='#results'>Results</a>"
+        "<nav><a href='#summary'>Summary</a><a href='#parameters'>Parameters</a>"
+        "<a href='#results'>Results</a>"
         "<a href='#figures'>Figures</a><a href='#provenance'>Provenance</a></nav>",
         f"<div class='caution' id='caution'><b>Caution.</b> {_e(CAUTION)}</div>",
         f"<p class='meta'>{_e(note)}</p>" if note else "",

@@ -66,7 +66,7 @@ def summary_lines(ds, *, reference: bool = True) -> list[str]:
     from .presentation import analysis_lines, scaling_lines
 
     if _is_sweep(ds):
-        return ["sweep:"] + scaling_lines(ds)
+        return ["sweep:", *scaling_lines(ds)]
     return analysis_lines(ds, reference=reference)
 
 
@@ -161,7 +161,7 @@ def round_to_error(value, error) -> str:
     if error is None or not math.isfinite(float(error)) or float(error) <= 0:
         return f"{value:.4g}"
     error = float(error)
-    place = 1 - int(math.floor(math.log10(error)))
+    place = 1 - math.floor(math.log10(error))
     if place > 0:
         return f"{round(value, place):.{place}f} ± {round(error, place):.{place}f}"
     scale = 10 ** (-place)

@@ -33,8 +33,8 @@ def _formats(text: str) -> tuple:
               help="Folder for the figures (created if missing). [default: next to RESULT]")
 @click.option("--figure", "-f", "names", multiple=True,
               help="Figure to draw (repeatable): msd, starts, exponent, aging, trajectories, "
-                   "residence, deff_peclet, exponent_map. [default: every figure the file "
-                   "supports]")
+                   "residence, displacement_pdf, kurtosis, moment_spectrum, deff_peclet, "
+                   "exponent_map, collapse. [default: every figure the file supports]")
 @click.option("--format", "formats", default="png,pdf", show_default=True,
               help="Comma-separated file formats: png, pdf, svg.")
 @click.option("--dpi", type=int, default=150, show_default=True,

@@ -52,14 +52,14 @@ def _regime_note(ax, ds, start, where=None, starts=None):
         heading = "regimes (a strip per start)"
     else:
         heading = f"regimes (start {start_name(ds, start)})"
-    return [Line2D([], [], ls="none", label=heading)] + handles
+    return [Line2D([], [], ls="none", label=heading), *handles]
 
 
 def _legend(figure, handles):
     """One legend right of the axes (start curves, then regime classes): never over data."""
     from matplotlib.lines import Line2D
 
-    legend = figure.legend(handles=[Line2D([], [], ls="none", label="start region")] + handles,
+    legend = figure.legend(handles=[Line2D([], [], ls="none", label="start region"), *handles],
                            loc="outside right upper", fontsize=7.5, frameon=False,
                            handlelength=2.2)
     for text in legend.get_texts():  # headings in bold
