@@ -94,9 +94,9 @@ def test_warning_class_names_and_flag_codes_are_said_in_words():
 def test_one_warning_names_every_point_it_concerns(analysed):
     _, ds = analysed
     flags = ds["deff_converged"].copy()
-    too_short = [int(v) for v, m in zip(flags.attrs["flag_values"],
+    too_short = next(int(v) for v, m in zip(flags.attrs["flag_values"],
                                         flags.attrs["flag_meanings"].split())
-                 if m == "too_short"][0]
+                 if m == "too_short")
     ds = ds.assign(deff_converged=flags.copy(data=np.full(flags.shape, too_short,
                                                           dtype=flags.dtype)))
     text = build_report(ds, analyse=False, reference=False, figures=[])
