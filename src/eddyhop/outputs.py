@@ -39,6 +39,7 @@ KIND_TEXT = {
     "figure": "a figure file of the same format",
     "table": "an eddyhop table (CSV or LaTeX)",
     "comparison": "an eddyhop comparison netCDF file",
+    "figure_data": "an eddyhop figure-data netCDF file",
 }
 RESULT_KINDS = ("monte_carlo", "reference")
 REPLACE_HINT = "choose another name or pass --replace to replace it"
@@ -131,7 +132,7 @@ FIGURE_MAGIC = {".png": (b"\x89PNG",), ".pdf": (b"%PDF",)}
 def is_kind(path: Path, kind: str) -> bool:
     """Whether the existing file ``path`` is an output of ``kind`` (so replacing it loses
     nothing the command could not write again)."""
-    if kind in ("result", "sweep", "comparison"):
+    if kind in ("result", "sweep", "comparison", "figure_data"):
         found = _netcdf_kind(path)
         return found in RESULT_KINDS if kind == "result" else found == kind
     try:
