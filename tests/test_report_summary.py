@@ -118,7 +118,8 @@ def test_paper_tables(analysed):
     quantities = {(r["start"], r["quantity"]) for r in rows}
     assert ("anywhere", "D_eff") in quantities and ("corner", "D_xx") in quantities
     csv_text = rows_csv(rows)
-    assert csv_text.splitlines()[0] == "start,quantity,value,error,status,shown"
+    assert csv_text.splitlines()[:2] == ["# eddyhop summary table",
+                                         "start,quantity,value,error,status,shown"]
     latex = rows_latex(rows, caption="D_eff of the test run")
     for rule in (r"\toprule", r"\midrule", r"\bottomrule"):
         assert latex.count(rule) == 1

@@ -227,11 +227,12 @@ def summary_rows(ds) -> list[dict]:
 
 def rows_csv(rows) -> str:
     """CSV of :func:`summary_rows` (value and error to full precision, plus a rounded
-    ``shown`` column)."""
+    ``shown`` column), after one comment line naming eddyhop."""
     import csv
     import io
 
     buffer = io.StringIO()
+    buffer.write("# eddyhop summary table\n")
     writer = csv.writer(buffer)
     writer.writerow([*ROW_FIELDS, "shown"])
     for row in rows:
@@ -257,7 +258,8 @@ def _latex_escape(text: str) -> str:
 def rows_latex(rows, caption: str = "eddyhop summary") -> str:
     """A booktabs LaTeX table of :func:`summary_rows`, values rounded to their errors;
     undetermined entries say so in the status column."""
-    lines = [r"\begin{table}", r"\centering", r"\begin{tabular}{llll}", r"\toprule",
+    lines = ["% eddyhop summary table (needs \\usepackage{booktabs})", r"\begin{table}",
+             r"\centering", r"\begin{tabular}{llll}", r"\toprule",
              r"start & quantity & value & status \\", r"\midrule"]
     for row in rows:
         name = _LATEX_NAMES.get(row["quantity"], _latex_escape(row["quantity"]))
@@ -268,3 +270,21 @@ def rows_latex(rows, caption: str = "eddyhop summary") -> str:
     lines += [r"\bottomrule", r"\end{tabular}", f"\\caption{{{_latex_escape(caption)}}}",
               r"\end{table}", ""]
     return "\n".join(lines)
+
+
+def write_tables(source, csv_path, latex_path, *, analyse: bool = True):
+    """Write the summary table of ``source`` (a path or Dataset) as CSV and LaTeX
+    (atomically); analyses a copy in memory when needed.  Returns the written paths."""
+    import os
+
+    from .io import atomic_write_text, open_result
+    from .report import maybe_analyse
+
+    ds = open_result(source) if isinstance(source, (str, os.PathLike)) else source
+    if analyse:
+        ds, _ = maybe_analyse(ds)
+    rows = summary_rows(ds)
+    title = str(ds.attrs.get("title", "eddyhop result"))
+    return [atomic_write_text(csv_path, rows_csv(rows)),
+            atomic_write_text(latex_path, rows_latex(rows, caption=f"{title}: effective "
+                                                                   "diffusivity"))]
