@@ -219,7 +219,10 @@ def summary_rows(ds) -> list[dict]:
                 verdict = flag_meaning(ds[f"{name}_fit_verdict"],
                                        np.asarray(ds[f"{name}_fit_verdict"].values)[index]) \
                     if f"{name}_fit_verdict" in ds.variables else ""
-                rows.append({"start": where, "quantity": f"{name} exponent in Pe",
+                rows.append({"start": where,
+                             "quantity": f"{name} exponent in Pe (± half the "
+                                         f"{float(exponent.attrs.get('confidence', 0.95)):.0%}"
+                                         " interval)",
                              "value": value, "error": 0.5 * (high - low),
                              "status": f"fit {verdict}" if verdict else ""})
     return rows
