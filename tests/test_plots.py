@@ -330,7 +330,7 @@ def test_exponent_map_content(sweep_ds):
     assert "local exponent" in figure.axes[-1].get_ylabel()  # colour bar
     assert ax.get_yscale() == "log" and "Péclet" in ax.get_ylabel()
     assert ax.get_xscale() == "log" and "time" in ax.get_xlabel()
-    assert "(dimensionless)" in ax.get_xlabel() or "[" in ax.get_xlabel()  # units shown
+    assert "(model time units)" in ax.get_xlabel() or "[" in ax.get_xlabel()  # units shown
     assert np.isfinite(np.ma.compressed(values)).all()
     from eddyhop.plots._style import EXPONENT_CMAP
 
@@ -348,9 +348,10 @@ def test_sweep_figures_refuse_a_single_run(analysed_ds, sweep_ds):
 
 def test_catalogue_lists_what_applies(run_ds, analysed_ds, sweep_ds):
     assert plots.available_figures(run_ds) == ["msd", "starts", "aging", "trajectories",
-                                               "residence"]
-    assert "exponent" in plots.available_figures(analysed_ds)
-    assert plots.available_figures(sweep_ds) == ["deff_peclet", "exponent_map"]
+                                               "residence", "kurtosis"]
+    assert {"exponent", "displacement_pdf", "moment_spectrum"} <= set(
+        plots.available_figures(analysed_ds))
+    assert plots.available_figures(sweep_ds) == ["deff_peclet", "exponent_map", "collapse"]
     with pytest.raises(EddyhopError, match="unknown figure"):
         list(plots.figures_for(run_ds, ["nonsense"]))
 

@@ -119,3 +119,16 @@ def test_report_tables_command(analysed, tmp_path):
     latex = (tmp_path / "tab.tex").read_text()
     assert r"\toprule" in latex and r"\pm" in latex
     assert (tmp_path / "tab.csv").read_text().startswith("# eddyhop summary table")
+
+
+def test_plot_refuses_before_writing_any_figure(analysed, tmp_path):
+    """A figure whose variables are missing: one line naming the file and the variable, and
+    no half-written figure set (the msd figure asked first is not written either)."""
+    path, _ = analysed
+    out = tmp_path / "none"
+    result = CliRunner().invoke(main, ["plot", str(path), "--out", str(out), "-f", "msd",
+                                       "-f", "residence", "--format", "png"])
+    assert result.exit_code == 2, result.output
+    assert "run.nc" in result.output and "residence_count" in result.output
+    assert "Traceback" not in result.output
+    assert not out.exists() or not list(out.iterdir())

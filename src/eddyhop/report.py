@@ -261,7 +261,8 @@ def _parameters_section(ds) -> str:
     flow = study.get("flow", {}).get("params") or flow_parameters(ds)[1]
     flow = flow if isinstance(flow, dict) else {}
     for name, value in flow.items():
-        rows.append((f"flow.{name}", _e(value) if isinstance(value, list) else _number(value)))
+        rows.append((f"flow parameter {name}", _e(value) if isinstance(value, list)
+                     else _number(value)))
     for name, value in attrs.items():  # gridded flows: the field report of the input file
         if name.startswith("field_"):
             rows.append((f"gridded {name.replace('_', ' ', 1)}",

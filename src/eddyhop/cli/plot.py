@@ -113,9 +113,15 @@ def command(result, out_dir, names, formats, dpi, list_only, size, style, axis_u
 
     if axis_units == "natural":
         ds = natural_units(ds)
-    target.mkdir(exist_ok=True)
+    from ..errors import InputDataError
+
     with figure_style(style):
-        for name, figure in figures_for(ds, chosen):
+        try:  # every figure is drawn before any is written: no half-written set
+            drawn = list(figures_for(ds, chosen))
+        except InputDataError as exc:
+            raise InputDataError(f"{Path(result).name}: {exc}") from None
+        target.mkdir(exist_ok=True)
+        for name, figure in drawn:
             if size:
                 resize(figure, size)
             for path in save_figure(figure, target / f"{stem}_{name}", formats=fmts, dpi=dpi):
