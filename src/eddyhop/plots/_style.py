@@ -217,7 +217,8 @@ def caption(figure, text: str) -> None:
     engine = figure.get_layout_engine()
     if engine is not None and hasattr(engine, "set"):
         engine.set(rect=(0.0, 0.03, 1.0, 0.97))
-    figure.text(0.005, 0.004, text, fontsize=6.5, color=GUIDE, ha="left", va="bottom")
+    figure.text(0.005, 0.004, text, fontsize=6.5, color=GUIDE, ha="left", va="bottom",
+                gid="provenance_caption")
 
 
 def provenance_line(ds) -> str:

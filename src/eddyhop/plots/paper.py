@@ -61,6 +61,9 @@ def resize(figure, size: str):
     scale = min(1.0, max(0.7, width / old_width))
     for text in figure.findobj(Text):
         text.set_fontsize(max(5.5, text.get_fontsize() * scale))
+    for text in list(figure.texts):  # the provenance line is for screens, not for print
+        if text.get_gid() == "provenance_caption":
+            text.remove()
     for legend in list(figure.legends):
         handles = list(legend.legend_handles)
         labels = [t.get_text() for t in legend.texts]
