@@ -142,3 +142,15 @@ def test_compare_command_writes_figure_table_and_data(files, tmp_path):
     mismatch = CliRunner().invoke(main, ["compare", str(files["a"]), str(files["ref"]),
                                          "--label", "only one"])
     assert mismatch.exit_code == 2 and "--label" in mismatch.output
+
+
+def test_report_summary_of_a_reference_names_its_homogenized_value(files):
+    from eddyhop.report import maybe_analyse
+    from eddyhop.report_summary import summary_lines
+
+    ds, _ = maybe_analyse(eddyhop.open_result(files["ref"]))
+    (line,) = [text for text in summary_lines(ds) if "homogenized diffusivity" in text]
+    kappa = float(ds.attrs["kappa"])
+    # Taylor dispersion, D_xx/κ = 1 + Pe²/2 = 3 at Pe = 2 (source at the top of this file)
+    assert "D_eff/κ = " in line
+    assert float(line.split("D_xx = ")[1].split(",")[0]) == pytest.approx(3 * kappa, rel=1e-5)
