@@ -178,9 +178,10 @@ def test_aging_figure_content(run_ds):
     figure = plots.aging_figure(run_ds)
     axes = figure.axes
     assert len(axes) == 2  # one panel per start
+    assert figure.legends and all(ax.get_legend() is None for ax in axes)  # off the data
     for ax, start in zip(axes, ["anywhere", "centre"]):
         labels = [line.get_label() for line in ax.get_lines()]
-        assert labels == ["t_a = 0 (unaged MSD)", "t_a = 1", "t_a = 10"]
+        assert labels == ["$t_a$ = 0 (unaged MSD)", "$t_a$ = 1", "$t_a$ = 10"]
         aged = run_ds["aged_msd"].sel(start=start, aging_time=10.0).values
         finite = np.isfinite(aged)
         np.testing.assert_allclose(ax.get_lines()[2].get_ydata(), aged[finite])
