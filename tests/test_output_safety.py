@@ -146,6 +146,10 @@ def _cases(w):
                                point, "inside the sweep folder"),
         "plot-out-points": (["plot", w / "r.nc", "--out", sw / "points" / "figs"], point,
                             "inside the sweep folder"),
+        "compare-out-points": (["compare", w / "r.nc", w / "a.nc", "--out",
+                                sw / "points" / "cmp"], point, "inside the sweep folder"),
+        "report-tables-points": (["report", w / "r.nc", "--out", w / "rep3.html", "--tables",
+                                  sw / "points" / "tab"], point, "inside the sweep folder"),
     }
 
 
@@ -154,7 +158,8 @@ CASE_NAMES = [
     "sweep-merged-study", "run-out-notes", "demo-out-notes", "analyse-out-notes",
     "report-out-result", "merge-out-result", "reference-out-notes", "sweep-merged-notes",
     "merge-out-manifest", "merge-out-point", "run-out-point", "analyse-out-point",
-    "report-out-manifest", "demo-out-point", "sweep-merged-point", "plot-out-points"]
+    "report-out-manifest", "demo-out-point", "sweep-merged-point", "plot-out-points",
+    "compare-out-points", "report-tables-points"]
 
 
 @pytest.mark.parametrize("case", CASE_NAMES)
