@@ -31,6 +31,8 @@ from ._style import (
 )
 
 ANALYSE_HINT = "run `eddyhop analyse RESULT.nc` (or eddyhop.analysis.analyse) first"
+# below this many tracked tracers a 41-bin density is mostly empty bins: said on the figure
+FEW_TRACKED = 50
 
 
 def displacement_pdf_figure(ds):
@@ -69,6 +71,10 @@ def displacement_pdf_figure(ds):
             ax.set_title(f"{'Δx' if axis == 'x' else 'Δy'} · {start_name(ds, start)}",
                          fontsize=9)
             ax.grid(True, which="major", alpha=0.3)
+            if count is not None and count < FEW_TRACKED:
+                ax.text(0.5, 0.04, f"only {count} tracked tracers: too few for a density",
+                        transform=ax.transAxes, ha="center", va="bottom", fontsize=7.5,
+                        color="#B04A00", fontweight="bold", gid="too_few_tracers")
             if row == len(starts) - 1:
                 ax.set_xlabel(f"$(\\Delta {axis} - \\langle\\Delta {axis}\\rangle)"
                               f"/\\sigma_{axis}$ (dimensionless)")
