@@ -335,10 +335,10 @@ def exponent_map_figure(ds, *, start=None):
         ax.set_yscale("log")
         ax.set_xlabel(label(ds[time_name]))
         ax.set_title(f"start: {start_name(ds, label_)}", fontsize=9)
-    axes[0].set_ylabel(f"Péclet number, {ds.attrs.get('peclet_definition', 'Pe')} "
-                       "(dimensionless)")
+    axes[0].set_ylabel(f"Péclet number, {_peclet_text(ds.attrs.get('peclet_definition', 'Pe'))}"
+                       " (dimensionless)")
     bar = figure.colorbar(mesh, ax=list(axes), extend="both")
-    bar.set_label("local exponent α = d log MSD / d log t")
+    bar.set_label(r"local exponent $\alpha = d\ln\mathrm{MSD}/d\ln t$")
     figure.suptitle(title(f"α(t, Pe) — {ds.attrs.get('title', '')}; contours at α = ½ and 3/2"),
                     fontsize=10)
     caption(figure, provenance_line(ds))
