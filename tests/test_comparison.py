@@ -108,6 +108,11 @@ def test_table_words_and_csv(files):
 def test_refusals_name_the_file(files, tmp_path):
     with pytest.raises(InputDataError, match="two or more"):
         compare([files["a"]])
+    sweep = eddyhop.open_result(files["a"])
+    sweep.attrs["eddyhop_kind"] = "sweep"
+    eddyhop.write_netcdf(sweep, tmp_path / "sweep.nc")
+    with pytest.raises(InputDataError, match=r"sweep\.nc.*merged sweep.*point files"):
+        compare([tmp_path / "sweep.nc", files["a"]])
     ds = eddyhop.open_result(files["a"]).drop_vars("msd")
     broken = tmp_path / "broken.nc"
     eddyhop.write_netcdf(ds, broken)

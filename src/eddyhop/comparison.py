@@ -54,8 +54,11 @@ def _open(source, index):
     from .io import open_result, require_kind
 
     if isinstance(source, (str, os.PathLike)):
-        ds = require_kind(open_result(source), source, ("monte_carlo", "reference"),
-                          "compare")
+        ds = open_result(source)
+        if ds.attrs.get("eddyhop_kind") == "sweep":
+            raise InputDataError(f"{str(source)!r} is a merged sweep; compare takes runs and "
+                                 "references: give point files (FOLDER/points/<id>.nc)")
+        ds = require_kind(ds, source, ("monte_carlo", "reference"), "compare")
         shown = str(source)
     else:
         ds = source
