@@ -114,6 +114,15 @@ def test_report_of_a_sweep(sweep_file, tmp_path):
     # 256 particles per point: only some points reach a confirmed diffusive regime, and the
     # report says so instead of presenting a fit over them
     assert "No scaling fit" in text or "undetermined" in text
+    # the summary opens the page: scaling lines, then regimes and crossovers at every point
+    assert text.index("id='summary'") < text.index("id='warnings'")
+    assert "Regimes at each swept point" in text
+    assert text.count("<td>peclet = ") >= 3
+    shown = text[:text.index("id='provenance'")]
+    for internal in ("ShortRunWarning", "settled->diffusive", "deff_converged =",
+                     "run.particles"):
+        assert internal not in shown, internal
+    assert shown.count("Run too short at") <= 1  # one warning, naming every point
 
 
 def test_warnings_step_size_and_short_run(result):
