@@ -161,6 +161,10 @@ def _cases(w):
         "run-trajectories-out-study": (["run", w / "study.toml", "--out", w / "new.nc",
                                         "--trajectories-out", w / "study.toml"],
                                        w / "study.toml", "same file as the input"),
+        "compare-out-points": (["compare", w / "r.nc", w / "a.nc", "--out",
+                                sw / "points" / "cmp"], point, "inside the sweep folder"),
+        "report-tables-points": (["report", w / "r.nc", "--out", w / "rep3.html", "--tables",
+                                  sw / "points" / "tab"], point, "inside the sweep folder"),
     }
 
 
@@ -171,7 +175,8 @@ CASE_NAMES = [
     "merge-out-manifest", "merge-out-point", "run-out-point", "analyse-out-point",
     "report-out-manifest", "demo-out-point", "sweep-merged-point", "plot-out-points",
     "tracks-out-input", "tracks-out-notes", "tracks-out-point", "run-trajectories-out-result",
-    "run-trajectories-out-study"]
+    "run-trajectories-out-study",
+    "compare-out-points", "report-tables-points"]
 
 
 @pytest.mark.parametrize("case", CASE_NAMES)

@@ -84,7 +84,7 @@ def test_msd_figure_content(analysed_ds):
     (ax,) = figure.axes
     assert ax.get_xscale() == "log" and ax.get_yscale() == "log"
     assert "time since release" in ax.get_xlabel() and "[s]" in ax.get_xlabel()
-    assert "mean-squared displacement" in ax.get_ylabel() and "[mm2]" in ax.get_ylabel()
+    assert "mean-squared displacement" in ax.get_ylabel() and "[mm²]" in ax.get_ylabel()
     lines = data_lines(ax)
     assert [line.get_label() for line in lines] == ["anywhere", "centre"]
     # the plotted values are the Dataset's MSD (all positive here, so nothing is dropped)
@@ -156,6 +156,15 @@ def test_exponent_figure_content(analysed_ds):
     levels = sorted(float(line.get_ydata()[0]) for line in ax.get_lines()
                     if line.get_gid() is None and len(set(line.get_ydata())) == 1)
     assert levels[:3] == [0.5, 1.0, 2.0]
+    # the axis holds every α and its ±2 SE band: nothing clipped, also below 0
+    low, high = ax.get_ylim()
+    alpha, se = analysed_ds["alpha"].values, analysed_ds["alpha_se"].values
+    assert low <= min(-0.1, np.nanmin(alpha - 2 * se)) and high >= np.nanmax(alpha + 2 * se)
+    # guide names sit in the right margin (axes x > 1), never on a curve
+    guide_texts = [t for t in ax.texts if str(t.get_gid()).startswith("guide_label_")]
+    assert len(guide_texts) == 3 and all(t.get_position()[0] > 1.0 for t in guide_texts)
+    # one legend, outside the axes
+    assert figure.legends and ax.get_legend() is None
     assert_finite_lines(figure)
 
 
@@ -169,9 +178,10 @@ def test_aging_figure_content(run_ds):
     figure = plots.aging_figure(run_ds)
     axes = figure.axes
     assert len(axes) == 2  # one panel per start
+    assert figure.legends and all(ax.get_legend() is None for ax in axes)  # off the data
     for ax, start in zip(axes, ["anywhere", "centre"]):
         labels = [line.get_label() for line in ax.get_lines()]
-        assert labels == ["t_a = 0 (unaged MSD)", "t_a = 1", "t_a = 10"]
+        assert labels == ["$t_a$ = 0 (unaged MSD)", "$t_a$ = 1", "$t_a$ = 10"]
         aged = run_ds["aged_msd"].sel(start=start, aging_time=10.0).values
         finite = np.isfinite(aged)
         np.testing.assert_allclose(ax.get_lines()[2].get_ydata(), aged[finite])
@@ -277,13 +287,34 @@ def test_residence_figure_names_the_setting(run_ds):
 def test_deff_peclet_figure_content(sweep_ds):
     figure = plots.deff_peclet_figure(sweep_ds)
     (ax,) = figure.axes
-    assert "Péclet number" in ax.get_xlabel() and "D/κ" in ax.get_ylabel()
-    containers = ax.containers
-    assert len(containers) == 2  # D_xx and D_yy with error bars
-    points = containers[0].lines[0]
-    np.testing.assert_allclose(points.get_xdata(), [1.0, 10.0, 100.0])
-    np.testing.assert_allclose(points.get_ydata(),
-                               sweep_ds["D_xx"].values / sweep_ds["kappa"].values)
+    assert "Péclet number" in ax.get_xlabel() and r"$D/\kappa$" in ax.get_ylabel()
+    from eddyhop.analysis.verdicts import flag_meaning
+
+    confirmed = np.array([flag_meaning(sweep_ds["deff_converged"], v) == "diffusive"
+                          for v in sweep_ds["deff_converged"].values])
+    # D_xx and D_yy with error bars: confirmed points filled, the others open
+    points = {str(c.lines[0].get_gid()): c.lines[0] for c in ax.containers}
+    filled = points["points_None_xx"]
+    # series at one Pe are spread sideways by under 5 %, never stacked
+    np.testing.assert_allclose(filled.get_xdata(), np.array([1.0, 10.0, 100.0])[confirmed],
+                               rtol=0.05)
+    assert not np.allclose(filled.get_xdata(), points["points_None_yy"].get_xdata())
+    np.testing.assert_allclose(filled.get_ydata(),
+                               (sweep_ds["D_xx"].values / sweep_ds["kappa"].values)[confirmed])
+    if (~confirmed).any():
+        assert points["unconfirmed_None_xx"].get_markerfacecolor() == "white"
+        assert any(line.get_gid() == "unconfirmed_key" for line in ax.get_lines())
+    # the fitted law, when there is one, is drawn with its exponent in the label
+    fits = [line for line in ax.get_lines() if str(line.get_gid()).startswith("fit_")]
+    exponent = float(sweep_ds["D_xx_exponent"]) if "D_xx_exponent" in sweep_ds else np.nan
+    if np.isfinite(exponent):
+        (fit,) = [line for line in fits if line.get_gid() == "fit_None_xx"]
+        x, y = fit.get_data()
+        slope = np.polyfit(np.log(x), np.log(y), 1)[0]
+        assert slope == pytest.approx(exponent, rel=1e-9)
+        assert f"{exponent:.2f}" in fit.get_label()
+    # the legend stands outside the axes (a figure legend)
+    assert figure.legends and not ax.get_legend()
     labels = [line.get_label() for line in ax.get_lines()]
     assert any(text.startswith("low Pe: 1 + 0.125 Pe²") for text in labels)
     assert any(text.startswith(f"high Pe: {CELLULAR_HIGH_PE:.4f} Pe^½") for text in labels)
@@ -300,7 +331,7 @@ def test_exponent_map_content(sweep_ds):
     assert "local exponent" in figure.axes[-1].get_ylabel()  # colour bar
     assert ax.get_yscale() == "log" and "Péclet" in ax.get_ylabel()
     assert ax.get_xscale() == "log" and "time" in ax.get_xlabel()
-    assert "(dimensionless)" in ax.get_xlabel() or "[" in ax.get_xlabel()  # units shown
+    assert "(model time units)" in ax.get_xlabel() or "[" in ax.get_xlabel()  # units shown
     assert np.isfinite(np.ma.compressed(values)).all()
     from eddyhop.presentation.plots._style import EXPONENT_CMAP
 
@@ -318,9 +349,10 @@ def test_sweep_figures_refuse_a_single_run(analysed_ds, sweep_ds):
 
 def test_catalogue_lists_what_applies(run_ds, analysed_ds, sweep_ds):
     assert plots.available_figures(run_ds) == ["msd", "starts", "aging", "trajectories",
-                                               "residence"]
-    assert "exponent" in plots.available_figures(analysed_ds)
-    assert plots.available_figures(sweep_ds) == ["deff_peclet", "exponent_map"]
+                                               "residence", "kurtosis"]
+    assert {"exponent", "displacement_pdf", "moment_spectrum"} <= set(
+        plots.available_figures(analysed_ds))
+    assert plots.available_figures(sweep_ds) == ["deff_peclet", "exponent_map", "collapse"]
     with pytest.raises(EddyhopError, match="unknown figure"):
         list(plots.figures_for(run_ds, ["nonsense"]))
 

@@ -32,12 +32,12 @@ def test_plot_writes_every_available_figure(result_file, tmp_path):
     run = run_cli("plot", str(result_file), "--out", str(out), "--format", "png,pdf")
     assert run.returncode == 0, run.stderr
     names = sorted(p.name for p in out.iterdir())
-    assert names == sorted(f"small_{figure}.{fmt}" for figure in ("aging", "msd",
+    assert names == sorted(f"small_{figure}.{fmt}" for figure in ("aging", "kurtosis", "msd",
                                                                    "trajectories")
                            for fmt in ("png", "pdf"))
     assert (out / "small_msd.png").read_bytes()[:4] == b"\x89PNG"
     assert (out / "small_msd.pdf").read_bytes()[:5] == b"%PDF-"
-    assert run.stdout.count("wrote") == 6
+    assert run.stdout.count("wrote") == 8
 
 
 def test_plot_list(result_file):
@@ -51,7 +51,8 @@ def test_plot_missing_variable_names_the_command(result_file, tmp_path):
                   "--figure", "residence", "--format", "svg")
     assert run.returncode == 2
     assert "residence_count" in run.stderr and "[hopping] enabled = true" in run.stderr
-    assert [p.name for p in tmp_path.iterdir()] == ["small_msd.svg"]  # no partial files
+    # every figure is drawn before any is written: no half-written figure set
+    assert [p.name for p in tmp_path.iterdir()] == []
 
 
 def test_report_command(result_file, tmp_path):

@@ -63,7 +63,7 @@ def sweep_file(tmp_path_factory):
     return folder / "sweep.nc"
 
 
-FIGURE = re.compile(r"<figure id='fig-(\w+)' data-figure='\w+'><img alt='[^']*' "
+FIGURE = re.compile(r"<figure id='fig-(\w+)' data-figure='\w+'[^>]*><img alt='[^']*' "
                     r"src='data:image/png;base64,([A-Za-z0-9+/=]+)'>")
 
 
@@ -76,7 +76,8 @@ def test_report_content(report_file):
     assert text.startswith("<!DOCTYPE html>")
     found = figures_in(text)
     assert sorted(found) == sorted(["msd", "starts", "exponent", "aging", "trajectories",
-                                    "residence"])
+                                    "residence", "displacement_pdf", "kurtosis",
+                                    "moment_spectrum"])
     for name, png in found.items():
         assert png[:8] == b"\x89PNG\r\n\x1a\n", name
         assert len(png) > 10_000, name  # a drawn figure, not an empty canvas
@@ -86,7 +87,7 @@ def test_report_content(report_file):
                     "<h3>Regimes</h3>", "<h3>Crossover times</h3>",
                     "Effective diffusivity (estimate [95% confidence interval])",
                     "Provenance", "Resolved study", "start &#x27;corner&#x27;",
-                    "run.seed</th><td>20261202<"):  # a seed is printed whole, not 2.026e+07
+                    "random seed</th><td>20261202<"):  # a seed is printed whole, not 2.026e+07
         assert snippet in text, snippet
     assert f"eddyhop {eddyhop.__version__}" in text
     # the D_eff row of each start holds an estimate followed by [lower, upper]
@@ -105,7 +106,7 @@ def test_report_file_is_written_atomically(report_file):
 def test_report_of_a_sweep(sweep_file, tmp_path):
     out = write_report(sweep_file, tmp_path / "sweep.html")
     text = out.read_text(encoding="utf-8")
-    assert sorted(figures_in(text)) == ["deff_peclet", "exponent_map"]
+    assert sorted(figures_in(text)) == ["collapse", "deff_peclet", "exponent_map"]
     assert "sweep report" in text
     assert "swept: peclet" in text and "0.5, 2, 8" in text
     assert text.count("peclet = ") >= 3  # one D_eff row per swept value
@@ -113,6 +114,15 @@ def test_report_of_a_sweep(sweep_file, tmp_path):
     # 256 particles per point: only some points reach a confirmed diffusive regime, and the
     # report says so instead of presenting a fit over them
     assert "No scaling fit" in text or "undetermined" in text
+    # the summary opens the page: scaling lines, then regimes and crossovers at every point
+    assert text.index("id='summary'") < text.index("id='warnings'")
+    assert "Regimes at each swept point" in text
+    assert text.count("<td>peclet = ") >= 3
+    shown = text[:text.index("id='provenance'")]
+    for internal in ("ShortRunWarning", "settled->diffusive", "deff_converged =",
+                     "run.particles"):
+        assert internal not in shown, internal
+    assert shown.count("Run too short at") <= 1  # one warning, naming every point
 
 
 def test_warnings_step_size_and_short_run(result):

@@ -13,7 +13,7 @@ import click
 # Modules under eddyhop.cli that each define `command` (a click.Command).  Add one line to
 # add a command.
 COMMANDS = ["run", "demo", "validate", "info", "families", "plot", "report", "sweep", "merge",
-            "analyse", "reference", "tracks", "cite"]
+            "analyse", "reference", "tracks", "cite", "compare"]
 
 
 # set to any value to let unexpected exceptions through with their traceback

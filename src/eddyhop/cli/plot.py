@@ -33,17 +33,28 @@ def _formats(text: str) -> tuple:
               help="Folder for the figures (created if missing). [default: next to RESULT]")
 @click.option("--figure", "-f", "names", multiple=True,
               help="Figure to draw (repeatable): msd, starts, exponent, aging, trajectories, "
-                   "residence, deff_peclet, exponent_map. [default: every figure the file "
-                   "supports]")
+                   "residence, displacement_pdf, kurtosis, moment_spectrum, deff_peclet, "
+                   "exponent_map, collapse. [default: every figure the file supports]")
 @click.option("--format", "formats", default="png,pdf", show_default=True,
               help="Comma-separated file formats: png, pdf, svg.")
 @click.option("--dpi", type=int, default=150, show_default=True,
               help=f"Resolution of PNGs, {DPI_RANGE[0]} to {DPI_RANGE[1]}.")
 @click.option("--list", "list_only", is_flag=True,
               help="List the figures RESULT supports and exit.")
+@click.option("--size", type=click.Choice(["single", "double"]), default=None,
+              help="Journal column width: single (3.4 in) or double (7.0 in). [default: the "
+                   "figure's own size]")
+@click.option("--style", type=click.Choice(["screen", "print"]), default="screen",
+              show_default=True, help="print: smaller serif type and thinner lines for papers.")
+@click.option("--units", "axis_units", type=click.Choice(["model", "natural"]),
+              default="model", show_default=True,
+              help="natural: time as t·Uk and lengths in units of 1/k (MSD·k²).")
+@click.option("--data", "with_data", is_flag=True,
+              help="Also write the numbers behind each figure as <stem>_<figure>_data.nc.")
 @replace_option
 @friendly_errors
-def command(result, out_dir, names, formats, dpi, list_only, replace):
+def command(result, out_dir, names, formats, dpi, list_only, size, style, axis_units,
+            with_data, replace):
     """Draw figures of RESULT (a run, analysed run or merged sweep netCDF file).
 
     \b
@@ -90,7 +101,31 @@ def command(result, out_dir, names, formats, dpi, list_only, replace):
                              default=out_dir is None)
             else:  # a new folder: nothing to replace, but not inside a sweep's own files
                 check_not_in_sweep(file)
-    target.mkdir(exist_ok=True)
-    for name, figure in figures_for(ds, chosen):
-        for path in save_figure(figure, target / f"{stem}_{name}", formats=fmts, dpi=dpi):
-            click.echo(f"wrote {path}")
+        if with_data:
+            file = target / f"{stem}_{name}_data.nc"
+            if target.is_dir():
+                guard_output(file, kind="figure_data", inputs=[result], replace=replace,
+                             default=out_dir is None)
+            else:
+                check_not_in_sweep(file)
+    from ..presentation.plots.paper import figure_data, figure_style, natural_units, resize
+    from ..results.io import write_netcdf
+
+    if axis_units == "natural":
+        ds = natural_units(ds)
+    from ..errors import InputDataError
+
+    with figure_style(style):
+        try:  # every figure is drawn before any is written: no half-written set
+            drawn = list(figures_for(ds, chosen))
+        except InputDataError as exc:
+            raise InputDataError(f"{Path(result).name}: {exc}") from None
+        target.mkdir(exist_ok=True)
+        for name, figure in drawn:
+            if size:
+                resize(figure, size)
+            for path in save_figure(figure, target / f"{stem}_{name}", formats=fmts, dpi=dpi):
+                click.echo(f"wrote {path}")
+            if with_data:
+                path = write_netcdf(figure_data(figure), target / f"{stem}_{name}_data.nc")
+                click.echo(f"wrote {path}")

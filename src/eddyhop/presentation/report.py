@@ -25,6 +25,7 @@ from .. import __version__
 from ..analysis.verdicts import flag_meaning
 from ..errors import EddyhopError
 from ..results.io import atomic_write_text
+from .text import transition_words
 
 CAUTION = ("Research estimate from an idealised model flow. These numbers are not a validated "
            "engineering correlation and are not for the design of real equipment: for heat or "
@@ -48,7 +49,17 @@ figure{margin:1.2em 0;border:1px solid #e3e3e3;padding:.6em;background:#fff}
 figure img{max-width:100%;height:auto;display:block;margin:0 auto}
 figcaption{color:#444;font-size:.9em;margin-top:.4em}
 pre{background:#f6f8fa;padding:.7em;overflow-x:auto;font-size:.85em}
-nav a{margin-right:1em}
+nav a{margin-right:1em;display:inline-block}
+.table-scroll{overflow-x:auto;max-width:100%;-webkit-overflow-scrolling:touch}
+.table-scroll table{margin:.3em 0}
+.summary{border-left:5px solid #0072B2;background:#f3f8fc;padding:.4em 1em;overflow-wrap:anywhere}
+.summary ul{margin:.2em 0;padding-left:1.3em}.summary-head{margin:.6em 0 .2em}
+strong.alert{color:#fff;background:#B04A00;padding:0 .25em;border-radius:2px}
+figure img{cursor:zoom-in}
+figure.zoom{position:fixed;inset:0;margin:0;z-index:10;overflow:auto;background:#fff;
+border:0;cursor:zoom-out}
+figure.zoom img{max-width:none;width:auto;cursor:zoom-out}
+@media (max-width:600px){body{padding:.6em .7em}table{font-size:.82em}}
 """
 
 
@@ -78,7 +89,8 @@ def _table(header, rows, numeric_from: int = 1) -> str:
             css = ' class="num"' if i >= numeric_from else ""
             cells.append(f"<td{css}>{cell}</td>")
         body.append("<tr>" + "".join(cells) + "</tr>")
-    return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+    return (f"<div class='table-scroll'><table><thead><tr>{head}</tr></thead>"
+            f"<tbody>{''.join(body)}</tbody></table></div>")
 
 
 def _png(figure, dpi: int = 110) -> str:
@@ -145,7 +157,10 @@ def run_warnings(ds) -> list[str]:
     for key, prefix in (("step_size_warnings", "Large time step: "), ("sweep_warnings", "")):
         text = str(ds.attrs.get(key, "none") or "none")
         if text != "none":
-            messages += [f"{prefix}{m.strip()}" for m in text.split(" | ") if m.strip()]
+            notes = [m.strip() for m in text.split(" | ") if m.strip()]
+            if "deff_converged" in ds.variables:  # said once below, from the flags
+                notes = [m for m in notes if "ShortRunWarning" not in m]
+            messages += [f"{prefix}{plain_words(m)}" for m in notes]
     if "deff_converged" in ds.variables:
         flags = ds["deff_converged"]
         ratios = ds["deff_slope_ratio"] if "deff_slope_ratio" in ds.variables else None
@@ -162,25 +177,35 @@ def run_warnings(ds) -> list[str]:
             return ", ".join(f"{dim} = {_short(ds[dim].values[i]) if dim in ds.coords else i}"
                              for dim, i in zip(flags.dims, index)) or "this run"
 
-        for index in places("too_short"):
-            ratio = "" if ratios is None else (
-                f" (growth rate of var_x + var_y in the late half of the window over the "
-                f"early half: {float(ratios.values[index]):.2f}, not 1)")
-            messages.append(f"Run too short at {where(index)}: the spread has not reached "
+        def at(indices):  # one warning names every point it concerns
+            return "; ".join(where(index) for index in indices)
+
+        short = places("too_short")
+        if short:
+            finite = ratios is not None and all(
+                np.isfinite(float(ratios.values[index])) for index in short)
+            ratio = "" if not finite else (
+                " (growth rate of the spread var_x + var_y in the late half of the window "
+                "over the early half: " + ", ".join(
+                    f"{float(ratios.values[index]):.2f}" for index in short) + "; 1 when "
+                "diffusive)")
+            messages.append(f"Run too short at {at(short)}: the spread has not reached "
                             f"linear growth over the D_eff fit window{ratio}, so D_eff is not "
-                            "yet a long-time limit; increase run.t_end.")
-        for index in places("undetermined"):
-            messages.append(f"Diffusive regime undetermined at {where(index)}: the growth rate "
+                            "yet a long-time limit; increase the run's end time (run.t_end).")
+        noisy = places("undetermined")
+        if noisy:
+            messages.append(f"Diffusive regime undetermined at {at(noisy)}: the growth rate "
                             "of the spread is too noisy (3 standard errors exceed the "
                             "tolerance) to show linear growth over the D_eff fit window; use "
-                            "more particles or a longer run before treating D_eff as a "
+                            "more tracers or a longer run before treating D_eff as a "
                             "long-time limit.")
-        for index in places("bounded"):
-            messages.append(f"Bounded spread at {where(index)}: the variance about the mean "
+        bounded = places("bounded")
+        if bounded:
+            messages.append(f"Bounded spread at {at(bounded)}: the variance about the mean "
                             "displacement does not grow at late times, so no effective "
                             "diffusivity is claimed (D values are NaN). With molecular "
                             "diffusion (kappa > 0) this is a plateau longer than the run; "
-                            "increase run.t_end.")
+                            "increase the run's end time (run.t_end).")
     elif "msd" in ds and "time" in ds.coords and set(ds["msd"].dims) <= {"time", "start"}:
         from .text import late_slopes
 
@@ -195,6 +220,24 @@ def run_warnings(ds) -> list[str]:
     return messages
 
 
+WARNING_WORDS = {"ShortRunWarning": "run too short", "StepBiasWarning": "step-size bias",
+                 "StepSizeWarning": "large time step", "ResolutionWarning": "resolution"}
+
+
+def plain_words(text: str) -> str:
+    """``text`` with warning class names ("(ShortRunWarning)") said in words."""
+    import re
+
+    def words(match):
+        name = match.group(1)
+        return WARNING_WORDS.get(name) or re.sub(r"(?<!^)(?=[A-Z])", " ", name[:-7]).lower()
+
+    text = re.sub(r"\b([A-Z][A-Za-z]*Warning)\b", words, text)
+    # a numeric flag code beside its word: keep the word only
+    return re.sub(r"\b\w+ = -?\d+ \((\w+)\)", lambda m: m.group(1).replace("_", " "),
+                  text)
+
+
 def _short(value) -> str:
     try:
         return f"{float(value):.4g}"
@@ -203,6 +246,10 @@ def _short(value) -> str:
 
 
 # ---- sections --------------------------------------------------------------------------------
+RUN_WORDS = {"particles": "tracers in the ensemble", "t_end": "end time of the run",
+             "n_times": "number of output times", "spacing": "spacing of the output times",
+             "seed": "random seed", "batches": "batches for the error estimates",
+             "tracked": "tracers whose paths are kept"}
 def _parameters_section(ds) -> str:
     study = _study(ds)
     attrs = ds.attrs
@@ -215,7 +262,8 @@ def _parameters_section(ds) -> str:
     flow = study.get("flow", {}).get("params") or flow_parameters(ds)[1]
     flow = flow if isinstance(flow, dict) else {}
     for name, value in flow.items():
-        rows.append((f"flow.{name}", _e(value) if isinstance(value, list) else _number(value)))
+        rows.append((f"flow parameter {name}", _e(value) if isinstance(value, list)
+                     else _number(value)))
     for name, value in attrs.items():  # data-driven flows: the family's field report
         if name.startswith("field_"):
             rows.append((f"{attrs.get('flow_family', 'flow')} {name.replace('_', ' ', 1)}",
@@ -233,9 +281,9 @@ def _parameters_section(ds) -> str:
         ("time step dt", _number(attrs.get("dt"))),
     ]
     run = study.get("run", {})
-    for key in ("particles", "t_end", "n_times", "spacing", "seed", "batches", "tracked"):
+    for key, words in RUN_WORDS.items():
         if key in run:
-            rows.append((f"run.{key}", _number(run[key]) if not isinstance(run[key], str)
+            rows.append((words, _number(run[key]) if not isinstance(run[key], str)
                          else _e(run[key])))
     for region in study.get("starts", []):
         extra = ", ".join(f"{_e(k)} = {_number(v)}" for k, v in region.items()
@@ -256,7 +304,8 @@ def _parameters_section(ds) -> str:
         values = ", ".join(_number(v) for v in np.atleast_1d(ds[dim].values))
         rows.append((f"swept: {dim}", values))
     body = "".join(f"<tr><th>{_e(k)}</th><td>{v}</td></tr>" for k, v in rows)
-    return f"<h2 id='parameters'>Study parameters</h2><table><tbody>{body}</tbody></table>"
+    return (f"<h2 id='parameters'>Study parameters</h2><div class='table-scroll'><table>"
+            f"<tbody>{body}</tbody></table></div>")
 
 
 def _results_section(ds) -> str:
@@ -459,7 +508,7 @@ def scaling_html(ds) -> str:
             if not np.isfinite(value) and points == 0:
                 continue
             where = ", ".join(
-                str(exponent[d].values[i]) if d == "transition" else
+                transition_words(exponent[d].values[i]) if d == "transition" else
                 f"{d} = {_short(exponent[d].values[i])}" if d in exponent.coords else
                 f"{d}[{i}]" for d, i in zip(exponent.dims, index))
             verdict = flag_meaning(ds[f"{name}_fit_verdict"], at("fit_verdict", index)) \
@@ -507,7 +556,8 @@ def _figures_section(ds, names=None) -> tuple[str, list[str]]:
         data = _png(figure)
         description = FIGURES[name][2]
         blocks.append(
-            f"<figure id='fig-{_e(name)}' data-figure='{_e(name)}'>"
+            f"<figure id='fig-{_e(name)}' data-figure='{_e(name)}' "
+            "onclick=\"this.classList.toggle('zoom')\" title='click to enlarge'>"
             f"<img alt='{_e(description)}' src='data:image/png;base64,{data}'>"
             f"<figcaption><b>{_e(name)}</b>: {_e(description)}</figcaption></figure>")
         included.append(name)
@@ -535,14 +585,14 @@ def _provenance_section(ds, source_name) -> str:
             resolved = json.dumps(json.loads(resolved), indent=2, sort_keys=True)
         except ValueError:
             pass
-    return (f"<h2 id='provenance'>Provenance</h2><table class='provenance'><tbody>{body}"
-            "</tbody></table>"
+    return ("<h2 id='provenance'>Provenance</h2><div class='table-scroll'>"
+            f"<table class='provenance'><tbody>{body}</tbody></table></div>"
             + (f"<details><summary>Study file as run</summary><pre>{_e(toml)}</pre></details>"
                if toml and toml != "none" else "")
             + (f"<details><summary>Resolved study (every default filled in)</summary>"
                f"<pre>{_e(resolved)}</pre></details>" if resolved else "")
-            + f"<details><summary>All global attributes</summary><table><tbody>{every}"
-              f"</tbody></table></details>")
+            + f"<details><summary>All global attributes</summary><div class='table-scroll'>"
+              f"<table><tbody>{every}</tbody></table></div></details>")
 
 
 # ---- assembly --------------------------------------------------------------------------------
@@ -568,8 +618,13 @@ def maybe_analyse(ds):
 
 
 def build_report(ds, *, source_name: str | None = None, figures=None,
-                 analyse: bool = True) -> str:
-    """The HTML text of the report of ``ds`` (a result or a merged sweep Dataset)."""
+                 analyse: bool = True, reference: bool = True) -> str:
+    """The HTML text of the report of ``ds`` (a result or a merged sweep Dataset).
+
+    ``reference``: solve the homogenization cell problem for the summary's reference value
+    (a few seconds; see :func:`eddyhop.presentation.analysis_lines`)."""
+    from .report_summary import summary_html
+
     note = ""
     if analyse:
         ds, note = maybe_analyse(ds)
@@ -589,11 +644,13 @@ def build_report(ds, *, source_name: str | None = None, figures=None,
         f"<h1>{_e(title)}</h1>",
         f"<p class='meta'>eddyhop {__version__} {kind} report · generated {now}"
         + (f" · from {_e(source_name)}" if source_name else "") + "</p>",
-        "<nav><a href='#parameters'>Parameters</a><a href='#results'>Results</a>"
+        "<nav><a href='#summary'>Summary</a><a href='#parameters'>Parameters</a>"
+        "<a href='#results'>Results</a>"
         "<a href='#figures'>Figures</a><a href='#provenance'>Provenance</a></nav>",
         f"<div class='caution' id='caution'><b>Caution.</b> {_e(CAUTION)}</div>",
-        f"<h2 id='warnings'>Warnings</h2>{warn_html}",
         f"<p class='meta'>{_e(note)}</p>" if note else "",
+        summary_html(ds, reference=reference),
+        f"<h2 id='warnings'>Warnings</h2>{warn_html}",
         _parameters_section(ds),
         _results_section(ds),
         figures_html,
@@ -614,7 +671,8 @@ def _is_sweep(ds) -> bool:
     return sweep_dimension(ds) is not None
 
 
-def write_report(source, out, *, figures=None, analyse: bool = True) -> Path:
+def write_report(source, out, *, figures=None, analyse: bool = True,
+                 reference: bool = True) -> Path:
     """Write the report of ``source`` (a Dataset or a netCDF path) to ``out`` atomically."""
     from ..results.io import check_output_path, open_result, require_kind
 
@@ -627,9 +685,28 @@ def write_report(source, out, *, figures=None, analyse: bool = True) -> Path:
                           "report")
     else:
         ds = source
-    text = build_report(ds, source_name=source_name, figures=figures, analyse=analyse)
+    text = build_report(ds, source_name=source_name, figures=figures, analyse=analyse,
+                        reference=reference)
     from ..results.provenance import html_meta  # software, command, input checksum in <head>
 
     text = text.replace("<head>", "<head>" + html_meta(
         source if isinstance(source, (str, os.PathLike)) else None), 1)
     return atomic_write_text(out, text)
+
+
+def write_tables(source, csv_path, latex_path, *, analyse: bool = True):
+    """Write the summary table of ``source`` (a path or Dataset) as CSV and LaTeX
+    (atomically); analyses a copy in memory when needed.  Returns the written paths."""
+    import os
+
+    from ..results.io import open_result
+    from .report_summary import rows_csv, rows_latex, summary_rows
+
+    ds = open_result(source) if isinstance(source, (str, os.PathLike)) else source
+    if analyse:
+        ds, _ = maybe_analyse(ds)
+    rows = summary_rows(ds)
+    title = str(ds.attrs.get("title", "eddyhop result"))
+    return [atomic_write_text(csv_path, rows_csv(rows)),
+            atomic_write_text(latex_path, rows_latex(rows, caption=f"{title}: effective "
+                                                                   "diffusivity"))]

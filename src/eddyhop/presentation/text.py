@@ -119,8 +119,27 @@ def _start_lines(ds, part, label, cell):
     out += _diffusivity_lines(ds, part, cell)
     out += _step_check_lines(part)
     out += _drift_lines(part)
+    out += _hopping_lines(ds, part)
     out += _fit_verdict_lines(part)
     return out
+
+
+def _hopping_lines(ds, part):
+    """Cell hopping and trapping: hop rate, mean residence time, mean flight length."""
+    cells = []
+    for name, what in (("hop_rate", "cell changes per tracer per unit time"),
+                       ("residence_mean", "mean residence time in a cell"),
+                       ("flight_mean", "mean flight between traps")):
+        value = _scalar(part, name)
+        if value is None or not _finite(value):
+            continue
+        units = str(ds[name].attrs.get("units", "1")) if name in ds.variables else "1"
+        shown = " eddy sides" if name == "flight_mean" else \
+            "" if units in ("", "1") else f" {units}"
+        cells.append(f"{what} {_g(value, 3)}{shown}")
+    if cells and not _NOISE_FREE.get():
+        cells[-1] += " (counted from the tracked cells; no error estimate)"
+    return ["  hopping: " + "; ".join(cells)] if cells else []
 
 
 def _regimes(part):
@@ -488,7 +507,7 @@ def _fit_lines(ds, name, nearest_scale):
         where = []
         for d, i in zip(exponent.dims, index):
             if d == "transition":
-                where.append(str(exponent[d].values[i]))
+                where.append(transition_words(exponent[d].values[i]))
             elif d in exponent.coords:
                 where.append(f"{d}={exponent[d].values[i]}")
             else:
@@ -526,6 +545,15 @@ def _fit_lines(ds, name, nearest_scale):
             line += "; " + nearest_scale(value, lower, upper)
         out.append(line)
     return out
+
+
+def transition_words(value) -> str:
+    """A crossover-scaling transition label in words: "a->b" → "a → b"; the last crossover
+    into the diffusive regime ("settled->diffusive") named as such."""
+    text = str(value)
+    if text == "settled->diffusive":
+        return "last crossover into the diffusive regime"
+    return text.replace("->", ARROW).replace("_", "-")
 
 
 # ---- the one late log-log slope ------------------------------------------------------------------

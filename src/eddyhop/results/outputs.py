@@ -38,6 +38,9 @@ KIND_TEXT = {
     "report": "an eddyhop HTML report",
     "figure": "a figure file of the same format",
     "trajectories": "a CF trajectory file written by eddyhop run",
+    "table": "an eddyhop table (CSV or LaTeX)",
+    "comparison": "an eddyhop comparison netCDF file",
+    "figure_data": "an eddyhop figure-data netCDF file",
 }
 RESULT_KINDS = ("monte_carlo", "reference", "measured")
 REPLACE_HINT = "choose another name or pass --replace to replace it"
@@ -130,7 +133,8 @@ FIGURE_MAGIC = {".png": (b"\x89PNG",), ".pdf": (b"%PDF",)}
 def is_kind(path: Path, kind: str) -> bool:
     """Whether the existing file ``path`` is an output of ``kind`` (so replacing it loses
     nothing the command could not write again)."""
-    if kind in ("result", "sweep", "trajectories"):
+    if kind in ("result", "sweep", "trajectories", "comparison",
+                "figure_data"):
         found = _netcdf_kind(path)
         return found in RESULT_KINDS if kind == "result" else found == kind
     try:
@@ -138,6 +142,8 @@ def is_kind(path: Path, kind: str) -> bool:
             head = stream.read(4096)
     except OSError:
         return False
+    if kind == "table":  # eddyhop writes a first comment line naming itself
+        return head.lstrip().startswith((b"# eddyhop", b"% eddyhop"))
     if kind == "report":
         return head.lstrip().lower().startswith(b"<!doctype html") and \
             b"<meta name='generator' content='eddyhop" in head

@@ -48,18 +48,118 @@ def new_figure(nrows=1, ncols=1, *, width=6.4, height=4.4, **subplot_kw):
     return figure, axes
 
 
-def units_text(units) -> str:
+# What units "1" means for a dimensional quantity of a study without [output] length_unit /
+# time_unit: the model's own units (those of 1/k and 1/(U k)), not "dimensionless".
+MODEL_UNITS = {"time": "model time units", "length": "model length units",
+               "length2": "model length units²", "rate": "per model time unit",
+               "per_length": "per model length unit"}
+# Variable names → the kind of quantity they hold (for units "1").
+QUANTITY_KINDS = {
+    "time": "time", "lag": "time", "aging_time": "time", "residence_time": "time",
+    "crossover_time": "time", "tamsd_duration": "time",
+    "msd": "length2", "msd_x": "length2", "msd_y": "length2", "var_x": "length2",
+    "var_y": "length2", "aged_msd": "length2", "tamsd": "length2", "tamsd_mean": "length2",
+    "track_x": "length", "track_y": "length", "flight_length": "length",
+    "residence_pdf": "rate",
+}
+# ASCII formulas in long names → mathtext (the package's own spellings).
+MATH_TEXT = (("<|X(t)-X(0)|^2>", r"$\langle|\mathbf{X}(t)-\mathbf{X}(0)|^2\rangle$"),
+             ("<|X(t_a+lag)-X(t_a)|^2>",
+              r"$\langle|\mathbf{X}(t_a+\tau)-\mathbf{X}(t_a)|^2\rangle$"),
+             ("<dx^2> - <dx>^2", r"$\langle\Delta x^2\rangle-\langle\Delta x\rangle^2$"),
+             ("<dy^2> - <dy>^2", r"$\langle\Delta y^2\rangle-\langle\Delta y\rangle^2$"),
+             ("d ln variance / d ln t", r"$\alpha = d\ln\sigma^2/d\ln t$"),
+             ("d log MSD / d log t", r"$\alpha = d\ln\mathrm{MSD}/d\ln t$"),
+             ("var_x + var_y", r"$\sigma_x^2+\sigma_y^2$"),
+             ("var_x", r"$\sigma_x^2$"), ("var_y", r"$\sigma_y^2$"))
+_SUPERSCRIPTS = str.maketrans("0123456789-", "⁰¹²³⁴⁵⁶⁷⁸⁹⁻")
+
+
+def pretty_units(units: str) -> str:
+    """CF-style unit text with exponents as superscripts: "mm2 s-1" → "mm² s⁻¹"."""
+    import re
+
+    return re.sub(r"(?<=[A-Za-zµ])(-?\d+)\b", lambda m: m.group(1).translate(_SUPERSCRIPTS),
+                  str(units))
+
+
+def units_text(units, kind: str | None = None) -> str:
+    """" [units]" for a label; for units "1", " (<model units>)" when ``kind`` says the
+    quantity has a dimension (a time, a length, …), else " (dimensionless)"."""
     if units is None or units == "":
         return ""
     if str(units) == "1":
-        return " (dimensionless)"
-    return f" [{units}]"
+        return f" ({MODEL_UNITS[kind]})" if kind in MODEL_UNITS else " (dimensionless)"
+    return f" [{pretty_units(units)}]"
 
 
-def label(da, fallback: str | None = None, width: int = 48) -> str:
-    """Axis label "long name [units]" from a DataArray's attributes, wrapped to ``width``."""
+def math_text(text: str) -> str:
+    """``text`` with the package's ASCII formulas (MATH_TEXT) written as mathtext."""
+    for ascii_form, math in MATH_TEXT:
+        text = text.replace(ascii_form, math)
+    return text
+
+
+def quantity_kind(name) -> str | None:
+    """The kind of quantity a variable named ``name`` holds (see QUANTITY_KINDS)."""
+    name = str(name or "")
+    if name in QUANTITY_KINDS:
+        return QUANTITY_KINDS[name]
+    if name.startswith(("msd", "var_", "aged_msd")):
+        return "length2"
+    return None
+
+
+def label(da, fallback: str | None = None, width: int = 48, kind: str | None = None) -> str:
+    """Axis label "long name [units]" from a DataArray's attributes, wrapped to ``width``;
+    package formulas as mathtext, units "1" of a dimensional quantity said as model units."""
     name = da.attrs.get("long_name") or fallback or da.name or ""
-    return textwrap.fill(f"{name}{units_text(da.attrs.get('units'))}", width)
+    kind = kind or quantity_kind(da.name)
+    text = math_text(str(name)) if da.attrs.get("long_name") or fallback else str(name)
+    units = units_text(da.attrs.get("units"), kind)
+    if "$" in text:  # never break inside a formula
+        return text + ("\n" + units.strip() if len(text) + len(units) > width else units)
+    return textwrap.fill(f"{text}{units}", width)
+
+
+def math_label(symbol: str, units, kind: str) -> str:
+    """A mathtext ``symbol`` with its units (model units for "1")."""
+    return f"{symbol}{units_text(units, kind)}"
+
+
+def time_label(units) -> str:
+    return f"time since release $t${units_text(units, 'time')}"
+
+
+class PlainLogMinor:
+    """Minor-tick labels of a log axis spanning under ~1.5 decades, written plainly ("40",
+    "0.2") at mantissas 2 and 5, instead of "4×10¹"; none on wider axes."""
+
+    def __new__(cls):
+        from matplotlib.ticker import Formatter
+
+        class _Formatter(Formatter):
+            def __call__(self, x, pos=None):
+                if x <= 0 or self.axis is None:
+                    return ""
+                low, high = sorted(self.axis.get_view_interval())
+                if low <= 0 or high / low > 30:
+                    return ""
+                mantissa = round(x / 10 ** np.floor(np.log10(x)), 6)
+                return f"{x:g}" if mantissa in (2.0, 5.0) else ""
+
+        return _Formatter()
+
+
+def tidy_log_axes(ax) -> None:
+    """Log axes of ``ax`` labelled as 10ⁿ at decades and plainly at 2 and 5 within a
+    narrow range (never "4×10¹")."""
+    from matplotlib.ticker import LogFormatterMathtext
+
+    for axis, scale in ((ax.xaxis, ax.get_xscale()), (ax.yaxis, ax.get_yscale())):
+        if scale == "log":
+            axis.set_major_formatter(LogFormatterMathtext())
+            axis.set_minor_formatter(PlainLogMinor())
 
 
 def require(ds, names, what: str, how: str) -> None:
@@ -117,7 +217,8 @@ def caption(figure, text: str) -> None:
     engine = figure.get_layout_engine()
     if engine is not None and hasattr(engine, "set"):
         engine.set(rect=(0.0, 0.03, 1.0, 0.97))
-    figure.text(0.005, 0.004, text, fontsize=6.5, color=GUIDE, ha="left", va="bottom")
+    figure.text(0.005, 0.004, text, fontsize=6.5, color=GUIDE, ha="left", va="bottom",
+                gid="provenance_caption")
 
 
 def provenance_line(ds) -> str:

@@ -22,6 +22,7 @@ from ._style import (
     start_labels,
     start_name,
     styles,
+    tidy_log_axes,
     title,
 )
 
@@ -46,7 +47,7 @@ def aging_figure(ds, *, start=None):
             y = part["msd"].values
             good = positive(t, y)
             ax.plot(t[good], y[good], color=GUIDE, lw=1.4, ls=(0, (4, 3)),
-                    label="t_a = 0 (unaged MSD)")
+                    label="$t_a$ = 0 (unaged MSD)")
         for index, (colour, style) in zip(range(aging.size), styles()):
             y = part["aged_msd"].isel(aging_time=index).values
             good = positive(lag, y)
@@ -54,7 +55,7 @@ def aging_figure(ds, *, start=None):
                 continue
             any_finite = True
             ax.plot(lag[good], y[good], color=colour, ls=style, lw=1.8, marker="o", ms=2.5,
-                    label=f"t_a = {aging[index]:g}")
+                    label=f"$t_a$ = {aging[index]:g}")
             if "aged_msd_se" in part:
                 se = np.nan_to_num(part["aged_msd_se"].isel(aging_time=index).values)
                 low = np.maximum(y - 2 * se, y * 1e-3)
@@ -65,12 +66,15 @@ def aging_figure(ds, *, start=None):
         ax.grid(True, which="major", alpha=0.3)
         ax.set_xlabel(label(ds["lag"]))
         ax.set_title(f"start: {start_name(ds, label_)}", fontsize=9)
-        ax.legend(fontsize=7.5, loc="upper left")
+        tidy_log_axes(ax)
     if not any_finite:
         from ...errors import InputDataError
 
         raise InputDataError(f"{what}: aged_msd holds no finite positive values")
     axes[0].set_ylabel(label(ds["aged_msd"], width=40))
+    handles, labels = axes[0].get_legend_handles_labels()
+    figure.legend(handles, labels, loc="outside right upper", fontsize=7.5,
+                  frameon=False)  # beside the panels, never over the data
     figure.suptitle(title(f"Aging — {ds.attrs.get('title', '')}", 60 * len(starts)),
                     fontsize=10)
     caption(figure, provenance_line(ds))

@@ -8,6 +8,12 @@ Each entry is (figure function, variables it needs, one-line description).  A fi
 from __future__ import annotations
 
 from .aging import aging_figure
+from .distributions import (
+    collapse_figure,
+    displacement_pdf_figure,
+    kurtosis_figure,
+    moment_spectrum_figure,
+)
 from .msd import exponent_figure, msd_figure, starts_figure
 from .residence import residence_figure
 from .sweep import deff_peclet_figure, exponent_map_figure, sweep_dimension
@@ -23,12 +29,20 @@ FIGURES = {
                      "tracked tracers over ψ contours and separatrices"),
     "residence": (residence_figure, ("residence_count",),
                   "cell residence-time and flight-length distributions"),
+    "displacement_pdf": (displacement_pdf_figure, ("displacement_pdf_x", "displacement_pdf_y"),
+                         "densities of the scaled displacement against a Gaussian"),
+    "kurtosis": (kurtosis_figure, ("kurtosis_x", "kurtosis_y"),
+                 "kurtosis of the displacements against time"),
+    "moment_spectrum": (moment_spectrum_figure, ("moment_exponent_over_order",),
+                        "moment spectrum ν(q)/q against the order q"),
     "deff_peclet": (deff_peclet_figure, (), "D_eff against Pe with low/high-Pe asymptotes"),
     "exponent_map": (exponent_map_figure, ("alpha",),
                      "local exponent α(t, Pe) as a map over a sweep"),
+    "collapse": (collapse_figure, ("msd",),
+                 "a sweep's MSD curves against the boundary-layer time"),
 }
 
-SWEEP_ONLY = ("deff_peclet", "exponent_map")
+SWEEP_ONLY = ("deff_peclet", "exponent_map", "collapse")
 
 
 def _has(ds, names):

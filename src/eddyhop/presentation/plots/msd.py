@@ -16,6 +16,7 @@ from ._style import (
     label,
     new_figure,
     positive,
+    pretty_units,
     provenance_line,
     require,
     require_finite,
@@ -23,37 +24,48 @@ from ._style import (
     start_labels,
     start_name,
     styles,
+    tidy_log_axes,
     title,
 )
 
 RUN_HINT = "make it with `eddyhop run STUDY.toml` (or eddyhop.simulate)"
 
 
-def _regime_note(ax, ds, start, where="lower right", starts=None):
+def _regime_note(ax, ds, start, where=None, starts=None):
     """Shade the regimes of ``start`` (or, given several ``starts``, draw each start's own
-    regimes as a strip); a second legend names the classes (and the start)."""
+    regimes as a strip); returns the legend entries naming the classes (a heading first)."""
+    from matplotlib.lines import Line2D
+
     if starts is not None and len(starts) > 1:
         colours = [colour for _, (colour, _) in zip(starts, styles())]
         bands = _regimes.strips(ax, ds, starts, colours)
         start = None
     else:
         bands = _regimes.shade(ax, ds, start)
-    if bands:
-        handles = [b for b in bands if b.get_label() and not b.get_label().startswith("_")]
-        handles += [line for line in ax.get_lines() if line.get_gid() == "crossover"][:1]
-        if "start" not in ds.dims:
-            heading = "regimes"
-        elif start is None:
-            heading = "regimes (strip per start)"
-        else:
-            heading = f"regimes (start {start_name(ds, start)})"
-        placement = {"loc": where}
-        if start is None and starts is not None:  # keep the strips visible
-            placement["bbox_to_anchor"] = (1.0, _regimes.strips_top(len(starts)))
-        legend = ax.legend(handles=handles, fontsize=7, title=heading, title_fontsize=7,
-                           framealpha=0.9, **placement)
-        ax.add_artist(legend)
-    return bands
+    if not bands:
+        return []
+    handles = [b for b in bands if b.get_label() and not b.get_label().startswith("_")]
+    handles += [line for line in ax.get_lines() if line.get_gid() == "crossover"][:1]
+    if "start" not in ds.dims:
+        heading = "regimes"
+    elif start is None:
+        heading = "regimes (a strip per start)"
+    else:
+        heading = f"regimes (start {start_name(ds, start)})"
+    return [Line2D([], [], ls="none", label=heading), *handles]
+
+
+def _legend(figure, handles):
+    """One legend right of the axes (start curves, then regime classes): never over data."""
+    from matplotlib.lines import Line2D
+
+    legend = figure.legend(handles=[Line2D([], [], ls="none", label="start region"), *handles],
+                           loc="outside right upper", fontsize=7.5, frameon=False,
+                           handlelength=2.2)
+    for text in legend.get_texts():  # headings in bold
+        if text.get_text() == "start region" or text.get_text().startswith("regimes"):
+            text.set_fontweight("bold")
+    return legend
 
 
 def _guide(ax, t, anchor_t, anchor_y, exponent, text, left=True):
@@ -78,7 +90,7 @@ def msd_figure(ds, *, variable: str = "msd", start=None, guides: bool = True,
     """
     what = f"the {variable} figure"
     require(ds, [variable, "time"], what, RUN_HINT)
-    figure, ax = new_figure()
+    figure, ax = new_figure(width=7.6)
     t = ds["time"].values
     starts = [start] if start is not None else start_labels(ds)
     drawn = []
@@ -97,8 +109,8 @@ def msd_figure(ds, *, variable: str = "msd", start=None, guides: bool = True,
             ax.fill_between(t[good], low[good], (y + 2 * se)[good], color=colour, alpha=0.18,
                             lw=0)
         drawn.append((t[good], y[good]))
-    if regimes:
-        _regime_note(ax, ds, start if start is not None else starts[0], starts=starts)
+    regime_handles = _regime_note(ax, ds, start if start is not None else starts[0],
+                                  starts=starts) if regimes else []
     if guides and drawn:
         tt, yy = drawn[0]
         early = tt[: max(3, len(tt) // 4)]
@@ -108,11 +120,11 @@ def msd_figure(ds, *, variable: str = "msd", start=None, guides: bool = True,
         _guide(ax, late, tt[-1], yy[-1] / 3.0, 1.0, "∝ t  diffusive", left=False)
     ax.set_xscale("log")
     ax.set_yscale("log")
+    tidy_log_axes(ax)
     ax.set_xlabel(label(ds["time"]))
     ax.set_ylabel(label(ds[variable]))
     ax.grid(True, which="major", alpha=0.3)
-    ax.legend(handles=handles, title="start region", fontsize=8, title_fontsize=8,
-              loc="upper left")
+    _legend(figure, handles + regime_handles)
     ax.set_title(title(ds.attrs.get("title", "")), fontsize=10)
     caption(figure, provenance_line(ds))
     return figure
@@ -154,13 +166,16 @@ def starts_figure(ds):
         bottom.axhline(1.0, color=GUIDE, lw=1.0, ls=(0, (4, 3)))
         bottom.annotate("molecular diffusion alone", (t[-1], 1.0), textcoords="offset points",
                         xytext=(-2, 4), fontsize=8, color=GUIDE, ha="right")
-        bottom.set_ylabel("apparent diffusivity over κ\n(var_x + var_y)/(4 κ t) (dimensionless)")
+        bottom.set_ylabel("apparent diffusivity over κ\n"
+                          r"$(\sigma_x^2+\sigma_y^2)/(4\kappa t)$ (dimensionless)")
     else:
-        bottom.set_ylabel(f"apparent diffusivity (var_x + var_y)/(4 t)"
+        bottom.set_ylabel(r"apparent diffusivity $(\sigma_x^2+\sigma_y^2)/(4t)$"
                           f"{_units_over_time(ds)}")
     top.set_ylabel(label(ds["msd"], width=34))
     bottom.set_xlabel(label(ds["time"]))
-    top.legend(title="start region", fontsize=8, title_fontsize=8, loc="upper left")
+    top.legend(title="start region", fontsize=8, title_fontsize=8, loc="upper left",
+               bbox_to_anchor=(1.01, 1.0), frameon=False)
+    tidy_log_axes(top)  # the shared time axis too; the lower y axis keeps 1-2-5 labels
     top.set_title(title(f"Start regions compared — {ds.attrs.get('title', '')}"), fontsize=10)
     caption(figure, provenance_line(ds))
     return figure
@@ -170,8 +185,8 @@ def _units_over_time(ds):
     length = ds["msd"].attrs.get("units", "1")
     time = ds["time"].attrs.get("units", "1")
     if length == "1" and time == "1":
-        return " (dimensionless)"
-    return f" [{length} / {time}]"
+        return " (model length units² per model time unit)"
+    return f" [{pretty_units(length)} / {pretty_units(time)}]"
 
 
 EXPONENT_NAMES = ("alpha", "local_exponent")
@@ -203,14 +218,16 @@ def exponent_figure(ds, *, start=None, regimes: bool = True):
     what = "the local-exponent figure"
     name = exponent_variable(ds)
     time_name = ds[name].dims[-1]
-    figure, ax = new_figure()
+    figure, ax = new_figure(width=7.6)
     t = ds[time_name].values
     starts = [start] if start is not None else start_labels(ds)
     handles = []
+    extremes = []
     for label_, (colour, style) in zip(starts, styles()):
         part = select_start(ds, label_)
         alpha = require_finite(part[name].values, name, what)
         good = np.isfinite(alpha) & (t > 0)
+        extremes.append(alpha[good])
         handles += ax.plot(t[good], alpha[good], color=colour, ls=style, lw=1.8,
                            label=start_name(ds, label_), gid=f"data_{start_name(ds, label_)}")
         se_name = f"{name}_se"
@@ -218,20 +235,28 @@ def exponent_figure(ds, *, start=None, regimes: bool = True):
             se = np.nan_to_num(part[se_name].values)
             ax.fill_between(t[good], (alpha - 2 * se)[good], (alpha + 2 * se)[good],
                             color=colour, alpha=0.18, lw=0)
-    for level, text in ((2.0, "ballistic"), (1.0, "diffusive"), (0.5, "α = ½")):
+            extremes += [(alpha - 2 * se)[good], (alpha + 2 * se)[good]]
+    from matplotlib.transforms import blended_transform_factory
+
+    edge = blended_transform_factory(ax.transAxes, ax.transData)
+    for level, text in ((2.0, "ballistic"), (1.0, "diffusive"), (0.5, r"$\alpha = 1/2$")):
         ax.axhline(level, color=GUIDE, lw=0.9, ls=(0, (4, 3)), zorder=1)
-        ax.annotate(text, (t[t > 0][0], level), textcoords="offset points", xytext=(2, 3),
-                    fontsize=8, color=GUIDE)
-    if regimes:
-        _regime_note(ax, ds, start if start is not None else starts[0], starts=starts)
+        # named in the margin right of the axes, never on a curve
+        ax.text(1.01, level, text, transform=edge, fontsize=7.5, color=GUIDE, va="center",
+                ha="left", gid=f"guide_label_{level:g}")
+    regime_handles = _regime_note(ax, ds, start if start is not None else starts[0],
+                                  starts=starts) if regimes else []
     ax.set_xscale("log")
-    top = max([2.4] + [float(np.nanmax(line.get_ydata())) + 0.15 for line in handles])
-    ax.set_ylim(-0.1, min(top, 3.5))
+    tidy_log_axes(ax)
+    # the axis holds every value of α and its ±2 SE band (α may dip below 0 when the spread
+    # shrinks, e.g. in a bounded or oscillating flow)
+    top = max([2.4] + [float(np.nanmax(y)) + 0.15 for y in extremes])
+    bottom = min([-0.1] + [float(np.nanmin(y)) - 0.1 for y in extremes])
+    ax.set_ylim(bottom, top)
     ax.set_xlabel(label(ds[time_name]))
     ax.set_ylabel(label(ds[name], fallback="local exponent d log MSD / d log t"))
     ax.grid(True, which="major", alpha=0.3)
-    ax.legend(handles=handles, title="start region", fontsize=8, title_fontsize=8,
-              loc="upper right")
+    _legend(figure, handles + regime_handles)
     ax.set_title(title(f"Local exponent — {ds.attrs.get('title', '')}"), fontsize=10)
     caption(figure, provenance_line(ds))
     return figure

@@ -146,12 +146,20 @@ def residence_figure(ds, *, start=None):
         axes[1].set_ylabel("probability density of flight lengths\n(per eddy side)")
         axes[1].set_title("Flight lengths (runs of quick hops)", fontsize=9)
     fitted = any(str(line.get_gid()).startswith("fit_") for line in axes[0].get_lines())
-    for ax, heading in zip(axes, ("start region" + (" and tail fits" if fitted else ""),
-                                  "start region")):
+    from ._style import tidy_log_axes
+
+    for ax in np.atleast_1d(axes):
         ax.set_xscale("log")
         ax.set_yscale("log")
+        tidy_log_axes(ax)
         ax.grid(True, which="major", alpha=0.3)
-        ax.legend(title=heading, fontsize=8, title_fontsize=8)
+    # one legend beside the panels (the start colours are shared), never over the data
+    handles, labels = np.atleast_1d(axes)[0].get_legend_handles_labels()
+    figure.legend(handles, [text.replace(" (rejected by the χ² test)", "\n(rejected by the χ² "
+                                         "test)") for text in labels],
+                  loc="outside right upper", fontsize=7,
+                  frameon=False, title="start region" + (" and tail fits" if fitted else ""),
+                  title_fontsize=7.5)
     figure.suptitle(title(f"Trapping statistics — {ds.attrs.get('title', '')}", 110),
                     fontsize=10)
     caption(figure, provenance_line(ds))

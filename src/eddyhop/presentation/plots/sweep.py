@@ -23,6 +23,7 @@ from ._style import (
     select_start,
     start_labels,
     start_name,
+    tidy_log_axes,
     title,
 )
 from .asymptotes import asymptotes
@@ -166,28 +167,46 @@ def deff_peclet_figure(ds, *, start=None, components=("xx", "yy")):
     kappa = _kappa(ds, pe_dim, family, params, convention)
     starts = [start] if start is not None else start_labels(ds)
     starts = [s for s in starts if s is not None] or [None]
-    figure, ax = new_figure()
+    figure, ax = new_figure(width=7.8)
     markers = {"xx": "o", "yy": "s", "xy": "^"}
-    colour_index = 0
-    for label_ in starts:
-        for component in wanted:
-            estimate, low, high = variables[component]
-            y = _reduce_to_pe(ds[estimate], pe_dim, label_) / kappa
-            if not np.isfinite(y).any():
-                raise InputDataError(f"{what}: {estimate} holds no finite values")
-            colour = PALETTE[colour_index % len(PALETTE)]
-            colour_index += 1
-            name = f"D_{component}/κ" + (f" ({label_})" if label_ is not None and len(starts) > 1
-                                        else "")
-            if low and high:
-                lo = _reduce_to_pe(ds[low], pe_dim, label_) / kappa
-                hi = _reduce_to_pe(ds[high], pe_dim, label_) / kappa
-                yerr = np.vstack([np.clip(y - lo, 0, None), np.clip(hi - y, 0, None)])
-                ax.errorbar(peclet, y, yerr=yerr, color=colour, marker=markers[component],
-                            ls="none", ms=5, capsize=3, label=name + " (CI)")
-            else:
-                ax.plot(peclet, y, color=colour, marker=markers[component], ls="none", ms=5,
-                        label=name)
+    series = [(label_, component) for label_ in starts for component in wanted]
+    # series at the same Pe are spread sideways by a few hundredths of a decade so that no
+    # marker hides another (the true Pe is the middle of each group)
+    offsets = 10.0 ** (0.018 * (np.arange(len(series)) - 0.5 * (len(series) - 1)))
+    status = _point_status(ds, pe_dim)
+    open_drawn = False
+    for index, (label_, component) in enumerate(series):
+        estimate, low, high = variables[component]
+        y = _reduce_to_pe(ds[estimate], pe_dim, label_) / kappa
+        if not np.isfinite(y).any():
+            raise InputDataError(f"{what}: {estimate} holds no finite values")
+        colour = PALETTE[index % len(PALETTE)]
+        name = f"$D_{{{component}}}/\\kappa$" + (f" ({label_})" if label_ is not None
+                                                 and len(starts) > 1 else "")
+        x = peclet * offsets[index]
+        confirmed = status(label_)
+        yerr = None
+        if low and high:
+            lo = _reduce_to_pe(ds[low], pe_dim, label_) / kappa
+            hi = _reduce_to_pe(ds[high], pe_dim, label_) / kappa
+            yerr = np.vstack([np.clip(y - lo, 0, None), np.clip(hi - y, 0, None)])
+        ax.errorbar(x[confirmed], y[confirmed], yerr=None if yerr is None
+                    else yerr[:, confirmed], color=colour, marker=markers[component], ls="none",
+                    ms=5, capsize=3, label=name + (" (CI)" if yerr is not None else ""),
+                    gid=f"points_{label_}_{component}")
+        if (~confirmed).any():  # not a confirmed long-time limit: open markers
+            ax.errorbar(x[~confirmed], y[~confirmed], yerr=None if yerr is None
+                        else yerr[:, ~confirmed], color=colour, marker=markers[component],
+                        mfc="white", ls="none", ms=5, capsize=3, alpha=0.9,
+                        gid=f"unconfirmed_{label_}_{component}")
+            open_drawn = True
+        _draw_fit(ax, ds, component, label_, colour, peclet)
+    if open_drawn:
+        from matplotlib.lines import Line2D
+
+        ax.add_line(Line2D([], [], color=GUIDE, marker="o", mfc="white", ls="none",
+                           label="open: diffusive regime not confirmed\n(undetermined, too "
+                                 "short or bounded)", gid="unconfirmed_key"))
     from ...engine.noise import convert_peclet
 
     pe_wavenumber = np.array([convert_peclet(p, convention, "wavenumber") for p in peclet])
@@ -214,15 +233,74 @@ def deff_peclet_figure(ds, *, start=None, components=("xx", "yy")):
                     label=f"{text} (D_{component})", zorder=1)
     ax.set_xscale("log")
     ax.set_yscale("log")
-    convention_text = ds.attrs.get("peclet_definition", "Pe = U/(kappa k)")
+    tidy_log_axes(ax)
+    convention_text = _peclet_text(ds.attrs.get("peclet_definition", "Pe = U/(kappa k)"))
     ax.set_xlabel(f"Péclet number, {convention_text} (dimensionless)")
-    ax.set_ylabel("effective over molecular diffusivity\nD/κ (dimensionless)")
+    ax.set_ylabel("effective over molecular diffusivity\n$D/\\kappa$ (dimensionless)")
     ax.grid(True, which="major", alpha=0.3)
-    ax.legend(fontsize=7.5, loc="upper left")
+    figure.legend(fontsize=7, loc="outside right upper", frameon=False)  # off the data
     ax.set_title(title(f"Effective diffusivity — {ds.attrs.get('title', family or '')}"),
                  fontsize=10)
     caption(figure, provenance_line(ds))
     return figure
+
+
+def _peclet_text(text: str) -> str:
+    """The stored Péclet definition ("Pe = U/(kappa k)") in mathtext."""
+    return "$" + str(text).replace("kappa", "\\kappa").replace("pi", "\\pi") \
+        .replace("Pe", "\\mathrm{Pe}") + "$" if "$" not in str(text) else str(text)
+
+
+def _point_status(ds, pe_dim):
+    """start → boolean mask along Pe of the points with a confirmed diffusive regime."""
+    from ...analysis.verdicts import flag_meaning
+
+    def confirmed(start):
+        if "deff_converged" not in ds.variables:
+            return np.ones(ds.sizes[pe_dim], dtype=bool)
+        flags = _reduce_to_pe(ds["deff_converged"], pe_dim, start)
+        return np.array([flag_meaning(ds["deff_converged"], v) == "diffusive"
+                         if np.isfinite(v) else False for v in flags])
+
+    return confirmed
+
+
+def _draw_fit(ax, ds, component, start, colour, peclet):
+    """The fitted power law D/κ = A Pe^β of one component and start over its fitted range,
+    labelled with β and its interval; dashed and marked when the fit is rejected."""
+    from ...analysis.verdicts import flag_meaning
+
+    name = f"D_{component}"
+    key = f"{name}_exponent"
+    if key not in ds.variables or f"{name}_prefactor" not in ds.variables:
+        return None
+    exponent = ds[key]
+    pick = {"start": start} if start is not None and "start" in exponent.dims else {}
+    try:
+        beta = float(exponent.sel(pick).values)
+        prefactor = float(ds[f"{name}_prefactor"].sel(pick).values)
+        low = float(ds[f"{key}_lower"].sel(pick).values)
+        high = float(ds[f"{key}_upper"].sel(pick).values)
+    except (TypeError, ValueError):
+        return None  # more dimensions than a start: not drawn
+    if not (np.isfinite(beta) and np.isfinite(prefactor)):
+        return None
+    verdict = flag_meaning(ds[f"{name}_fit_verdict"],
+                           ds[f"{name}_fit_verdict"].sel(pick).values) \
+        if f"{name}_fit_verdict" in ds.variables else ""
+    first = float(exponent.attrs.get("fit_peclet_min", np.min(peclet)))
+    last = float(exponent.attrs.get("fit_peclet_max", np.max(peclet)))
+    x = np.geomspace(first, last, 50)
+    who = f"$D_{{{component}}}/\\kappa$" + (f" ({start})" if start is not None else "")
+    text = f"fit {who} $\\propto\\mathrm{{Pe}}^{{{beta:.2f}}}$ [{low:.2f}, {high:.2f}]"
+    if verdict == "rejected":
+        text += " REJECTED"
+    elif verdict == "undetermined":
+        text += " (undetermined)"
+    (line,) = ax.plot(x, prefactor * x ** beta, color=colour, lw=1.0,
+                      ls=(0, (5, 2)) if verdict == "rejected" else "-", alpha=0.8,
+                      label=text, gid=f"fit_{start}_{component}")
+    return line
 
 
 def exponent_map_figure(ds, *, start=None):
@@ -257,10 +335,10 @@ def exponent_map_figure(ds, *, start=None):
         ax.set_yscale("log")
         ax.set_xlabel(label(ds[time_name]))
         ax.set_title(f"start: {start_name(ds, label_)}", fontsize=9)
-    axes[0].set_ylabel(f"Péclet number, {ds.attrs.get('peclet_definition', 'Pe')} "
-                       "(dimensionless)")
+    axes[0].set_ylabel(f"Péclet number, {_peclet_text(ds.attrs.get('peclet_definition', 'Pe'))}"
+                       " (dimensionless)")
     bar = figure.colorbar(mesh, ax=list(axes), extend="both")
-    bar.set_label("local exponent α = d log MSD / d log t")
+    bar.set_label(r"local exponent $\alpha = d\ln\mathrm{MSD}/d\ln t$")
     figure.suptitle(title(f"α(t, Pe) — {ds.attrs.get('title', '')}; contours at α = ½ and 3/2"),
                     fontsize=10)
     caption(figure, provenance_line(ds))
