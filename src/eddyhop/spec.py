@@ -18,6 +18,7 @@ from typing import Any
 from .errors import StudyError, range_text
 from .flows import get_family
 from .schedule import MIN_CHECK_BATCH
+from .velocity_sampling import VelocityCorrelationSpec, parse_velocity_correlation
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -203,6 +204,8 @@ class Study:
     aging: AgingSpec = field(default_factory=AgingSpec)
     moments: MomentSpec = field(default_factory=MomentSpec)
     hopping: HoppingSpec = field(default_factory=HoppingSpec)
+    velocity_correlation: VelocityCorrelationSpec = field(
+        default_factory=VelocityCorrelationSpec)
     output: OutputSpec = field(default_factory=OutputSpec)
     sweep: Any = None
     source_text: str = ""
@@ -215,6 +218,8 @@ class Study:
             value = getattr(self, f.name)
             if f.name in ("source_text", "source_path"):
                 continue
+            if f.name == "velocity_correlation" and not value.enabled:
+                continue  # absent when off: resolved studies (and sweep hashes) stay as before
             if f.name == "starts":
                 out[f.name] = [s.as_dict() for s in value]
             elif hasattr(value, "__dataclass_fields__"):
@@ -477,7 +482,7 @@ def _parse_output(document):
 
 
 TOP_LEVEL = {"schema_version", "title", "description", "flow", "noise", "start", "run", "aging",
-             "moments", "hopping", "output", "sweep"}
+             "moments", "hopping", "output", "sweep", "velocity_correlation"}
 
 
 def parse_study(document: dict, source_text: str = "", source_path: str = "") -> Study:
@@ -509,6 +514,7 @@ def parse_study(document: dict, source_text: str = "", source_path: str = "") ->
         aging=_parse_aging(document, run),
         moments=_parse_moments(document),
         hopping=_parse_hopping(document),
+        velocity_correlation=parse_velocity_correlation(document, flow, run),
         output=_parse_output(document),
         sweep=sweep,
         # a study built in code still records its parameters as TOML text (provenance)
