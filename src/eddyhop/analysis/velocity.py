@@ -92,6 +92,7 @@ def _estimates(corr, lagged, lag, window, n_freq):
     pooled = {p: _cumulative_trapezoid(values.mean(axis=-2), step) for p, values in sym.items()}
     for p, values in pooled.items():
         out[f"gk_{p}"] = values[..., -1]
+        out[f"gk_running_{p}"] = values
     quarter = lag.size - 1 - (lag.size - 1) // 4
     trace = pooled["xx"] + pooled["yy"]
     out["tail"] = trace[..., -1] - trace[..., quarter]
@@ -103,6 +104,7 @@ def _estimates(corr, lagged, lag, window, n_freq):
         transform = np.fft.rfft(tapered, n=n_fft, axis=-1).real
         # Σ_{l=-L}^{L} w_l C_l cos(ω l Δτ) Δτ with C even: 2·Re(rfft) − the l = 0 term
         out[f"spec_{c}"] = step * (2.0 * transform - tapered[..., :1])
+        out[f"spec_mean_{c}"] = out[f"spec_{c}"].mean(axis=-2)  # linear in C
     return out
 
 
@@ -217,6 +219,19 @@ def _one_start(part, window, tolerance):
                                        f"Green-Kubo diffusivity D_{p}", diffusivity, **attrs)
         out[f"green_kubo_D_{p}_se"] = var((), error,
                                           f"standard error of green_kubo_D_{p}", diffusivity)
+    for p in ("xx", "yy", "xy"):
+        delta = kappa if p != "xy" else 0.0
+        running = full[f"gk_running_{p}"] + delta
+        attrs = {"comment": reason} if reason else {}
+        out[f"green_kubo_running_D_{p}"] = var(
+            ("correlation_lag",), running if not reason else np.full(lag.size, np.nan),
+            f"kappa delta + running integral of the symmetrised velocity covariance C_{p} "
+            "averaged over the reference times (tends to the Green-Kubo D_{p})", diffusivity,
+            **attrs)
+        out[f"green_kubo_running_D_{p}_se"] = var(
+            ("correlation_lag",), se[f"gk_running_{p}"] if not reason
+            else np.full(lag.size, np.nan), f"standard error of green_kubo_running_D_{p}",
+            diffusivity)
     eff = 0.5 * (gk["xx"][0] + gk["yy"][0])
     eff_se = float(se["half_trace"]) if not reason else nan
     out["green_kubo_D_eff"] = var((), eff,
@@ -244,6 +259,11 @@ def _one_start(part, window, tolerance):
             "frequency)", spectrum_units, window=window,
             method=f"Blackman-Tukey: Fourier transform of the {window}-windowed covariance on "
                    "the linear lag grid")
+        put(f"velocity_spectrum_mean_{c}", f"spec_mean_{c}", ("angular_frequency",),
+            f"power spectrum of the Lagrangian velocity u_{c} from the covariance averaged "
+            "over the reference times (two-sided, per unit angular frequency)", spectrum_units,
+            window=window, method=f"Blackman-Tukey: Fourier transform of the {window}-windowed "
+                                  "covariance on the linear lag grid")
     derived = xr.Dataset(out)
     return derived.assign_coords(
         angular_frequency=("angular_frequency", frequency,
