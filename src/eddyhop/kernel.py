@@ -40,8 +40,7 @@ from numba.extending import intrinsic
 
 from ._jit import jit
 from .flows.compiled import confine, has_walls
-from .flows.compiled import velocity as flow_velocity
-from .integrators import RK4, STRANG_RK2, TILE_WORK_ROWS, advance_tile
+from .integrators import RK4, STRANG_RK2, TILE_WORK_ROWS, advance_tile, tile_velocity
 from .rng import fill_normals
 
 MOMENT_COLUMNS = ("dx", "dy", "dx2", "dy2", "dxdy", "r4", "dx3", "dy3", "dx4", "dy4")
@@ -256,22 +255,30 @@ def _record_event(e, lo, m, block_size, xs, ys, x0, y0, ref,
 
 @jit
 def _record_velocity(e, lo, m, block_size, xs, ys, t, fcode, fp, ev_vref, vc_ptr, vc_r, vc_l,
-                     vref, vcorr):
-    """Velocity-correlation work of event ``e`` for tile particles ``lo .. lo + m - 1``."""
+                     vref, us, vs, vcorr):
+    """Velocity-correlation work of event ``e`` for tile particles ``lo .. lo + m - 1``.
+
+    The flow velocity of the whole tile comes from ``integrators.tile_velocity`` (the values
+    of ``flows.compiled.velocity``, vectorised); ``vref[r, 0|1, g]`` keeps each particle's
+    velocity at reference time r.  Sums are added in ascending particle order.
+    """
     r_ref = ev_vref[e]
     if r_ref < 0 and vc_ptr[e] == vc_ptr[e + 1]:
         return
-    for g in range(m):
-        u, v = flow_velocity(fcode, xs[g], ys[g], t, fp)
-        if r_ref >= 0:
-            vref[g, r_ref, 0] = u
-            vref[g, r_ref, 1] = v
-        block = (lo + g) // block_size
-        for j in range(vc_ptr[e], vc_ptr[e + 1]):
-            r = vc_r[j]
-            lag = vc_l[j]
-            u0 = vref[g, r, 0]
-            v0 = vref[g, r, 1]
+    tile_velocity(fcode, fp, xs, ys, t, us, vs, m)
+    if r_ref >= 0:
+        for g in range(m):
+            vref[r_ref, 0, g] = us[g]
+            vref[r_ref, 1, g] = vs[g]
+    for j in range(vc_ptr[e], vc_ptr[e + 1]):
+        r = vc_r[j]
+        lag = vc_l[j]
+        for g in range(m):
+            block = (lo + g) // block_size
+            u = us[g]
+            v = vs[g]
+            u0 = vref[r, 0, g]
+            v0 = vref[r, 1, g]
             vcorr[block, r, lag, 0] += u0 * u
             vcorr[block, r, lag, 1] += u0 * v
             vcorr[block, r, lag, 2] += v0 * u
@@ -307,7 +314,9 @@ def run_particles(
     y_new = np.empty(TILE)
     work = np.empty((TILE_WORK_ROWS, TILE))
     ref = np.empty((TILE, max(aged.shape[1], 1), 2))
-    vref = np.empty((TILE, max(vcorr.shape[1], 1), 2))
+    vref = np.empty((max(vcorr.shape[1], 1), 2, TILE))
+    tile_u = np.empty(TILE)
+    tile_v = np.empty(TILE)
     hop = np.zeros((TILE, 6), dtype=np.int64)
     words = np.empty((4, TILE), dtype=np.uint64)
     z = np.zeros((4, TILE))
@@ -365,6 +374,6 @@ def run_particles(
                               ev_out, ev_track, ev_ref, aged_ptr, aged_a, aged_l, orders,
                               products, powers, moments, aged, tracks, n_tracked_here)
                 _record_velocity(e, lo, m, block_size, xs, ys, step * dt, fcode, fp, ev_vref,
-                                 vc_ptr, vc_r, vc_l, vref, vcorr)
+                                 vc_ptr, vc_r, vc_l, vref, tile_u, tile_v, vcorr)
         if failed:
             return

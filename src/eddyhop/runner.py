@@ -467,7 +467,8 @@ def run_ensemble(study, *, workers: int | None = None, chunk: int | None = None,
                     target = batch_of_block[first_block + b]
                     sums[0][target] += moments[b]
                     sums[1][target] += aged[b]
-                    sums[4][target] += vcorr[b]
+                    if vcorr.size:
+                        sums[4][target] += vcorr[b]
                     if first_block + b < check_of_block.size:  # the subsample's fine path
                         check_fine[check_of_block[first_block + b]] += \
                             moments[b][:, _CHECK_IN_MOMENTS]

@@ -101,8 +101,11 @@ def parse_velocity_correlation(document, flow, run) -> VelocityCorrelationSpec:
                      if math.isfinite(omega) and omega > 0 else math.inf)
     if "lag_step" in table:
         lag_step = _number(table, "lag_step", where, low=0.0, low_open=True)
-    else:  # the coarsest whole number of steps the spectrum allows (fewest sums), ≥ dt
+    elif math.isfinite(finest_needed):  # the coarsest whole number of steps the spectrum
+        # allows (fewest sums), ≥ dt
         lag_step = dt * max(1, math.floor(min(finest_needed, lag_max / 8) / dt))
+    else:  # no frequency scale known (e.g. gridded data): about 1000 lags
+        lag_step = dt * max(1, math.ceil(lag_max / dt / 1000))
     lag_steps = round(lag_step / dt)
     if lag_steps < 1:
         raise StudyError(f"{where}.lag_step = {lag_step:g} is below run.dt = {dt:g}; allowed: "

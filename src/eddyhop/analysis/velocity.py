@@ -44,6 +44,7 @@ from ._common import AnalysisOptionError, check_range, per_start, per_time, requ
 from ._stats import jackknife_se, pooled_replicates
 
 WINDOWS = ("parzen", "bartlett", "hann")
+TIME_PERIODIC_FAMILIES = ("oscillating_cellular",)
 CONVERGED, NOT_CONVERGED, UNDETERMINED = 1, 0, 2
 _PAIRS = ("xx", "xy", "yx", "yy")
 INPUTS = [f"velocity_correlation_{p}" for p in _PAIRS] + ["lagged_velocity_x",
@@ -215,6 +216,10 @@ def _one_start(part, window, tolerance):
         elif str(part.get("start_kind", xr.DataArray("uniform")).values) != "uniform":
             attrs["comment"] = ("the start region is not the stationary (uniform) ensemble: "
                                 "this integral need not equal the long-time diffusivity")
+        elif str(part.attrs.get("flow_family", "")) in TIME_PERIODIC_FAMILIES:
+            attrs["comment"] = ("time-periodic flow: the long-time diffusivity is this "
+                                "integral averaged over reference times spread uniformly over "
+                                "one flow period; other reference times only approximate it")
         out[f"green_kubo_D_{p}"] = var((), value,
                                        f"Green-Kubo diffusivity D_{p}", diffusivity, **attrs)
         out[f"green_kubo_D_{p}_se"] = var((), error,
