@@ -185,6 +185,24 @@ def test_quasi_periodic_velocity_has_the_exact_discrete_frequencies_without_vort
     assert chance < 0.45
 
 
+def test_an_unconverged_green_kubo_integral_is_not_printed_as_a_diffusivity():
+    # κ = 0 without vortices: the velocity is quasi-periodic, its integral oscillates forever
+    from eddyhop.presentation import analysis_lines
+
+    study = make_study(flow={"family": "drifting_cellular", "U": 1.0, "k": 1.0,
+                             "drift_x": 1.0, "drift_y": 1.0 / GOLDEN, "_replace": True},
+                       noise={"kappa": 0.0, "_replace": True},
+                       run={"particles": 128, "dt": 0.05, "t_end": 100.0, "batches": 8},
+                       velocity_correlation={"lag_step": 0.2})
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        analysed = eddyhop.analysis.analyse(_simulate(study))
+    assert int(analysed["green_kubo_converged"]) == 0
+    assert "NOT CONVERGED" in analysed["green_kubo_D_eff"].attrs["comment"]
+    lines = [line for line in analysis_lines(analysed, reference=False) if "Green-Kubo" in line]
+    assert len(lines) == 1 and "NOT CONVERGED" in lines[0] and "D_xx" not in lines[0]
+
+
 # ---- bad input, options and figures ---------------------------------------------------------
 @pytest.mark.parametrize("table, message", [
     ({"lag_max": 3.0}, r"velocity_correlation\.lag_max = 3 reaches beyond the run"),

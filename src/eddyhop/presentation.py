@@ -379,6 +379,9 @@ def _green_kubo_lines(part):
                                 "quarter of the lag window (raise velocity_correlation.lag_max)",
                "undetermined": "UNDETERMINED: too noisy to tell whether the integral has "
                                "converged"}.get(meaning, "unknown flag value")
+    if meaning == "not_converged":  # no diffusivity is claimed from an unfinished integral
+        return [f"  Green-Kubo D{window}: {verdict}; the integral at the end of the window "
+                f"(D_eff = {_pm(value, se)}) is not a long-time diffusivity"]
     tensor = ", ".join(
         f"D_{p} = " + _pm(_scalar(part, f"green_kubo_D_{p}"), _scalar(part, f"green_kubo_D_{p}_se"))
         for p in ("xx", "yy", "xy"))

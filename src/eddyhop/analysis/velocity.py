@@ -253,6 +253,12 @@ def _one_start(part, window, tolerance):
     noise = 3.0 * float(np.nan_to_num(se["tail"], nan=np.inf))
     flag = np.int8(NOT_CONVERGED if tail > max(noise, scale)
                    else CONVERGED if noise <= scale else UNDETERMINED)
+    if flag == NOT_CONVERGED and not reason:
+        for p in ("xx", "yy", "xy", "eff"):
+            out[f"green_kubo_D_{p}"].attrs["comment"] = (
+                "NOT CONVERGED: the integral still changes over the last quarter of the lag "
+                "window; this is not a long-time diffusivity (raise velocity_correlation."
+                "lag_max)")
     out["green_kubo_converged"] = var(
         (), flag, "has the Green-Kubo integral converged within the lag "
         "window", None, flag_values=np.array([0, 1, 2], dtype=np.int8),

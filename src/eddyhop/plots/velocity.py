@@ -145,8 +145,8 @@ def velocity_spectrum_figure(ds, *, start=None):
                 floor = min(floor, float(spectrum[good].max()) * 1e-5)
                 peak = max(peak, float(spectrum[good].max()) * 3.0)
             ax.plot(omega, np.where(good, spectrum, np.nan), color=colour, ls=style, lw=1.8,
-                    label=f"S_{c} (covariance averaged over {refs.size} reference time"
-                          f"{'s' if refs.size > 1 else ''})")
+                    label=f"S_{c}" + (f" (covariance averaged over {refs.size} reference "
+                                      "times)" if refs.size > 1 else f", t_r = {refs[0]:g}"))
             ax.fill_between(omega, np.maximum(spectrum - 2 * se, 1e-300), spectrum + 2 * se,
                             color=colour, alpha=0.18, lw=0)
         ax.set_yscale("log")
