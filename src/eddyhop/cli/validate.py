@@ -36,7 +36,8 @@ def command(studies, allow_long):
             points = study.sweep.n_points if study.sweep is not None else 1
             # before the schedule is built: building it is itself work of the study's size
             cost = study_cost_checked(study, points=points, allow_long=allow_long)
-            schedule = build_schedule(study.run, study.aging, study.run.track_samples)
+            schedule = build_schedule(study.run, study.aging, study.run.track_samples,
+                                      study.velocity_correlation)
         except EddyhopError as exc:
             shown = path if len(path) <= 80 else path[:60] + "…" + path[-15:]
             click.secho(f"{shown}: invalid: {exc}", fg="red", err=True)
