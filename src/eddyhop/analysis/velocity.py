@@ -167,11 +167,8 @@ def _one_start(part, window, tolerance):
             reps = _estimates(rep_corr, rep_lag, lag, window, n_freq)
             se = {k: jackknife_se(v) for k, v in reps.items()}
     tunits = str(part["correlation_lag"].attrs.get("units", "1"))
-    lunits = "1"
-    for name in ("msd",):
-        if name in part.variables:
-            lunits = str(part[name].attrs.get("units", "1"))
-    # velocity² units: msd units per time squared
+    # the MSD's units are length²: velocity² is that per time squared
+    lunits = str(part["msd"].attrs.get("units", "1")) if "msd" in part.variables else "1"
     vv = per_time(per_time(lunits, tunits), tunits)
     diffusivity = per_time(lunits, tunits)
     spectrum_units = per_time(lunits, tunits)  # velocity² × time
