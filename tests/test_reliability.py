@@ -53,6 +53,7 @@ BASE = {
             "seed": 7, "tracked": 8, "workers": 1, "progress": False},
     "aging": {"times": [0.5], "lags": 5},
     "hopping": {"enabled": True},
+    "velocity_correlation": {"reference_times": [0.0, 0.5], "lag_max": 1.0, "lag_step": 0.1},
     "output": {"path": "x.nc", "length_unit": "m", "time_unit": "s"},
 }
 
@@ -157,7 +158,8 @@ def test_mangled_study_is_accepted_or_refused_in_one_line(document):
     outcome = "broken"
     try:
         study = parse_study_text(to_toml(document), "fuzz.toml")
-        build_schedule(study.run, study.aging, study.run.track_samples)
+        build_schedule(study.run, study.aging, study.run.track_samples,
+                       study.velocity_correlation)
         outcome = "accepted"
     except EddyhopError as exc:
         message = str(exc)

@@ -20,6 +20,7 @@ def test_one_chunk_seven_chunks_and_two_workers_are_bit_identical():
         run={"particles": 1000, "tracked": 5},
         aging={"times": [0.5], "lags": 5},
         hopping={"enabled": True},
+        velocity_correlation={"reference_times": [0.0, 0.5], "lag_max": 1.0, "lag_step": 0.1},
     )
     from eddyhop.engine.runner import _chunks, block_size_for
 

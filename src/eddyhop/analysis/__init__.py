@@ -27,6 +27,7 @@ from .hopping import fit_tails, hopping
 from .moments import displacement_pdf, moment_spectrum
 from .regimes import regimes
 from .stepcheck import has_step_check, step_check
+from .velocity import velocity_statistics
 
 # (function, predicate on the Dataset: run it within analyse?)
 STEPS = (
@@ -39,6 +40,7 @@ STEPS = (
     (displacement_pdf, lambda ds: "track_x" in ds.variables),
     (hopping, lambda ds: "residence_count" in ds.variables),
     (step_check, has_step_check),
+    (velocity_statistics, lambda ds: "velocity_correlation_xx" in ds.variables),
 )
 
 
@@ -103,4 +105,5 @@ __all__ = [
     "option_names",
     "regimes",
     "step_check",
+    "velocity_statistics",
 ]

@@ -49,6 +49,12 @@ def _default_out(result: str) -> str:
 @click.option("--significance", type=float, default=None,
               help="Level of the goodness-of-fit tests of the aging and tail fits. "
                    "[default: 0.05]")
+@click.option("--spectrum-window", type=click.Choice(["parzen", "bartlett", "hann"]),
+              default=None, help="Lag window of the velocity spectrum (Blackman-Tukey "
+              "estimate). [default: parzen]")
+@click.option("--green-kubo-tolerance", type=float, default=None,
+              help="Relative size of the last-quarter change of the Green-Kubo integral "
+                   "accepted as converged. [default: 0.05]")
 @click.option("--no-reference", is_flag=True,
               help="Do not solve the cell problem for the summary's reference D_eff.")
 @click.option("--quiet", "-q", is_flag=True, help="Do not print the summary.")

@@ -36,7 +36,8 @@ def command(studies, allow_long):
             points = study.sweep.n_points if study.sweep is not None else 1
             # before the schedule is built: building it is itself work of the study's size
             cost = study_cost_checked(study, points=points, allow_long=allow_long)
-            schedule = build_schedule(study.run, study.aging, study.run.track_samples)
+            schedule = build_schedule(study.run, study.aging, study.run.track_samples,
+                                      study.velocity_correlation)
         except EddyhopError as exc:
             shown = path if len(path) <= 80 else path[:60] + "…" + path[-15:]
             click.secho(f"{shown}: invalid: {exc}", fg="red", err=True)
@@ -52,6 +53,12 @@ def command(studies, allow_long):
         click.echo(f"  {study.run.particles} particles, {study.run.integrator}, dt = "
                    f"{study.run.dt:g}, {schedule.total_steps} steps, {schedule.out_steps.size} "
                    f"output times from {schedule.times[0]:g} to {schedule.times[-1]:g}")
+        if schedule.vc_ref_steps.size:  # the resolved lag grid (lag_step rounded to steps)
+            vc = study.velocity_correlation
+            click.echo(f"  velocity correlation: reference times "
+                       f"{', '.join(f'{t:g}' for t in vc.reference_times)}; "
+                       f"{schedule.vc_lag_steps.size} lags 0 … {vc.lag_max:g} every "
+                       f"{vc.lag_step:g}")
         click.echo(f"  {cost.work_line()}")
         click.echo(f"  {cost.estimate_line()}")
         report = study.flow.model.field_attributes(study.flow.params)  # data-driven families

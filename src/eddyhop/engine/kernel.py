@@ -18,7 +18,12 @@ time integration would report, whatever the tiling or chunking.
 Event schedule (built by ``schedule.py``): sorted step indices ``events``; at event ``e`` the
 kernel may (a) record moments into output slot ``ev_out[e]``, (b) store a tracked sample in slot
 ``ev_track[e]``, (c) take the aging reference for aging index ``ev_ref[e]``, (d) accumulate aged
-displacements for the pairs ``(aged_a, aged_l)[aged_ptr[e]:aged_ptr[e+1]]``.
+displacements for the pairs ``(aged_a, aged_l)[aged_ptr[e]:aged_ptr[e+1]]``, (e) take the
+flow velocity u(X, t) as the reference of velocity-correlation index ``ev_vref[e]`` and (f) add
+the velocity products of the pairs ``(vc_r, vc_l)[vc_ptr[e]:vc_ptr[e+1]]`` (lag 0 included:
+the reference is taken first).  Velocity columns per (block, reference, lag): see
+``velocity_pairs.VELOCITY_COLUMNS`` (u_i at t_r times u_j at t_r + τ, then u_x, u_y at
+t_r + τ).  With no velocity pairs scheduled nothing is evaluated.
 
 Moment columns per (block, output slot): see ``MOMENT_COLUMNS``; then for each order q the sums
 of |Δx|^q, |Δy|^q and |ΔX|^q (integer orders up to ``MAX_PRODUCT_ORDER`` by repeated
@@ -35,7 +40,7 @@ from numba.extending import intrinsic
 
 from .._jit import jit
 from ..flows.compiled import confine, has_walls
-from .integrators import RK4, STRANG_RK2, TILE_WORK_ROWS, advance_tile
+from .integrators import RK4, STRANG_RK2, TILE_WORK_ROWS, advance_tile, tile_velocity
 from .rng import fill_normals
 
 MOMENT_COLUMNS = ("dx", "dy", "dx2", "dy2", "dxdy", "r4", "dx3", "dy3", "dx4", "dy4")
@@ -249,6 +254,40 @@ def _record_event(e, lo, m, block_size, xs, ys, x0, y0, ref,
 
 
 @jit
+def _record_velocity(e, lo, m, block_size, xs, ys, t, fcode, fp, ev_vref, vc_ptr, vc_r, vc_l,
+                     vref, us, vs, vcorr):
+    """Velocity-correlation work of event ``e`` for tile particles ``lo .. lo + m - 1``.
+
+    The flow velocity of the whole tile comes from ``integrators.tile_velocity`` (the values
+    of ``flows.compiled.velocity``, vectorised); ``vref[r, 0|1, g]`` keeps each particle's
+    velocity at reference time r.  Sums are added in ascending particle order.
+    """
+    r_ref = ev_vref[e]
+    if r_ref < 0 and vc_ptr[e] == vc_ptr[e + 1]:
+        return
+    tile_velocity(fcode, fp, xs, ys, t, us, vs, m)
+    if r_ref >= 0:
+        for g in range(m):
+            vref[r_ref, 0, g] = us[g]
+            vref[r_ref, 1, g] = vs[g]
+    for j in range(vc_ptr[e], vc_ptr[e + 1]):
+        r = vc_r[j]
+        lag = vc_l[j]
+        for g in range(m):
+            block = (lo + g) // block_size
+            u = us[g]
+            v = vs[g]
+            u0 = vref[r, 0, g]
+            v0 = vref[r, 1, g]
+            vcorr[block, r, lag, 0] += u0 * u
+            vcorr[block, r, lag, 1] += u0 * v
+            vcorr[block, r, lag, 2] += v0 * u
+            vcorr[block, r, lag, 3] += v0 * v
+            vcorr[block, r, lag, 4] += u
+            vcorr[block, r, lag, 5] += v
+
+
+@jit
 def run_particles(
     fcode, fp, ncode, nq, scheme, dt, key0, key1,
     x0, y0, first_index, stream_offset, block_size,
@@ -256,7 +295,7 @@ def run_particles(
     moments, aged, tracks, n_tracked_here,
     hop_on, cell, margin, gap_steps, res_log_low, res_inv_width, fl_log_low, fl_inv_width,
     residence_hist, flight_hist, hop_count,
-    status,
+    status, ev_vref, vc_ptr, vc_r, vc_l, vcorr,
 ):
     """Integrate particles ``first_index + i`` from (x0[i], y0[i]); see the module docstring.
 
@@ -275,6 +314,9 @@ def run_particles(
     y_new = np.empty(TILE)
     work = np.empty((TILE_WORK_ROWS, TILE))
     ref = np.empty((TILE, max(aged.shape[1], 1), 2))
+    vref = np.empty((max(vcorr.shape[1], 1), 2, TILE))
+    tile_u = np.empty(TILE)
+    tile_v = np.empty(TILE)
     hop = np.zeros((TILE, 6), dtype=np.int64)
     words = np.empty((4, TILE), dtype=np.uint64)
     z = np.zeros((4, TILE))
@@ -331,5 +373,7 @@ def run_particles(
                 _record_event(e, lo, m, block_size, xs, ys, x0, y0, ref,
                               ev_out, ev_track, ev_ref, aged_ptr, aged_a, aged_l, orders,
                               products, powers, moments, aged, tracks, n_tracked_here)
+                _record_velocity(e, lo, m, block_size, xs, ys, step * dt, fcode, fp, ev_vref,
+                                 vc_ptr, vc_r, vc_l, vref, tile_u, tile_v, vcorr)
         if failed:
             return

@@ -26,6 +26,7 @@ from .noise import pack_noise
 from .rng import split_seed
 from .schedule import MIN_CHECK_BATCH, Schedule, build_schedule
 from .stepcheck import CHECK_COLUMNS, run_step_check
+from .velocity_pairs import VELOCITY_COLUMNS
 
 MAX_BLOCK = 256
 # Random streams of different start regions are separated by this particle-index offset.
@@ -133,6 +134,8 @@ class StartSums:
     check_counts: np.ndarray | None = None
     check_fine: np.ndarray | None = None
     check_coarse: np.ndarray | None = None
+    # velocity correlation (None when off): sums [B, R, L, 6] (velocity_pairs.py columns)
+    velocity: np.ndarray | None = None
 
 
 @dataclass
@@ -188,6 +191,8 @@ def _run_chunk(ctx: _Context, stream_offset: int, first: int, x0, y0):
     residence = np.zeros((n_blocks, len(ctx.residence_edges) - 1))
     flights = np.zeros((n_blocks, len(ctx.flight_edges) - 1))
     hops = np.zeros(n_blocks)
+    vcorr = np.zeros((n_blocks, s.vc_ref_steps.size, s.vc_lag_steps.size,
+                      len(VELOCITY_COLUMNS)))
     status = np.full(2, -1, dtype=np.int64)
     res_low, res_inv = _log_binning(ctx.residence_edges)
     fl_low, fl_inv = _log_binning(ctx.flight_edges)
@@ -197,9 +202,9 @@ def _run_chunk(ctx: _Context, stream_offset: int, first: int, x0, y0):
         s.events, s.ev_out, s.ev_track, s.ev_ref, s.aged_ptr, s.aged_a, s.aged_l, ctx.orders,
         moments, aged, tracks, n_tracked_here,
         ctx.hop_on, ctx.cell, ctx.margin, ctx.gap_steps, res_low, res_inv, fl_low, fl_inv,
-        residence, flights, hops, status,
+        residence, flights, hops, status, s.ev_vref, s.vc_ptr, s.vc_r, s.vc_l, vcorr,
     )
-    return moments, aged, tracks, residence, flights, hops, status
+    return moments, aged, tracks, residence, flights, hops, vcorr, status
 
 
 def _run_check_batch(ctx: _Context, stream_offset: int, first: int, x0, y0):
@@ -301,7 +306,8 @@ def _memory_capped_chunk(ctx: _Context) -> int:
     s = ctx.schedule
     per_block = 8 * (s.out_steps.size * (N_BASE + 3 * ctx.orders.size)
                      + s.aging_steps.size * s.lag_steps.size * len(AGED_COLUMNS)
-                     + 2 * (len(ctx.residence_edges) + len(ctx.flight_edges)))
+                     + 2 * (len(ctx.residence_edges) + len(ctx.flight_edges))
+                     + s.vc_ref_steps.size * s.vc_lag_steps.size * len(VELOCITY_COLUMNS))
     return ctx.block_size * max(1, CHUNK_OUTPUT_BUDGET // max(per_block, 1))
 
 
@@ -390,7 +396,8 @@ def run_ensemble(study, *, workers: int | None = None, chunk: int | None = None,
         # enough chunks to keep every worker busy; chunking never changes the numbers
         chunk = min(chunk, max(1, -(-run.particles // (4 * workers))))
     show = run.progress if progress is None else progress
-    schedule = build_schedule(run, study.aging, run.track_samples)
+    schedule = build_schedule(run, study.aging, run.track_samples,
+                              study.velocity_correlation)
     messages = step_size_warnings(study)
     for message in messages:
         warnings.warn(message, StepSizeWarning, stacklevel=2)
@@ -439,7 +446,8 @@ def run_ensemble(study, *, workers: int | None = None, chunk: int | None = None,
             hops = 0.0
             for (lo, hi), out in zip(_chunks(n, chunk, block),
                                      _parallel_map(_run_chunk, tasks, workers, backend)):
-                moments, aged, chunk_tracks, residence, flights, chunk_hops, status = out
+                (moments, aged, chunk_tracks, residence, flights, chunk_hops, vcorr,
+                 status) = out
                 if status[0] >= 0:
                     raise BlowUpError(
                         f"non-finite or runaway position (|x| > 1e150) for particle "
@@ -452,12 +460,15 @@ def run_ensemble(study, *, workers: int | None = None, chunk: int | None = None,
                 if sums is None:
                     sums = [np.zeros((n_batches, *moments.shape[1:])),
                             np.zeros((n_batches, *aged.shape[1:])),
-                            np.zeros(residence.shape[1]), np.zeros(flights.shape[1])]
+                            np.zeros(residence.shape[1]), np.zeros(flights.shape[1]),
+                            np.zeros((n_batches, *vcorr.shape[1:]))]
                 first_block = lo // block
                 for b in range(moments.shape[0]):
                     target = batch_of_block[first_block + b]
                     sums[0][target] += moments[b]
                     sums[1][target] += aged[b]
+                    if vcorr.size:
+                        sums[4][target] += vcorr[b]
                     if first_block + b < check_of_block.size:  # the subsample's fine path
                         check_fine[check_of_block[first_block + b]] += \
                             moments[b][:, _CHECK_IN_MOMENTS]
@@ -481,7 +492,8 @@ def run_ensemble(study, *, workers: int | None = None, chunk: int | None = None,
                 batch_counts=batch_counts.astype(float), moments=sums[0], aged=sums[1],
                 tracks=tracked, track_starts=np.stack([x0[:run.tracked], y0[:run.tracked]], 1),
                 residence_counts=sums[2], flight_counts=sums[3], hops=hops,
-                check_counts=check[0], check_fine=check[1], check_coarse=check[2]))
+                check_counts=check[0], check_fine=check[1], check_coarse=check[2],
+                velocity=sums[4] if schedule.vc_ref_steps.size else None))
     finally:
         if bar is not None:
             bar.close()

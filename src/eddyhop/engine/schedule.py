@@ -6,7 +6,7 @@ step and duplicates dropped, so the recorded coordinates are the times actually 
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -32,6 +32,22 @@ class Schedule:
     aged_ptr: np.ndarray
     aged_a: np.ndarray
     aged_l: np.ndarray
+    # velocity correlation (velocity_pairs.py): reference steps, linear lag steps (from 0),
+    # the reference index taken at each event (-1: none) and the (reference, lag) pairs
+    # accumulated at event e: (vc_r, vc_l)[vc_ptr[e]:vc_ptr[e+1]]
+    vc_ref_steps: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    vc_lag_steps: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    ev_vref: np.ndarray | None = None
+    vc_ptr: np.ndarray | None = None
+    vc_r: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    vc_l: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+
+    def __post_init__(self):
+        # a schedule without velocity pairs still hands the kernel arrays of the right shape
+        if self.ev_vref is None:
+            object.__setattr__(self, "ev_vref", np.full(self.events.size, -1, dtype=np.int64))
+        if self.vc_ptr is None:
+            object.__setattr__(self, "vc_ptr", np.zeros(self.events.size + 1, dtype=np.int64))
 
     @property
     def times(self) -> np.ndarray:
@@ -62,8 +78,9 @@ def output_steps(dt, t_end, n_times, spacing, t_first=None, times=()) -> np.ndar
     return steps
 
 
-def build_schedule(run, aging, track_samples: int = 1000) -> Schedule:
-    """Event schedule for a run spec and an aging spec (see ``kernel.py``)."""
+def build_schedule(run, aging, track_samples: int = 1000, velocity=None) -> Schedule:
+    """Event schedule for a run spec, an aging spec and an optional velocity-correlation spec
+    (see ``kernel.py``)."""
     dt = run.dt
     out = output_steps(dt, run.t_end, run.n_times, run.spacing, run.t_first, run.times)
     last = int(out[-1])
@@ -87,7 +104,7 @@ def build_schedule(run, aging, track_samples: int = 1000) -> Schedule:
     actions: dict[int, list] = {}
 
     def at(step):
-        return actions.setdefault(int(step), [-1, -1, -1, []])
+        return actions.setdefault(int(step), [-1, -1, -1, [], -1, []])
 
     for slot, step in enumerate(out):
         at(step)[0] = slot
@@ -98,6 +115,16 @@ def build_schedule(run, aging, track_samples: int = 1000) -> Schedule:
         for l_index, lag in enumerate(lags):
             if step + lag <= last:
                 at(step + lag)[3].append((a, l_index))
+    if velocity is not None and velocity.enabled:
+        from .velocity_pairs import velocity_steps
+
+        vc_refs, vc_lags = velocity_steps(velocity, dt)
+        for r, step in enumerate(vc_refs):
+            at(step)[4] = r
+            for l_index, lag in enumerate(vc_lags):
+                at(step + lag)[5].append((r, l_index))
+    else:
+        vc_refs = vc_lags = np.zeros(0, dtype=np.int64)
     events = np.array(sorted(actions), dtype=np.int64)
     ev_out = np.array([actions[s][0] for s in events], dtype=np.int64)
     ev_track = np.array([actions[s][1] for s in events], dtype=np.int64)
@@ -108,6 +135,14 @@ def build_schedule(run, aging, track_samples: int = 1000) -> Schedule:
     flat = [pair for p in pairs for pair in p]
     aged_a = np.array([a for a, _ in flat], dtype=np.int64)
     aged_l = np.array([l_index for _, l_index in flat], dtype=np.int64)
+    ev_vref = np.array([actions[s][4] for s in events], dtype=np.int64)
+    vc_pairs = [actions[s][5] for s in events]
+    vc_ptr = np.zeros(len(events) + 1, dtype=np.int64)
+    vc_ptr[1:] = np.cumsum([len(p) for p in vc_pairs])
+    vc_flat = [pair for p in vc_pairs for pair in p]
     return Schedule(dt=dt, out_steps=out, track_steps=track, aging_steps=ages, lag_steps=lags,
                     events=events, ev_out=ev_out, ev_track=ev_track, ev_ref=ev_ref,
-                    aged_ptr=ptr, aged_a=aged_a, aged_l=aged_l)
+                    aged_ptr=ptr, aged_a=aged_a, aged_l=aged_l,
+                    vc_ref_steps=vc_refs, vc_lag_steps=vc_lags, ev_vref=ev_vref,
+                    vc_ptr=vc_ptr, vc_r=np.array([r for r, _ in vc_flat], dtype=np.int64),
+                    vc_l=np.array([j for _, j in vc_flat], dtype=np.int64))

@@ -118,6 +118,7 @@ def _start_lines(ds, part, label, cell):
     out += _crossover_lines(ds, part)
     out += _diffusivity_lines(ds, part, cell)
     out += _step_check_lines(part)
+    out += _green_kubo_lines(part)
     out += _drift_lines(part)
     out += _hopping_lines(ds, part)
     out += _fit_verdict_lines(part)
@@ -379,6 +380,42 @@ def _cell_problem(ds):
                         f"its flow and noise: {exc})"}
     return {"tensor": np.asarray(result.tensor, dtype=float), "kappa": kappa,
             "seconds": seconds}
+
+
+def _green_kubo_lines(part):
+    """The Green–Kubo diffusivity (analysis.velocity) beside the MSD's D_eff."""
+    if "green_kubo_D_eff" not in part.variables:
+        return []
+    value, se = _scalar(part, "green_kubo_D_eff"), _scalar(part, "green_kubo_D_eff_se")
+    lag = float(part["correlation_lag"].values[-1]) if "correlation_lag" in part.coords else None
+    window = f" (lags up to {_g(lag, 4)})" if lag is not None else ""
+    if value is None or not _finite(value):
+        reason = part["green_kubo_D_eff"].attrs.get("comment", "not computed")
+        return [f"  Green-Kubo D{window}: {reason}"]
+    meaning = flag_meaning(part["green_kubo_converged"])
+    verdict = {"converged": "converged",
+               "not_converged": "NOT CONVERGED: the integral still changes over the last "
+                                "quarter of the lag window (raise velocity_correlation.lag_max)",
+               "undetermined": "UNDETERMINED: too noisy to tell whether the integral has "
+                               "converged"}.get(meaning, "unknown flag value")
+    if meaning == "not_converged":  # no diffusivity is claimed from an unfinished integral
+        return [f"  Green-Kubo D{window}: {verdict}; the integral at the end of the window "
+                f"(D_eff = {_pm(value, se)}) is not a long-time diffusivity"]
+    tensor = ", ".join(
+        f"D_{p} = " + _pm(_scalar(part, f"green_kubo_D_{p}"), _scalar(part, f"green_kubo_D_{p}_se"))
+        for p in ("xx", "yy", "xy"))
+    out = [f"  Green-Kubo D{window}: {tensor}; D_eff = {_pm(value, se)} — {verdict}"]
+    comment = part["green_kubo_D_eff"].attrs.get("comment")
+    if comment:
+        out.append(f"    note: {comment}")
+    msd, msd_se = _scalar(part, "D_eff"), _scalar(part, "D_eff_se")
+    if msd is not None and _finite(msd) and se is not None and _finite(se):
+        combined = math.hypot(se, msd_se if msd_se is not None and _finite(msd_se) else 0.0)
+        if combined > 0:
+            out.append(f"    MSD D_eff − Green-Kubo D_eff = {_g(msd - value, 4)} = "
+                       f"{_g((msd - value) / combined, 3)} standard errors (errors combined as "
+                       "if independent)")
+    return out
 
 
 def _step_check_lines(part):

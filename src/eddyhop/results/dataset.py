@@ -14,6 +14,9 @@ import xarray as xr
 from ..engine.kernel import MOMENT_COLUMNS, N_BASE
 from ..engine.stepcheck import CHECK_COLUMNS
 from .io import provenance_attrs, units_for
+from .velocity_dataset import COORD_ATTRS as _VELOCITY_COORD_ATTRS
+from .velocity_dataset import VARIABLE_ATTRS as _VELOCITY_ATTRS
+from .velocity_dataset import velocity_coords, velocity_data
 
 _COL = {name: i for i, name in enumerate(MOMENT_COLUMNS)}
 _CHECK_COL = {name: i for i, name in enumerate(CHECK_COLUMNS)}
@@ -103,6 +106,8 @@ def _per_start(start, result, units):
         data["batch_aged_msd"] = (("batch", *dims), np.where(valid[None], batch_aged, np.nan))
         data["aged_msd_se"] = (dims, np.sqrt(np.maximum(aged[:, :, 3] - aged[:, :, 0] ** 2, 0)
                                              / max(n - 1.0, 1.0)))
+    if start.velocity is not None:
+        data.update(velocity_data(start))
     if start.tracks.shape[0]:
         data["track_x"] = (("particle", "track_time"), start.tracks[:, :, 0])
         data["track_y"] = (("particle", "track_time"), start.tracks[:, :, 1])
@@ -177,6 +182,8 @@ COORD_ATTRS = {
     "flight_length": ("flight length in eddy sides (geometric bin centre)", "1"),
     "start": ("label of the start region", None),
 }
+VARIABLE_ATTRS.update(_VELOCITY_ATTRS)
+COORD_ATTRS.update(_VELOCITY_COORD_ATTRS)
 
 
 def _label(name, table, units, n_orders=None):
@@ -218,6 +225,8 @@ def build_dataset(study, result) -> xr.Dataset:
     if schedule.aging_steps.size:
         coords["aging_time"] = schedule.aging_steps * schedule.dt
         coords["lag"] = schedule.lag_steps * schedule.dt
+    if schedule.vc_ref_steps.size:
+        coords.update(velocity_coords(schedule))
     if "track_x" in ds:
         coords["particle"] = np.arange(ds.sizes["particle"])
         coords["track_time"] = schedule.track_steps * schedule.dt

@@ -29,6 +29,11 @@ SCHEME_COST = {"euler_maruyama": 1.0, "milstein": 1.05, "strang_rk2": 1.52, "rk4
 # 2 ns per moment column at each output time and 9 ns per aged (t_a, lag) pair
 NS_PER_OUTPUT_COLUMN = 2.0
 NS_PER_AGED_PAIR = 9.0
+# per particle and (reference time, lag) pair of the velocity correlation: one vectorised flow
+# evaluation and six sums, ≈ 10 ns (benchmarks/bench_velocity.py: +2.2 ns per particle-step at
+# a pair every 4.8 steps)
+NS_PER_VELOCITY_PAIR = 10.0
+_VELOCITY_COLUMNS = 6  # len(velocity_pairs.VELOCITY_COLUMNS)
 TIME_LIMIT_SECONDS = 24 * 3600.0  # soft limit; --allow-long lifts it
 
 # The runner's layout (kept equal to runner.py / kernel.py; test_cost checks they agree)
@@ -128,6 +133,12 @@ def estimate(study, points: int = 1, workers: int | None = None) -> Cost:
     ages = len(study.aging.times)
     lags = min(int(study.aging.lags), steps) if ages else 0
     aged_pairs = ages * lags
+    velocity = getattr(study, "velocity_correlation", None)
+    velocity_pairs = 0
+    if velocity is not None and velocity.enabled:
+        stride = max(1, round(velocity.lag_step / run.dt))
+        velocity_pairs = len(velocity.reference_times) * (round(velocity.lag_max / run.dt)
+                                                          // stride + 1)
     orders = len(study.moments.orders)
     block = max(1, min(_MAX_BLOCK, n // (4 * run.batches)))
     n_blocks = -(-n // block)
@@ -144,8 +155,10 @@ def estimate(study, points: int = 1, workers: int | None = None) -> Cost:
     check = 8 * 2 * check_batches * samples * _CHECK_COLUMNS
     # per start; the dataset copies the moment and check sums once (batch means) and a
     # quarter of the aged sums twice (batch_aged_msd and its masked copy)
-    retained = 2 * (moment_sums + check) + 1.5 * aged_sums + tracks
-    per_block = 8 * (samples * columns + aged_pairs * _AGED_COLUMNS + 4 * (study.hopping.bins + 1))
+    velocity_sums = 8 * batches * velocity_pairs * _VELOCITY_COLUMNS
+    retained = 2 * (moment_sums + check + velocity_sums) + 1.5 * aged_sums + tracks
+    per_block = 8 * (samples * columns + aged_pairs * _AGED_COLUMNS + 4 * (study.hopping.bins + 1)
+                     + velocity_pairs * _VELOCITY_COLUMNS)
     chunk_blocks = max(1, _CHUNK_OUTPUT_BUDGET // max(per_block, 1))
     threads = run.workers if workers is None else workers
     if threads < 0:
@@ -156,12 +169,14 @@ def estimate(study, points: int = 1, workers: int | None = None) -> Cost:
     chunk_blocks = min(chunk_blocks, max(1, run.chunk // block), n_blocks)
     chunk_bytes = in_flight_chunks * chunk_blocks * per_block
     positions = 2 * 8 * n  # x0, y0 of the current start region (measured: no extra copy)
-    schedule = (_BYTES_PER_AGED_PAIR * aged_pairs
-                + _BYTES_PER_EVENT * (samples + track_samples + ages + aged_pairs))
+    schedule = (_BYTES_PER_AGED_PAIR * (aged_pairs + velocity_pairs)
+                + _BYTES_PER_EVENT * (samples + track_samples + ages + aged_pairs
+                                      + velocity_pairs))
     memory = n_starts * retained + tracks + chunk_bytes + positions + schedule
 
     ns = NS_PER_STEP_EM * SCHEME_COST.get(run.integrator, 1.52)
-    event_ns = (NS_PER_OUTPUT_COLUMN * samples * columns + NS_PER_AGED_PAIR * aged_pairs)
+    event_ns = (NS_PER_OUTPUT_COLUMN * samples * columns + NS_PER_AGED_PAIR * aged_pairs
+                + NS_PER_VELOCITY_PAIR * velocity_pairs)
     seconds = (particle_steps * ns + n * n_starts * event_ns) * 1e-9 * points
     return Cost(starts=n_starts, particles=n, steps=steps, particle_steps=particle_steps,
                 check_particle_steps=coarse_steps, output_samples=samples,
@@ -199,7 +214,8 @@ def check_limits(cost: Cost, *, allow_long: bool = False, available: int | None 
         cost.memory_bytes, cost.cpu_seconds, what=cost.work_line(),
         work=f"{cost.particle_steps * cost.points:.3g} particle-steps",
         remedy_memory="reduce run.particles, run.n_times, run.batches, run.tracked × "
-                      "run.track_samples, moments.orders or aging.times × aging.lags",
+                      "run.track_samples, moments.orders, aging.times × aging.lags or the "
+                      "velocity_correlation lags",
         allow_long=allow_long, available=available)
 
 

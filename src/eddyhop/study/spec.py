@@ -16,9 +16,11 @@ from pathlib import Path
 from typing import Any
 
 from ..engine.schedule import MIN_CHECK_BATCH
-from ..errors import StudyError, range_text
+from ..errors import StudyError
 from ..flows import get_family
 from .metadata import MetadataSpec, parse_metadata
+from .readers import _choice, _number, _number_list, _reject_unknown, _table, _text
+from .velocity_table import VelocityCorrelationSpec, parse_velocity_correlation
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -38,66 +40,6 @@ INTEGRATORS = ("euler_maruyama", "milstein", "strang_rk2", "rk4")
 NOISE_MODELS = ("constant", "modulated")
 PECLET_CONVENTIONS = ("wavenumber", "cell_side")
 SPACINGS = ("log", "linear")
-
-
-# ---- small typed readers ---------------------------------------------------------------------
-def _number(table, key, where, default=None, low=-math.inf, high=math.inf, low_open=False,
-            high_open=False, integer=False):
-    if key not in table:
-        if default is None:
-            raise StudyError(f"{where}.{key} is required")
-        return default
-    value = table[key]
-    kind = "an integer" if integer else "a number"
-    if isinstance(value, bool) or not isinstance(value, int if integer else (int, float)):
-        raise StudyError(f"{where}.{key}: expected {kind}, got {value!r}")
-    if not integer:
-        value = float(value)
-    below = value <= low if low_open else value < low
-    above = value >= high if high_open else value > high
-    if not math.isfinite(value) or below or above:
-        raise StudyError(f"{where}.{key} = {value!r} is outside the allowed range "
-                         f"{range_text(low, high, low_open, high_open)}")
-    return value
-
-
-
-def _choice(table, key, where, choices, default):
-    value = table.get(key, default)
-    if value not in choices:
-        raise StudyError(f"{where}.{key} = {value!r} is not allowed; choose one of: "
-                         + ", ".join(choices))
-    return value
-
-
-def _text(table, key, where, default=""):
-    value = table.get(key, default)
-    if not isinstance(value, str):
-        raise StudyError(f"{where}.{key}: expected a string, got {value!r}")
-    return value
-
-
-def _number_list(table, key, where, low=-math.inf, low_open=False, integer=False):
-    value = table.get(key, [])
-    if not isinstance(value, list):
-        raise StudyError(f"{where}.{key}: expected a list of numbers, got {value!r}")
-    return tuple(_number({f"{key}[{i}]": v}, f"{key}[{i}]", where, low=low, low_open=low_open,
-                         integer=integer)
-                 for i, v in enumerate(value))
-
-
-def _table(document, key, where="study"):
-    value = document.get(key, {})
-    if not isinstance(value, dict):
-        raise StudyError(f"{where}.{key}: expected a table, got {type(value).__name__}")
-    return value
-
-
-def _reject_unknown(table, allowed, where):
-    unknown = sorted(set(table) - set(allowed))
-    if unknown:
-        raise StudyError(f"{where}: unknown key(s) {', '.join(map(repr, unknown))}; "
-                         f"allowed: {', '.join(sorted(allowed))}")
 
 
 # ---- sections --------------------------------------------------------------------------------
@@ -204,6 +146,8 @@ class Study:
     aging: AgingSpec = field(default_factory=AgingSpec)
     moments: MomentSpec = field(default_factory=MomentSpec)
     hopping: HoppingSpec = field(default_factory=HoppingSpec)
+    velocity_correlation: VelocityCorrelationSpec = field(
+        default_factory=VelocityCorrelationSpec)
     output: OutputSpec = field(default_factory=OutputSpec)
     sweep: Any = None
     metadata: MetadataSpec = field(default_factory=MetadataSpec)
@@ -219,6 +163,8 @@ class Study:
                 continue
             if f.name == "metadata" and value == MetadataSpec():
                 continue  # absent: resolved studies (and sweep fingerprints) stay as before
+            if f.name == "velocity_correlation" and not value.enabled:
+                continue  # absent when off: resolved studies (and sweep hashes) stay as before
             if f.name == "starts":
                 out[f.name] = [s.as_dict() for s in value]
             elif hasattr(value, "__dataclass_fields__"):
@@ -481,7 +427,8 @@ def _parse_output(document):
 
 
 TOP_LEVEL = {"schema_version", "title", "description", "flow", "noise", "start", "run", "aging",
-             "moments", "hopping", "output", "sweep", "metadata"}
+             "moments", "hopping", "output", "sweep", "metadata",
+             "velocity_correlation"}
 
 
 def parse_study(document: dict, source_text: str = "", source_path: str = "") -> Study:
@@ -514,6 +461,7 @@ def parse_study(document: dict, source_text: str = "", source_path: str = "") ->
         aging=_parse_aging(document, run),
         moments=_parse_moments(document),
         hopping=_parse_hopping(document),
+        velocity_correlation=parse_velocity_correlation(document, flow, run),
         output=_parse_output(document),
         sweep=sweep,
         metadata=parse_metadata(document.get("metadata")),

@@ -14,6 +14,7 @@ from .msd import exponent_figure, msd_figure, starts_figure
 from .residence import residence_figure
 from .sweep import deff_peclet_figure, exponent_map_figure
 from .trajectories import trajectories_figure
+from .velocity import velocity_correlation_figure, velocity_spectrum_figure
 
 __all__ = [
     "PALETTE",
@@ -28,4 +29,6 @@ __all__ = [
     "save_figure",
     "starts_figure",
     "trajectories_figure",
+    "velocity_correlation_figure",
+    "velocity_spectrum_figure",
 ]

@@ -18,6 +18,7 @@ from .msd import exponent_figure, msd_figure, starts_figure
 from .residence import residence_figure
 from .sweep import deff_peclet_figure, exponent_map_figure, sweep_dimension
 from .trajectories import trajectories_figure
+from .velocity import velocity_correlation_figure, velocity_spectrum_figure
 
 FIGURES = {
     "msd": (msd_figure, ("msd",), "MSD on log-log axes with regimes and reference slopes"),
@@ -35,6 +36,10 @@ FIGURES = {
                  "kurtosis of the displacements against time"),
     "moment_spectrum": (moment_spectrum_figure, ("moment_exponent_over_order",),
                         "moment spectrum ν(q)/q against the order q"),
+    "velocity": (velocity_correlation_figure, ("velocity_correlation_xx",),
+                 "Lagrangian velocity autocorrelation and its running (Green-Kubo) integral"),
+    "velocity_spectrum": (velocity_spectrum_figure, ("velocity_correlation_xx",),
+                          "power spectrum of the Lagrangian velocity (Blackman-Tukey)"),
     "deff_peclet": (deff_peclet_figure, (), "D_eff against Pe with low/high-Pe asymptotes"),
     "exponent_map": (exponent_map_figure, ("alpha",),
                      "local exponent α(t, Pe) as a map over a sweep"),
