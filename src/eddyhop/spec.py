@@ -496,7 +496,7 @@ def parse_study(document: dict, source_text: str = "", source_path: str = "") ->
     starts = parse_starts(document.get("start", {"kind": "uniform"}), flow)
     sweep = None
     if "sweep" in document:
-        from .sweep import parse_sweep
+        from .sweeps.axes import parse_sweep  # not .sweep: that loads the analysis (xarray)
 
         sweep = parse_sweep(_table(document, "sweep"), document, source_path)
     return Study(

@@ -58,8 +58,8 @@ def command(study, out, backend, jobs, scheduler, workers, merged, no_merge, ret
     from ..cost import study_cost_checked
     from ..errors import EddyhopError
     from ..spec import load_study
-    from ..sweep import run_sweep
     from ..sweeps.backends import scheduler_address
+    from ..sweeps.execute import run_sweep
 
     if not (timeout > 0 and timeout < float("inf")):
         raise EddyhopError(f"--timeout {timeout!r} is not allowed: give a finite number of "
@@ -80,7 +80,7 @@ def command(study, out, backend, jobs, scheduler, workers, merged, no_merge, ret
         report = run_sweep(spec, out, backend=backend, jobs=jobs, scheduler=scheduler,
                            workers=workers, progress=progress, retry_failed=retry_failed,
                            merge_to=None if no_merge else (merged or "default"),
-                           timeout=timeout)
+                           timeout=timeout, summarize=_scaling_lines)
     except KeyboardInterrupt:
         click.secho(f"interrupted: completed points are kept in {out}; run the same command "
                     "again to resume", fg="red", err=True)
@@ -97,13 +97,19 @@ def command(study, out, backend, jobs, scheduler, workers, merged, no_merge, ret
     for point_id, error in report.failed.items():
         click.secho(f"  failed {point_id}: {error}", fg="red", err=True)
     if report.merged is not None:
-        from ..io import open_result
-        from .merge import print_scaling
-
-        click.echo(f"wrote {report.merged}")
-        print_scaling(open_result(report.merged))
+        click.echo(f"kept {report.merged}: already the merge of these points" if
+                   report.merge_reused else f"wrote {report.merged}")
+        for line in report.summary:  # presentation.scaling_lines of the merged Dataset
+            click.echo(line)
     if report.failed:
         raise SystemExit(1)
+
+
+def _scaling_lines(merged):
+    # imported here: a resumed sweep whose merged file is current never loads xarray
+    from ..presentation import scaling_lines
+
+    return scaling_lines(merged)
 
 
 def _print_plan(study):
