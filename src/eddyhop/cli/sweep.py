@@ -17,18 +17,20 @@ from .common import (
 @click.argument("study", type=click.Path(dir_okay=False))
 @click.option("--out", "-o", "out", type=click.Path(file_okay=False), required=True,
               help="Sweep folder: one netCDF per point, the manifest and the merged file.")
-@click.option("--backend", type=click.Choice(["auto", "serial", "processes", "dask"]),
+@click.option("--backend", type=click.Choice(["auto", "serial", "threads", "processes",
+                                              "dask"]),
               default="auto", show_default=True,
-              help="Where points run. auto: dask if a scheduler address is known, else local "
-                   "processes when there are several points and cores, else serial.")
+              help="Where points run. auto: dask if a scheduler address is known, else "
+                   "threads of this process when there are several points and cores, else "
+                   "serial.")
 @click.option("--jobs", "-j", type=int, default=None,
-              help="Local worker processes (points at once); -1 or unset: one per core. "
-                   "0 is refused.")
+              help="Points at once on this machine (threads or worker processes); -1 or "
+                   "unset: one per core. 0 is refused.")
 @click.option("--scheduler", default=None, metavar="tcp://HOST:PORT",
               help="Dask scheduler to send points to. [default: $DASK_SCHEDULER_ADDRESS]")
 @click.option("--workers", "-w", type=int, default=None, callback=check_workers,
               help="Threads per point; -1: every core. [default: run.workers when serial, "
-                   "else 1]")
+                   "--jobs with threads, else 1]")
 @click.option("--merged", type=click.Path(dir_okay=False), default=None,
               help="Where to write the merged Dataset. [default: OUT/sweep.nc]")
 @click.option("--no-merge", is_flag=True, help="Do not merge at the end.")

@@ -157,11 +157,13 @@ def run_sweep(study, out, *, backend: str = "auto", jobs: int | None = None,
               merge_to="default", timeout: float = 10.0, summarize=None) -> SweepReport:
     """Run (or resume) every point of ``study``'s sweep into folder ``out``.
 
-    ``backend``: ``serial``, ``processes`` (local processes through joblib/loky, ``jobs`` of
-    them; ``None`` or -1: one per core), ``dask`` (cluster at ``scheduler`` or
+    ``backend``: ``serial``, ``threads`` (``jobs`` points at once on threads of this process,
+    each split over ``jobs`` chunk threads; ``None`` or -1: one per core), ``processes``
+    (local processes through joblib/loky, ``jobs`` of them), ``dask`` (cluster at ``scheduler`` or
     ``$DASK_SCHEDULER_ADDRESS``) or ``auto``.  ``workers`` is the number of threads per point
-    (-1: every core; default: the study's ``run.workers`` for serial runs, 1 when points run
-    in parallel).  Counts of 0 or below -1 are refused, as for ``run.workers``.
+    (-1: every core; default: the study's ``run.workers`` for serial runs, ``jobs`` on
+    threads, 1 in worker processes or on Dask).  Counts of 0 or below -1 are refused, as for
+    ``run.workers``.
     ``merge_to``: path of the merged Dataset, ``"default"`` for ``out/sweep.nc``, ``None`` for
     no merge.  ``timeout`` (s) bounds the wait for a Dask scheduler and its first worker (one
     deadline for all of it).  None of these options changes any number.
@@ -209,13 +211,15 @@ def run_sweep(study, out, *, backend: str = "auto", jobs: int | None = None,
             try:
                 if hasattr(pool, "start"):
                     pool.start()
-                if pool.name != "serial":
+                if pool.name not in ("serial", "threads"):
                     # local workers share this machine's kernel cache: warm it once per
                     # source version and first point; a cluster's machines may not share it
                     report.warm_seconds = warm_kernels(spec.point_document(queue[0]),
                                                        once=pool.name == "processes")
                 threads = workers if workers is not None else (
                     study.run.workers if pool.name == "serial" else 1)
+                if hasattr(pool, "point_threads"):  # threads backend: points split over slots
+                    threads = pool.point_threads(workers)
                 _dispatch(pool, queue, spec, study, manifest, report, threads, show,
                           step_size_warnings)
             finally:
