@@ -35,6 +35,8 @@ import time
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
+from bench_sweep import STUDY as SWEEP  # noqa: E402  (the sweep benchmark's Pe sweep)
 
 TINY = """schema_version = 1
 title = "tiny"
@@ -54,22 +56,6 @@ workers = 1
 progress = false
 """
 
-SWEEP = """title = "Pe sweep of a cellular flow"
-[flow]
-family = "cellular"
-[noise]
-peclet = 10.0
-[run]
-particles = {particles}
-dt = 0.01
-t_end = {t_end}
-n_times = 40
-seed = 1
-workers = 1
-progress = false
-[sweep]
-"noise.peclet" = {{ first = 1.0, last = 1000.0, count = 4, scale = "log" }}
-"""
 
 # the first progress tick of the demo study: the first chunk a worker returns
 FIRST_TICK = r"""
@@ -247,7 +233,7 @@ def capacity(env, particles: int, steps: int) -> float:
 
 def sweeps(env, root: Path, repeats: int, particles: int, t_end: float) -> None:
     study = root / "sweep.toml"
-    study.write_text(SWEEP.format(particles=particles, t_end=t_end))
+    study.write_text(SWEEP.format(particles=particles, t_end=t_end, points=4))
     folders = {"serial": root / "sw_serial", "-j 2": root / "sw_j2",
                "-j 2 processes": root / "sw_proc"}
     commands = {
