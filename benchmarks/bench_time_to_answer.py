@@ -304,29 +304,47 @@ def outputs_and_hopping(particles: int, steps: int, repeats: int) -> None:
     row("`[hopping]` on", f"{ratio:.2f}× a step without it", "≤ 1.3×", ratio <= 1.3)
 
 
+GROUPS = ("cold", "cache", "startup", "plot", "sweep", "kernel")
+
+
 def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="fewer repeats, smaller sizes")
     parser.add_argument("--repeats", type=int, default=None)
     parser.add_argument("--skip-cold", action="store_true",
                         help="skip the cold compile (30-40 s of CPU)")
+    parser.add_argument("--only", choices=GROUPS, action="append",
+                        help="run only these groups of rows (repeatable)")
+    parser.add_argument("--sweep-particles", type=int, default=None,
+                        help="particles per sweep point [32000; --quick 1000]")
+    parser.add_argument("--sweep-t-end", type=float, default=None,
+                        help="t_end of each sweep point, dt = 0.01 [80; --quick 20]")
     args = parser.parse_args(argv)
+    groups = set(args.only or GROUPS)
     repeats = args.repeats or (3 if args.quick else 5)
     env = dict(os.environ, MPLBACKEND="Agg")
     print(f"## Time to answer (medians of {repeats}; {os.cpu_count()} CPUs; load average "
           f"before: {load()})\n")
     print("| row | measured | goal | verdict |")
     print("|---|---|---|---|")
-    if not args.skip_cold:
+    if "cold" in groups and not args.skip_cold:
         cold_start(env, max(2, repeats // 2))
-    cache_key()
+    if "cache" in groups:
+        cache_key()
     with tempfile.TemporaryDirectory(prefix="eddyhop-tta-") as scratch:
         root = Path(scratch)
-        start_up(env, root, repeats)
-        plot(env, root, repeats, 400 if args.quick else 1000)
-        sweeps(env, root, max(1, repeats // 2) if args.quick else repeats,
-               1000 if args.quick else 4000, 20.0 if args.quick else 40.0)
-    outputs_and_hopping(20000 if args.quick else 100000, 100, 2 if args.quick else 3)
+        if "startup" in groups:
+            start_up(env, root, repeats)
+        if "plot" in groups:
+            plot(env, root, repeats, 400 if args.quick else 1000)
+        if "sweep" in groups:
+            # a sweep only pays off against its fixed start-up (interpreter, imports, kernel
+            # load: ≈ 2.5 s of CPU) when its points take longer: 32000 × 8000 steps ≈ 6 s each
+            sweeps(env, root, 1 if args.quick else max(1, repeats // 2),
+                   args.sweep_particles or (1000 if args.quick else 32000),
+                   args.sweep_t_end or (20.0 if args.quick else 80.0))
+    if "kernel" in groups:
+        outputs_and_hopping(20000 if args.quick else 100000, 100, 2 if args.quick else 3)
     print(f"\nLoad average after: {load()}.  Start-up verdicts use CPU time (what the wall "
           "clock reads on a quiet machine); the sweep verdict uses wall time.")
 
