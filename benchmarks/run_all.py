@@ -2,14 +2,18 @@
 
 Run:  python benchmarks/run_all.py [--quick] [--output FILE]
 
-The kernel set: throughput against a NumPy loop and thread scaling (``bench_kernel``),
-accuracy per cost (``bench_accuracy``), memory (``bench_memory``), the step check's cost
-(``bench_stepcheck``) and compile latency (``bench_compile``).  Not included, run them on
-their own: ``bench_sweep.py`` (sweep backends), ``bench_cell_problem.py`` (the reference
-cell-problem solver) and ``bench_gridded_obstacles.py`` (gridded and obstacle flows).
+The time-to-answer rows first (``bench_time_to_answer``: cold start, the kernel cache key,
+tiny run/validate, plot, sweep -j 2 and resume, output-time and hopping cost, kernel ns per
+particle-step; each with its goal and met / not met), then the kernel set: throughput against
+a NumPy loop and thread scaling (``bench_kernel``), accuracy per cost (``bench_accuracy``),
+memory (``bench_memory``), the step check's cost (``bench_stepcheck``) and compile latency
+(``bench_compile``).  Not included, run them on their own: ``bench_sweep.py`` (sweep
+backends in detail), ``bench_cell_problem.py`` (the reference cell-problem solver; its
+Pe = 10⁴ row takes minutes and gigabytes) and ``bench_gridded_obstacles.py``.
 
-Full sizes take 15–20 minutes on two free cores, most of it the memory case (10⁶
-particles × 10⁴ output steps, run twice); ``--quick`` is a smoke run of a minute or two.
+Full sizes take 20–25 minutes on two free cores, most of it the memory case (10⁶
+particles × 10⁴ output steps, run twice); ``--quick`` takes a few minutes (one cold compile of
+the kernels is part of it).
 """
 
 from __future__ import annotations
@@ -25,6 +29,7 @@ import bench_compile
 import bench_kernel
 import bench_memory
 import bench_stepcheck
+import bench_time_to_answer
 import numba
 import numpy as np
 
@@ -55,7 +60,8 @@ def main(argv=None):
             print(f"# eddyhop benchmarks ({time.strftime('%Y-%m-%d %H:%M')}; eddyhop "
                   f"{eddyhop.__version__}, numba {numba.__version__}, numpy {np.__version__}, "
                   f"Python {sys.version.split()[0]}{', quick sizes' if quick else ''})\n")
-            for module, options in ((bench_kernel, quick), (bench_accuracy, quick),
+            for module, options in ((bench_time_to_answer, quick),
+                                    (bench_kernel, quick), (bench_accuracy, quick),
                                     (bench_memory, quick), (bench_stepcheck, quick),
                                     (bench_compile, ["--repeats", "1"] if quick else [])):
                 start = time.perf_counter()

@@ -4,10 +4,11 @@ Kernels are compiled lazily (never at import) with ``cache=True`` so that a seco
 a test, a joblib or Dask worker, the next ``eddyhop run`` — loads machine code from disk instead
 of compiling again.  Numba checks only the timestamp of the file that defines a cached function,
 not of the modules it calls, so an edited flow module could silently reuse a stale kernel.  We
-therefore key the cache directory by a hash of the package's own source files: any edit to the
-package gives a fresh cache.  A flow family registered from outside the package (a plugin, a
-test) adds its own source to that key (:func:`add_cache_key`), since the compiled dispatch is
-generated from the registered families.
+therefore key the cache directory by a hash of the kernel sources (``_kernel_sources``: the
+modules that define compiled code and what they import at module level): an edit to any of
+them gives a fresh cache, an edit to a plot, CLI or analysis module reuses the compiled kernels; a
+flow family registered from outside the package (a plugin, a test) adds its own source to that key
+(:func:`add_cache_key`), since the compiled dispatch is generated from the registered families.
 """
 
 from __future__ import annotations
@@ -21,6 +22,8 @@ from pathlib import Path
 import numba
 from numba.core import config as _numba_config
 
+from ._kernel_sources import kernel_sources_digest
+
 _PACKAGE_DIR = Path(__file__).resolve().parent
 _EXTRA_KEYS: list[str] = []  # sources outside the package that compiled code depends on
 _DISPATCHERS: list = []  # every dispatcher made by :func:`jit`, to re-key their caches
@@ -28,17 +31,17 @@ _DISPATCHERS: list = []  # every dispatcher made by :func:`jit`, to re-key their
 
 @functools.lru_cache(maxsize=1)
 def kernel_cache_dir() -> str:
-    """Directory for compiled kernels, unique to this exact version of the package sources."""
-    digest = hashlib.sha256()
-    for path in sorted(_PACKAGE_DIR.rglob("*.py")):
-        digest.update(path.relative_to(_PACKAGE_DIR).as_posix().encode())
-        digest.update(path.read_bytes())
-    for text in _EXTRA_KEYS:
-        digest.update(text.encode())
+    """Directory for compiled kernels, unique to this exact version of the kernel sources."""
+    digest = kernel_sources_digest(_PACKAGE_DIR)
+    if _EXTRA_KEYS:
+        extra = hashlib.sha256(digest.encode())
+        for text in _EXTRA_KEYS:
+            extra.update(text.encode())
+        digest = extra.hexdigest()
     root = os.environ.get("EDDYHOP_CACHE_DIR") or os.path.join(
         os.environ.get("XDG_CACHE_HOME") or os.path.join(Path.home(), ".cache"), "eddyhop"
     )
-    return os.path.join(root, f"numba-{numba.__version__}-{digest.hexdigest()[:16]}")
+    return os.path.join(root, f"numba-{numba.__version__}-{digest[:16]}")
 
 
 @contextlib.contextmanager

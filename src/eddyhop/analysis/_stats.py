@@ -120,10 +120,13 @@ def jackknife_se(replicates, axis: int = 0):
 
 
 def student_quantile(b: int, confidence: float) -> float:
-    """Two-sided Student-t quantile for a jackknife with b replicates (b − 1 d.o.f.)."""
-    from scipy import stats
+    """Two-sided Student-t quantile for a jackknife with b replicates (b − 1 d.o.f.).
 
-    return float(stats.t.ppf(0.5 + 0.5 * confidence, max(b - 1, 1)))
+    ``scipy.special.stdtrit`` is what ``scipy.stats.t.ppf`` evaluates (the same numbers) without
+    importing ``scipy.stats``, which costs ~0.5 s of every ``eddyhop run``."""
+    from scipy.special import stdtrit
+
+    return float(stdtrit(max(b - 1, 1), 0.5 + 0.5 * confidence))
 
 
 def late_window(t: np.ndarray, fit_decades: float, fit_start: float | None = None) -> np.ndarray:

@@ -17,18 +17,20 @@ from .common import (
 @click.argument("study", type=click.Path(dir_okay=False))
 @click.option("--out", "-o", "out", type=click.Path(file_okay=False), required=True,
               help="Sweep folder: one netCDF per point, the manifest and the merged file.")
-@click.option("--backend", type=click.Choice(["auto", "serial", "processes", "dask"]),
+@click.option("--backend", type=click.Choice(["auto", "serial", "threads", "processes",
+                                              "dask"]),
               default="auto", show_default=True,
-              help="Where points run. auto: dask if a scheduler address is known, else local "
-                   "processes when there are several points and cores, else serial.")
+              help="Where points run. auto: dask if a scheduler address is known, else "
+                   "threads of this process when there are several points and cores, else "
+                   "serial.")
 @click.option("--jobs", "-j", type=int, default=None,
-              help="Local worker processes (points at once); -1 or unset: one per core. "
-                   "0 is refused.")
+              help="Points at once on this machine (threads or worker processes); -1 or "
+                   "unset: one per core. 0 is refused.")
 @click.option("--scheduler", default=None, metavar="tcp://HOST:PORT",
               help="Dask scheduler to send points to. [default: $DASK_SCHEDULER_ADDRESS]")
 @click.option("--workers", "-w", type=int, default=None, callback=check_workers,
               help="Threads per point; -1: every core. [default: run.workers when serial, "
-                   "else 1]")
+                   "--jobs with threads, else 1]")
 @click.option("--merged", type=click.Path(dir_okay=False), default=None,
               help="Where to write the merged Dataset. [default: OUT/sweep.nc]")
 @click.option("--no-merge", is_flag=True, help="Do not merge at the end.")
@@ -58,8 +60,8 @@ def command(study, out, backend, jobs, scheduler, workers, merged, no_merge, ret
     from ..errors import EddyhopError
     from ..study.cost import study_cost_checked
     from ..study.spec import load_study
-    from ..sweeps import run_sweep
     from ..sweeps.backends import scheduler_address
+    from ..sweeps.execute import run_sweep
 
     if not (timeout > 0 and timeout < float("inf")):
         raise EddyhopError(f"--timeout {timeout!r} is not allowed: give a finite number of "
@@ -80,7 +82,7 @@ def command(study, out, backend, jobs, scheduler, workers, merged, no_merge, ret
         report = run_sweep(spec, out, backend=backend, jobs=jobs, scheduler=scheduler,
                            workers=workers, progress=progress, retry_failed=retry_failed,
                            merge_to=None if no_merge else (merged or "default"),
-                           timeout=timeout)
+                           timeout=timeout, summarize=_scaling_lines)
     except KeyboardInterrupt:
         click.secho(f"interrupted: completed points are kept in {out}; run the same command "
                     "again to resume", fg="red", err=True)
@@ -97,13 +99,19 @@ def command(study, out, backend, jobs, scheduler, workers, merged, no_merge, ret
     for point_id, error in report.failed.items():
         click.secho(f"  failed {point_id}: {error}", fg="red", err=True)
     if report.merged is not None:
-        from ..results.io import open_result
-        from .merge import print_scaling
-
-        click.echo(f"wrote {report.merged}")
-        print_scaling(open_result(report.merged))
+        click.echo(f"kept {report.merged}: already the merge of these points" if
+                   report.merge_reused else f"wrote {report.merged}")
+        for line in report.summary:  # presentation.scaling_lines of the merged Dataset
+            click.echo(line)
     if report.failed:
         raise SystemExit(1)
+
+
+def _scaling_lines(merged):
+    # imported here: a resumed sweep whose merged file is current never loads xarray
+    from ..presentation import scaling_lines
+
+    return scaling_lines(merged)
 
 
 def _print_plan(study):

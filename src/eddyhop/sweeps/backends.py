@@ -19,7 +19,7 @@ from urllib.parse import urlsplit
 
 from ..errors import EddyhopError
 
-BACKENDS = ("auto", "serial", "processes", "dask")
+BACKENDS = ("auto", "serial", "threads", "processes", "dask")
 SCHEDULER_ENV = "DASK_SCHEDULER_ADDRESS"
 
 
@@ -309,9 +309,9 @@ def check_count(value, option: str, what: str) -> None:
 
 def make_pool(backend: str, *, jobs: int | None, scheduler: str | None, n_todo: int,
               timeout: float = 10.0):
-    """The pool for ``backend`` (``auto``: Dask when a scheduler address is known, local
-    processes when several points and cores are available, else serial).  ``jobs``: local
-    processes, ``None`` or -1 for every core."""
+    """The pool for ``backend`` (``auto``: Dask when a scheduler address is known, threads of
+    this process when several points and cores are available, else serial).  ``jobs``: points
+    at once on this machine (threads or processes), ``None`` or -1 for every core."""
     if backend not in BACKENDS:
         raise EddyhopError(f"backend {backend!r} is not known; choose one of: "
                            + ", ".join(BACKENDS))
@@ -324,7 +324,7 @@ def make_pool(backend: str, *, jobs: int | None, scheduler: str | None, n_todo: 
         if address:
             backend = "dask"
         elif min(n_todo, jobs) > 1:
-            backend = "processes"
+            backend = "threads"  # no worker start-up (sweeps/thread_pool.py)
         else:
             backend = "serial"
     if backend == "dask":
@@ -334,4 +334,8 @@ def make_pool(backend: str, *, jobs: int | None, scheduler: str | None, n_todo: 
         return DaskPool(address, timeout=timeout)
     if backend == "processes":
         return ProcessPool(min(jobs, max(n_todo, 1)))
+    if backend == "threads":
+        from .thread_pool import ThreadPool
+
+        return ThreadPool(min(jobs, max(n_todo, 1)))
     return SerialPool()

@@ -128,6 +128,8 @@ class SweepReport:
     failed: dict = field(default_factory=dict)
     redo_reasons: dict = field(default_factory=dict)
     merged: Path | None = None
+    merge_reused: bool = False  # the merged file was already the merge of these points
+    summary: list = field(default_factory=list)  # run_sweep(summarize=...) lines
     seconds: float = 0.0
     warm_seconds: float = 0.0
     point_seconds: list = field(default_factory=list)
@@ -153,17 +155,22 @@ def _prepare_folder(out) -> Path:
 def run_sweep(study, out, *, backend: str = "auto", jobs: int | None = None,
               scheduler: str | None = None, workers: int | None = None,
               progress: bool | None = None, retry_failed: bool = True,
-              merge_to="default", timeout: float = 10.0) -> SweepReport:
+              merge_to="default", timeout: float = 10.0, summarize=None) -> SweepReport:
     """Run (or resume) every point of ``study``'s sweep into folder ``out``.
 
-    ``backend``: ``serial``, ``processes`` (local processes through joblib/loky, ``jobs`` of
-    them; ``None`` or -1: one per core), ``dask`` (cluster at ``scheduler`` or
+    ``backend``: ``serial``, ``threads`` (``jobs`` points at once on threads of this process,
+    each split over ``jobs`` chunk threads; ``None`` or -1: one per core), ``processes``
+    (local processes through joblib/loky, ``jobs`` of them), ``dask`` (cluster at ``scheduler`` or
     ``$DASK_SCHEDULER_ADDRESS``) or ``auto``.  ``workers`` is the number of threads per point
-    (-1: every core; default: the study's ``run.workers`` for serial runs, 1 when points run
-    in parallel).  Counts of 0 or below -1 are refused, as for ``run.workers``.
+    (-1: every core; default: the study's ``run.workers`` for serial runs, ``jobs`` on
+    threads, 1 in worker processes or on Dask).  Counts of 0 or below -1 are refused, as for
+    ``run.workers``.
     ``merge_to``: path of the merged Dataset, ``"default"`` for ``out/sweep.nc``, ``None`` for
     no merge.  ``timeout`` (s) bounds the wait for a Dask scheduler and its first worker (one
     deadline for all of it).  None of these options changes any number.
+    ``summarize``: optional function of the merged Dataset returning lines of text; its lines
+    are kept with the merge record and returned as ``report.summary`` (also when a resumed
+    sweep keeps an up-to-date merged file, which is then not read again).
     """
     from ..engine.runner import step_size_warnings
     from ..study.spec import Study, load_study
@@ -198,19 +205,23 @@ def run_sweep(study, out, *, backend: str = "auto", jobs: int | None = None,
                          if p.id not in todo and manifest.entry(p.id)["status"] == "failed"}
         queue = [p for p in points if p.id in todo]
         if queue:
+            from ..engine.runner import step_size_warnings
+
             pool = make_pool(backend, jobs=jobs, scheduler=scheduler, n_todo=len(queue),
                              timeout=timeout)
             report.backend, report.slots = pool.name, pool.slots
             try:
                 if hasattr(pool, "start"):
                     pool.start()
-                if pool.name != "serial":
+                if pool.name not in ("serial", "threads"):
                     # local workers share this machine's kernel cache: warm it once per
                     # source version and first point; a cluster's machines may not share it
                     report.warm_seconds = warm_kernels(spec.point_document(queue[0]),
                                                        once=pool.name == "processes")
                 threads = workers if workers is not None else (
                     study.run.workers if pool.name == "serial" else 1)
+                if hasattr(pool, "point_threads"):  # threads backend: points split over slots
+                    threads = pool.point_threads(workers)
                 _dispatch(pool, queue, spec, study, manifest, report, threads, show,
                           step_size_warnings)
             finally:
@@ -218,9 +229,23 @@ def run_sweep(study, out, *, backend: str = "auto", jobs: int | None = None,
         if merge_to is not None and manifest.counts()["done"]:
             from ..results.io import write_netcdf
             from .merge import merge_sweep
+            from .merge_record import RECORD, merged_is_current, record_merge
 
             target = directory / MERGED_NAME if merge_to == "default" else Path(merge_to)
-            write_netcdf(merge_sweep(directory), target)
+            # nothing computed and the file still is the merge of these points: keep it
+            report.merge_reused = not queue and merged_is_current(manifest, target,
+                                                                  summarize is not None)
+            if report.merge_reused:
+                report.summary = list(manifest.data[RECORD].get("summary") or [])
+            else:
+                from ..results.io import write_netcdf
+                from .merge import merge_sweep
+
+                merged = merge_sweep(directory)
+                write_netcdf(merged, target)
+                report.summary = list(summarize(merged)) if summarize is not None else []
+                record_merge(manifest, target, report.summary if summarize else None)
+                manifest.save()
             report.merged = target
     report.seconds = time.perf_counter() - started
     return report

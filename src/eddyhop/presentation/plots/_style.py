@@ -290,16 +290,27 @@ def save_figure(figure, path, formats=("png",), dpi: int = 150) -> list[Path]:
         raise EddyhopError(f"output directory {str(parent)!r} does not exist; create it first")
     if path.suffix.lstrip(".").lower() in FORMATS:
         path = path.with_suffix("")
-    make_text_safe(figure)
-    written = []
     for fmt in formats:
         if fmt not in FORMATS:
             raise EddyhopError(f"figure format {fmt!r} is not supported; choose from "
                                + ", ".join(FORMATS))
-        target = path.parent / f"{path.name}.{fmt}"
-        with atomic_path(target) as temporary:
-            figure.savefig(temporary, format=fmt, dpi=dpi, metadata=_metadata(fmt))
-        written.append(target)
+    make_text_safe(figure)
+    written = []
+    engine = figure.get_layout_engine()
+    try:
+        for number, fmt in enumerate(formats):
+            if number == 1 and engine is not None:
+                # the layout (in figure coordinates, independent of dpi and file format) was
+                # computed by the first save; the later formats reuse it instead of paying
+                # for the constrained-layout solve again (~10 % of a save)
+                figure.set_layout_engine("none")
+            target = path.parent / f"{path.name}.{fmt}"
+            with atomic_path(target) as temporary:
+                figure.savefig(temporary, format=fmt, dpi=dpi, metadata=_metadata(fmt))
+            written.append(target)
+    finally:
+        if engine is not None and figure.get_layout_engine() is not engine:
+            figure.set_layout_engine(engine)
     return written
 
 
