@@ -23,7 +23,10 @@ from .errors import StudyError
 # scheme's cost ratio (README performance table, benchmarks/results/latest.txt; a 2-vCPU
 # machine — the figures scale with the machine's speed)
 NS_PER_STEP_EM = 11.6
-SCHEME_COST = {"euler_maruyama": 1.0, "milstein": 1.05, "strang_rk2": 1.52, "rk4": 1.52}
+SCHEME_COST = {"euler_maruyama": 1.0, "milstein": 1.05, "strang_rk2": 1.52, "rk4": 1.52,
+               # per kernel step at dt·U·k = 0.1 and the default tolerance (adaptive: it
+               # grows for a coarser dt; benchmarks/bench_streamline.py)
+               "projected_rk45": 12.0}
 # per particle, the work at events (measured here with the runs of tests/test_cost.py on the
 # 2-vCPU development machine, whole simulate() CPU time minus the step figure above): about
 # 2 ns per moment column at each output time and 9 ns per aged (t_a, lag) pair
