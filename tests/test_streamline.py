@@ -138,7 +138,7 @@ def test_refuses_noise_and_time_dependent_flows(flow, extra, field):
 def test_time_dependent_flow_defaults_to_rk4_and_tolerance_needs_the_scheme():
     text = study_text('family = "oscillating_cellular"\nB = 0.5\nomega = 1.0')
     assert parse_study_text(text).run.integrator == "rk4"
-    with pytest.raises(StudyError, match="run.tolerance"):
+    with pytest.raises(StudyError, match=r"run\.tolerance"):
         parse_study_text(study_text(FLOWS["cellular"], integrator="rk4", tolerance="1e-6"))
 
 
