@@ -18,6 +18,7 @@ from ._common import AnalysisOptionError, merge_into, require
 from .aging import aging
 from .crossovers import crossover_times
 from .deff import BoundedVarianceWarning, ShortRunWarning, effective_diffusivity
+from .drift_frame import drift_frame, drift_frame_variance, has_drift
 from .exponents import local_exponent
 from .hopping import fit_tails, hopping
 from .moments import displacement_pdf, moment_spectrum
@@ -35,6 +36,7 @@ STEPS = (
     (displacement_pdf, lambda ds: "track_x" in ds.variables),
     (hopping, lambda ds: "residence_count" in ds.variables),
     (step_check, has_step_check),
+    (drift_frame, has_drift),
 )
 
 
@@ -91,6 +93,7 @@ __all__ = [
     "analyse",
     "crossover_times",
     "displacement_pdf",
+    "drift_frame_variance",
     "effective_diffusivity",
     "fit_tails",
     "hopping",
