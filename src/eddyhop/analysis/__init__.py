@@ -24,6 +24,7 @@ from .hopping import fit_tails, hopping
 from .moments import displacement_pdf, moment_spectrum
 from .regimes import regimes
 from .stepcheck import has_step_check, step_check
+from .walk_models import walk_model_exponents
 
 # (function, predicate on the Dataset: run it within analyse?)
 STEPS = (
@@ -37,6 +38,7 @@ STEPS = (
     (hopping, lambda ds: "residence_count" in ds.variables),
     (step_check, has_step_check),
     (drift_frame, has_drift),
+    (walk_model_exponents, lambda ds: "residence_count" in ds.variables),
 )
 
 
@@ -102,4 +104,5 @@ __all__ = [
     "option_names",
     "regimes",
     "step_check",
+    "walk_model_exponents",
 ]
