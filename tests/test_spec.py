@@ -92,7 +92,9 @@ def test_peclet_conventions_differ_by_pi():
 
 def test_defaults_resolve():
     study = make_study(noise={"kappa": 0.0, "_replace": True})
-    assert study.run.integrator == "rk4"
+    # steady flow without noise: the streamline-preserving scheme (benchmarks/bench_streamline.py)
+    assert study.run.integrator == "projected_rk45"
+    assert study.run.tolerance == 1e-8
     assert study.noise.peclet is None
     assert study.starts[0].kind == "uniform"
 

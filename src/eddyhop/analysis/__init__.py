@@ -22,12 +22,14 @@ from ._common import AnalysisOptionError, merge_into, require
 from .aging import aging
 from .crossovers import crossover_times
 from .deff import BoundedVarianceWarning, ShortRunWarning, effective_diffusivity
+from .drift_frame import drift_frame, drift_frame_variance, has_drift
 from .exponents import local_exponent
 from .hopping import fit_tails, hopping
 from .moments import displacement_pdf, moment_spectrum
 from .regimes import regimes
 from .stepcheck import has_step_check, step_check
 from .velocity import velocity_statistics
+from .walk_models import walk_model_exponents
 
 # (function, predicate on the Dataset: run it within analyse?)
 STEPS = (
@@ -41,6 +43,8 @@ STEPS = (
     (hopping, lambda ds: "residence_count" in ds.variables),
     (step_check, has_step_check),
     (velocity_statistics, lambda ds: "velocity_correlation_xx" in ds.variables),
+    (drift_frame, has_drift),
+    (walk_model_exponents, lambda ds: "residence_count" in ds.variables),
 )
 
 
@@ -97,6 +101,7 @@ __all__ = [
     "analyse",
     "crossover_times",
     "displacement_pdf",
+    "drift_frame_variance",
     "effective_diffusivity",
     "fit_tails",
     "hopping",
@@ -106,4 +111,5 @@ __all__ = [
     "regimes",
     "step_check",
     "velocity_statistics",
+    "walk_model_exponents",
 ]

@@ -20,6 +20,10 @@ milstein           X += a dt + b ΔW + ½ b b' (ΔW² − dt)        1 if the   
 strang_rk2         noise ½-step, midpoint-RK2 advection over   1 (additive) 2
                    dt, noise ½-step (Strang 1968 splitting)
 rk4                classical Runge–Kutta, deterministic κ = 0  4 (ODE)      –
+projected_rk45     adaptive Dormand–Prince 5(4) substeps, each 5 (ODE)      –
+                   projected onto the start's ψ level set;
+                   steady flows, κ = 0 (``streamline.py``; the
+                   kernel calls it instead of advance_tile)
 =================  ==========================================  ===========  =========
 
 The noise ``sqrt(2κ(X)) dW`` is commutative only when κ is constant (Milstein then equals
@@ -48,21 +52,24 @@ EULER_MARUYAMA = 0
 MILSTEIN = 1
 STRANG_RK2 = 2
 RK4 = 3
+PROJECTED_RK45 = 4  # stepped by streamline.advance_tile_projected, not by this module
 SCHEME_CODES = {"euler_maruyama": EULER_MARUYAMA, "milstein": MILSTEIN,
-                "strang_rk2": STRANG_RK2, "rk4": RK4}
+                "strang_rk2": STRANG_RK2, "rk4": RK4, "projected_rk45": PROJECTED_RK45}
 # (strong order, weak order) under the conditions in the table above (Milstein's strong order 1
 # holds for commuting noise only; see the module docstring).
 SCHEME_ORDERS = {"euler_maruyama": (0.5, 1.0), "milstein": (1.0, 1.0),
-                 "strang_rk2": (1.0, 2.0), "rk4": (4.0, 4.0)}
+                 "strang_rk2": (1.0, 2.0), "rk4": (4.0, 4.0), "projected_rk45": (5.0, 5.0)}
 # When the orders above hold (shown by ``eddyhop families``).
 SCHEME_CONDITIONS = {
     "euler_maruyama": "strong 1 for additive noise (constant kappa)",
     "milstein": "strong 1 for commuting noise only; 1/2 with noise.model = 'modulated' in 2-D",
     "strang_rk2": "additive noise only (constant kappa)",
     "rk4": "deterministic runs (kappa = 0)",
+    "projected_rk45": "deterministic runs (kappa = 0) of steady flows; adaptive, keeps psi",
 }
 # Normal draws a scheme consumes per step (slots of ``rng.normals4``).
-NORMALS_PER_STEP = {"euler_maruyama": 2, "milstein": 2, "strang_rk2": 4, "rk4": 0}
+NORMALS_PER_STEP = {"euler_maruyama": 2, "milstein": 2, "strang_rk2": 4, "rk4": 0,
+                    "projected_rk45": 0}
 # Rows of the scratch array ``work`` that :func:`advance_tile` needs (tile width columns).
 TILE_WORK_ROWS = 12
 

@@ -40,8 +40,17 @@ from numba.extending import intrinsic
 
 from .._jit import jit
 from ..flows.compiled import confine, has_walls
-from .integrators import RK4, STRANG_RK2, TILE_WORK_ROWS, advance_tile, tile_velocity
+from .integrators import (
+    PROJECTED_RK45,
+    RK4,
+    STRANG_RK2,
+    TILE_WORK_ROWS,
+    advance_tile,
+    tile_velocity,
+)
 from .rng import fill_normals
+from .streamline import WORK_ROWS as PROJECTED_WORK_ROWS
+from .streamline import advance_tile_projected, start_tile
 
 MOMENT_COLUMNS = ("dx", "dy", "dx2", "dy2", "dxdy", "r4", "dx3", "dy3", "dx4", "dy4")
 AGED_COLUMNS = ("r2", "dx2", "dy2", "r4")
@@ -76,7 +85,7 @@ def _borrowed(typingctx, array):
 @jit
 def normal_pairs_per_step(scheme):
     """Philox blocks (pairs of normals) a scheme consumes per step."""
-    if scheme == RK4:
+    if scheme == RK4 or scheme == PROJECTED_RK45:
         return 0
     if scheme == STRANG_RK2:
         return 2
@@ -312,7 +321,7 @@ def run_particles(
     ys = np.empty(TILE)
     x_new = np.empty(TILE)
     y_new = np.empty(TILE)
-    work = np.empty((TILE_WORK_ROWS, TILE))
+    work = np.empty((max(TILE_WORK_ROWS, PROJECTED_WORK_ROWS), TILE))
     ref = np.empty((TILE, max(aged.shape[1], 1), 2))
     vref = np.empty((max(vcorr.shape[1], 1), 2, TILE))
     tile_u = np.empty(TILE)
@@ -332,14 +341,19 @@ def run_particles(
             ys[g] = y0[lo + g]
             if hop_on:
                 _start_hops(hop, g, xs[g], ys[g], cell)
+        if scheme == PROJECTED_RK45:
+            start_tile(fcode, fp, xs, ys, dt, m, work)
         failed = False
         step = 0
         for e in range(events.size):
             while step < events[e]:
                 fill_normals(key0, key1, particle0, m, step, n_pairs, words, z)
                 t = step * dt
-                advance_tile(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m,
-                             x_new, y_new, work)
+                if scheme == PROJECTED_RK45:  # adaptive substeps kept on ψ's level set
+                    advance_tile_projected(fcode, fp, nq, xs, ys, t, dt, m, x_new, y_new, work)
+                else:
+                    advance_tile(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m,
+                                 x_new, y_new, work)
                 if walls:
                     for g in range(m):
                         x_new[g], y_new[g] = confine(fcode, xs[g], ys[g], x_new[g], y_new[g],

@@ -26,6 +26,7 @@ from .noise import pack_noise
 from .rng import split_seed
 from .schedule import MIN_CHECK_BATCH, Schedule, build_schedule
 from .stepcheck import CHECK_COLUMNS, run_step_check
+from .streamline import scheme_parameters
 from .velocity_pairs import VELOCITY_COLUMNS
 
 MAX_BLOCK = 256
@@ -64,7 +65,9 @@ def _peak_speed(family, params, n: int = 64) -> float:
 # at Pe = 10 and far more at high Pe (measured: +48 % at dt·U·k = 0.05, Pe = 100); the
 # splitting scheme is unbiased within 1 % at dt·U·k = 0.2, Pe = 10 (docs/performance.md).
 STATIC_ADVECTIVE_LIMIT = {"euler_maruyama": 0.01, "milstein": 0.01, "strang_rk2": 0.25,
-                          "rk4": 0.5}
+                          "rk4": 0.5,
+                          # adaptive substeps: dt is the output resolution, not the step
+                          "projected_rk45": math.inf}
 
 
 def step_size_warnings(study) -> list[str]:
@@ -275,6 +278,9 @@ def _make_context(study, schedule: Schedule) -> tuple[_Context, np.ndarray, np.n
     k = family.wavenumber(params)
     ncode, nq = pack_noise(study.noise, k)
     run = study.run
+    if run.integrator == "projected_rk45":
+        nq = scheme_parameters(nq, run.tolerance, family.eddy_size(params),
+                               max(family.velocity_scale(params), _peak_speed(family, params)))
     velocity_scale = family.velocity_scale(params)
     advective = 1.0 / (velocity_scale * k) if velocity_scale > 0 else run.t_end
     gap = study.hopping.flight_gap if study.hopping.flight_gap is not None else advective

@@ -15,6 +15,7 @@ from .._jit import jit
 from . import cellular
 from ._trig import sincos
 from .base import VELOCITY, WAVENUMBER, FlowFamily, Parameter
+from .drift_direction import drift_record, resolve_drift
 
 
 @jit
@@ -35,6 +36,14 @@ gradient = cellular.gradient
 
 
 class DriftingCellular(FlowFamily):
+    def validate(self, values, where="flow"):
+        """The drift as components, angle and speed, or rotation number
+        (``drift_direction.py``); the result records all forms."""
+        values = resolve_drift(values, where)
+        checked = super().validate(values, where)
+        checked.update(drift_record(checked["drift_x"], checked["drift_y"]))
+        return checked
+
     def stagnation_points(self, values):
         """u = 0 and v = 0 give sin k(x+y) = (V_y − V_x)/U and sin k(x−y) = −(V_x + V_y)/U
         (sum and difference of the two equations), so stagnation points exist only while

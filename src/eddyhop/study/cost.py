@@ -23,7 +23,25 @@ from ..errors import StudyError
 # scheme's cost ratio (README performance table, benchmarks/results/latest.txt; a 2-vCPU
 # machine — the figures scale with the machine's speed)
 NS_PER_STEP_EM = 11.6
-SCHEME_COST = {"euler_maruyama": 1.0, "milstein": 1.05, "strang_rk2": 1.52, "rk4": 1.52}
+SCHEME_COST = {"euler_maruyama": 1.0, "milstein": 1.05, "strang_rk2": 1.52, "rk4": 1.52,
+               # per kernel step at dt·U·k ≤ 0.1 and the default tolerance; adaptive, so
+               # it grows ∝ dt·U·k above (1.9 µs per step at dt·U·k = 1 measured,
+               # benchmarks/results/streamline_latest.txt): see _scheme_cost
+               "projected_rk45": 16.0}
+
+
+def _scheme_cost(study) -> float:
+    """Cost of one particle-step relative to Euler–Maruyama."""
+    run = study.run
+    cost = SCHEME_COST.get(run.integrator, 1.52)
+    if run.integrator == "projected_rk45":
+        try:
+            family, params = study.flow.model, study.flow.params
+            advective = run.dt * family.velocity_scale(params) * family.wavenumber(params)
+        except (KeyError, TypeError, ValueError, AttributeError):
+            advective = 1.0
+        cost *= max(1.0, advective / 0.1) if advective == advective else 10.0
+    return cost
 # per particle, the work at events (measured here with the runs of tests/test_cost.py on the
 # 2-vCPU development machine, whole simulate() CPU time minus the step figure above): about
 # 2 ns per moment column at each output time and 9 ns per aged (t_a, lag) pair
@@ -174,7 +192,7 @@ def estimate(study, points: int = 1, workers: int | None = None) -> Cost:
                                       + velocity_pairs))
     memory = n_starts * retained + tracks + chunk_bytes + positions + schedule
 
-    ns = NS_PER_STEP_EM * SCHEME_COST.get(run.integrator, 1.52)
+    ns = NS_PER_STEP_EM * _scheme_cost(study)
     event_ns = (NS_PER_OUTPUT_COLUMN * samples * columns + NS_PER_AGED_PAIR * aged_pairs
                 + NS_PER_VELOCITY_PAIR * velocity_pairs)
     seconds = (particle_steps * ns + n * n_starts * event_ns) * 1e-9 * points

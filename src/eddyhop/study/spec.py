@@ -36,7 +36,10 @@ MIN_CHECK_PARTICLES = 2 * MIN_CHECK_BATCH
 # about as much per particle as the run itself: ≈ 15-16 % of the run, within the 20 % budget
 # (benchmarks/bench_stepcheck.py measured 1.21 at a fifth).
 STEP_CHECK_FRACTION = 0.15
-INTEGRATORS = ("euler_maruyama", "milstein", "strang_rk2", "rk4")
+INTEGRATORS = ("euler_maruyama", "milstein", "strang_rk2", "rk4", "projected_rk45")
+# run.tolerance of projected_rk45: position error allowed per advective time 1/(U k), in eddy
+# sides π/k (error per unit step; see streamline.py)
+DEFAULT_TOLERANCE = 1e-8
 NOISE_MODELS = ("constant", "modulated")
 PECLET_CONVENTIONS = ("wavenumber", "cell_side")
 SPACINGS = ("log", "linear")
@@ -94,6 +97,8 @@ class RunSpec:
     # ``step_check_particles`` particles of every start region (see stepcheck.py)
     step_check: bool = False
     step_check_particles: int = 0
+    # projected_rk45 only: position error per advective time 1/(U k), in eddy sides π/k
+    tolerance: float = DEFAULT_TOLERANCE
 
 
 @dataclass(frozen=True)
@@ -222,7 +227,7 @@ def _parse_noise(document, flow: FlowSpec):
                      modulation=modulation)
 
 
-def _parse_run(document, noise: NoiseSpec):
+def _parse_run(document, noise: NoiseSpec, flow: FlowSpec | None = None):
     where = "run"
     table = _table(document, "run")
     allowed = {f.name for f in fields(RunSpec)}
@@ -260,7 +265,14 @@ def _parse_run(document, noise: NoiseSpec):
                              f"same step of run.dt = {dt:g}; space them at least dt apart or "
                              f"reduce run.dt")
     integrator = _choice(table, "integrator", where, INTEGRATORS,
-                         default_integrator(noise))
+                         default_integrator(noise, flow))
+    tolerance = _number(table, "tolerance", where, default=DEFAULT_TOLERANCE, low=1e-14,
+                        high=1e-1)
+    if "tolerance" in table and integrator != "projected_rk45":
+        raise StudyError(f"run.tolerance = {tolerance:g} applies to run.integrator = "
+                         f"'projected_rk45' only (this run uses '{integrator}', fixed steps)")
+    if integrator == "projected_rk45":
+        _check_projected(noise, flow)
     if integrator == "rk4" and noise.kappa != 0.0:
         raise StudyError("run.integrator = 'rk4' is deterministic and needs noise.kappa = 0; "
                          "for noisy runs choose euler_maruyama, milstein or strang_rk2")
@@ -284,7 +296,19 @@ def _parse_run(document, noise: NoiseSpec):
                    t_first=t_first, times=times, integrator=integrator, seed=seed, workers=workers,
                    chunk=chunk, batches=batches, tracked=min(tracked, particles),
                    track_samples=track_samples, progress=progress, step_check=step_check,
-                   step_check_particles=check_particles)
+                   step_check_particles=check_particles, tolerance=tolerance)
+
+
+def _check_projected(noise: NoiseSpec, flow: FlowSpec | None) -> None:
+    """projected_rk45 keeps ψ, a constant of motion only of steady flows without noise."""
+    if noise.kappa != 0.0:
+        raise StudyError(f"run.integrator = 'projected_rk45' needs noise.kappa = 0 (got "
+                         f"{noise.kappa:g}): with noise, tracers leave their streamlines; "
+                         "choose strang_rk2, milstein or euler_maruyama")
+    if flow is not None and not flow.model.steady:
+        raise StudyError(f"run.integrator = 'projected_rk45' needs a steady flow; flow.family "
+                         f"= '{flow.family}' is time-dependent (psi is not conserved); "
+                         "choose rk4")
 
 
 # Largest phase k·|u|·dt a single step may carry, in radians: 2**20, the range of the flows'
@@ -329,12 +353,15 @@ def _check_flow_range(flow: FlowSpec, run: RunSpec) -> None:
         "lower the amplitude or run.dt")
 
 
-def default_integrator(noise: NoiseSpec) -> str:
-    """The most accurate applicable scheme: RK4 for deterministic runs (κ = 0), the Strang
-    splitting (weak order 2) for additive noise, Milstein where κ varies in space (the
-    splitting's exact Gaussian noise step needs constant κ)."""
+def default_integrator(noise: NoiseSpec, flow: FlowSpec | None = None) -> str:
+    """The most accurate applicable scheme.  Deterministic runs (κ = 0): ``projected_rk45`` for
+    steady flows (adaptive, position error within ``run.tolerance``, ψ kept to round-off over
+    any horizon; fixed-step RK4 drifts off the streamlines, benchmarks/bench_streamline.py),
+    RK4 for time-dependent ones.  Noisy runs: the Strang splitting (weak order 2) for additive
+    noise, Milstein where κ varies in space (the splitting's exact Gaussian noise step needs
+    constant κ)."""
     if noise.kappa == 0.0:
-        return "rk4"
+        return "projected_rk45" if flow is not None and flow.model.steady else "rk4"
     return "strang_rk2" if noise.model == "constant" else "milstein"
 
 
@@ -442,7 +469,7 @@ def parse_study(document: dict, source_text: str = "", source_path: str = "") ->
                          f"eddyhop reads schema_version = {SCHEMA_VERSION}")
     flow = _parse_flow(document, source_path)
     noise = _parse_noise(document, flow)
-    run = _parse_run(document, noise)
+    run = _parse_run(document, noise, flow)
     _check_flow_range(flow, run)
     starts = parse_starts(document.get("start", {"kind": "uniform"}), flow)
     sweep = None
