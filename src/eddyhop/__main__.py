@@ -1,6 +1,10 @@
-"""``python -m eddyhop`` runs the command line."""
+"""``python -m eddyhop`` runs the command line (Ctrl-C at any moment exits 130)."""
 
-from eddyhop.cli import main
+import sys
 
 if __name__ == "__main__":
-    main()
+    try:
+        from eddyhop.cli import entry
+    except KeyboardInterrupt:  # while the command line itself is imported
+        sys.exit(130)
+    entry()

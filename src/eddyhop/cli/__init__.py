@@ -34,4 +34,32 @@ def main():
 
 load_commands(main)
 
-__all__ = ["COMMANDS", "main"]
+
+def entry(argv=None):
+    """The console script: ``main`` with exit status 130 for Ctrl-C at any moment.
+
+    Click alone turns a Ctrl-C outside a command's body (while parsing, or while a command
+    module is imported) into "Aborted!" and status 1, and one that arrives after the command
+    has finished (while the interpreter shuts down its thread pools) kills the process with
+    the signal.  Here Ctrl-C before the end is status 130; after the command has ended it is
+    ignored, so a finished command keeps its own status.
+    """
+    import signal
+    import sys
+
+    try:
+        result = main.main(args=argv, prog_name="eddyhop", standalone_mode=False)
+        code = result if isinstance(result, int) else 0
+    except (KeyboardInterrupt, click.exceptions.Abort):
+        click.echo("interrupted", err=True)
+        code = 130
+    except click.ClickException as exc:
+        exc.show()
+        code = exc.exit_code
+    except SystemExit as exc:
+        code = exc.code
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    sys.exit(code)
+
+
+__all__ = ["COMMANDS", "entry", "main"]
