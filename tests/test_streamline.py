@@ -156,3 +156,31 @@ def test_psi_kept_over_a_million_period_crossings():
     _, _, x, _, _ = tracks(ds)
     assert np.min(np.abs(x[:, -1])) / (2.0 * math.pi) > 1e6
     assert np.all(drift <= 64 * scale), float(np.max(drift / scale))
+
+
+def test_uninitialised_scratch_does_not_change_a_step():
+    """The kernel's scratch is np.empty: whatever it holds (here nan, inf or zeros) must not
+    enter a step (weight-0 stage terms once turned 0 × nan into a step that never ended)."""
+    from eddyhop.flows import get_family
+    from eddyhop.streamline import (
+        WORK_ROWS,
+        advance_tile_projected,
+        scheme_parameters,
+        start_tile,
+    )
+
+    family = get_family("cats_eye")
+    values = family.validate({"epsilon": 0.4})
+    fp = family.pack(values)
+    nq = scheme_parameters(np.zeros(3), 1e-8, math.pi, 1.0)
+    rng = np.random.default_rng(0)
+    xs, ys = rng.uniform(0, 6, 16), rng.uniform(0, 6, 16)
+    ends = []
+    for fill in (0.0, np.nan, np.inf):
+        work = np.full((WORK_ROWS, 128), fill)
+        x_new, y_new = np.full(128, fill), np.full(128, fill)
+        start_tile(family.code, fp, xs, ys, 0.5, 16, work)
+        advance_tile_projected(family.code, fp, nq, xs, ys, 0.0, 0.5, 16, x_new, y_new, work)
+        ends.append((x_new[:16].copy(), y_new[:16].copy()))
+    for x_end, y_end in ends[1:]:
+        assert np.array_equal(x_end, ends[0][0]) and np.array_equal(y_end, ends[0][1])

@@ -108,7 +108,13 @@ def _rk4_advection(fcode, fp, x, y, t, dt):
 
 @jit
 def advance(scheme, fcode, fp, ncode, nq, x, y, t, dt, sqrt_dt, z0, z1, z2, z3):
-    """One step of ``scheme`` from (x, y) at time t; z0..z3 are independent N(0,1) draws."""
+    """One step of ``scheme`` from (x, y) at time t; z0..z3 are independent N(0,1) draws.
+
+    Not for ``projected_rk45``, which keeps per-particle state (ψ₀, step size) between steps
+    (``streamline.advance_tile_projected``): that code returns nan here, never a wrong step.
+    """
+    if scheme == PROJECTED_RK45:
+        return math.nan, math.nan
     if scheme == RK4:
         return _rk4_advection(fcode, fp, x, y, t, dt)
     if scheme == STRANG_RK2:

@@ -142,6 +142,11 @@ def _decide(fcode, fp, work, j, t, dt, rate, side, speed, smallest):
     ey = h * (_E1 * work[_V1, j] + _E3 * work[_STAGES + 3, j] + _E4 * work[_STAGES + 5, j]
               + _E5 * work[_STAGES + 7, j] + _E6 * work[_STAGES + 9, j] + _E7 * work[_V7, j])
     error = math.hypot(ex, ey)
+    if not math.isfinite(error + work[_X5, j] + work[_Y5, j]):
+        # a non-finite field: end the step here so that the kernel reports the blow-up
+        work[_XC, j] = work[_X5, j]
+        work[_YC, j] = work[_Y5, j]
+        return True
     size = abs(work[_XC, j]) + abs(work[_YC, j]) + side
     allowed = max(rate * h, _ROUNDOFF * size)
     x5 = work[_X5, j]
@@ -199,6 +204,10 @@ def advance_tile_projected(fcode, fp, nq, xs, ys, t, dt, m, x_new, y_new, work):
         work[_YC, g] = ys[g]
         work[_ELAPSED, g] = 0.0
         work[STEP_ROW, g] = min(work[STEP_ROW, g], dt)
+        # stage rows enter the first stage sums with weight 0: they must hold finite numbers
+        # (0 × inf or 0 × nan of uninitialised scratch would poison the step)
+        for row in range(_STAGES, _STAGES + 10):
+            work[row, g] = 0.0
     tile_velocity(fcode, fp, work[_XC], work[_YC], t, work[_U1], work[_V1], m)
     n = m
     while n > 0:
