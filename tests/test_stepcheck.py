@@ -173,7 +173,8 @@ def test_defaults():
                                   "_replace": True})
     assert modulated.run.integrator == "milstein"
     deterministic = make_study(noise={"kappa": 0.0, "_replace": True})
-    assert deterministic.run.integrator == "rk4" and not deterministic.run.step_check
+    # steady flow, kappa = 0: the streamline-preserving scheme (docs/analysis.md, noise-free)
+    assert deterministic.run.integrator == "projected_rk45" and not deterministic.run.step_check
     assert make_study(run={"particles": 1000}).run.step_check_particles == 150
     assert make_study(run={"particles": 20}).run.step_check_particles == 16
     assert not make_study(run={"particles": 8}).run.step_check

@@ -161,13 +161,13 @@ def test_psi_kept_over_a_million_period_crossings():
 def test_uninitialised_scratch_does_not_change_a_step():
     """The kernel's scratch is np.empty: whatever it holds (here nan, inf or zeros) must not
     enter a step (weight-0 stage terms once turned 0 × nan into a step that never ended)."""
-    from eddyhop.flows import get_family
-    from eddyhop.streamline import (
+    from eddyhop.engine.streamline import (
         WORK_ROWS,
         advance_tile_projected,
         scheme_parameters,
         start_tile,
     )
+    from eddyhop.flows import get_family
 
     family = get_family("cats_eye")
     values = family.validate({"epsilon": 0.4})
