@@ -159,3 +159,30 @@ def test_report_summary_of_a_reference_names_its_homogenized_value(files):
     # Taylor dispersion, D_xx/κ = 1 + Pe²/2 = 3 at Pe = 2 (source at the top of this file)
     assert "D_eff/κ = " in line
     assert float(line.split("D_xx = ")[1].split(",")[0]) == pytest.approx(3 * kappa, rel=1e-5)
+
+
+def test_measured_tracks_sit_beside_a_model_run(tmp_path):
+    """A measured set (here: a run's own tracked particles, written as a CF trajectory file and
+    read back by ``eddyhop tracks``) is compared with the run: no flow family needed, kind
+    "measured", and — being a subset of the same tracers — its D_xx agrees with the run's
+    within 4 combined standard errors (the bound used throughout this file)."""
+    from eddyhop.tracks import analyse_tracks, write_trajectories
+
+    run = {"particles": 400, "dt": 0.02, "t_end": 20.0, "n_times": 16, "seed": 21,
+           "tracked": 400, "track_samples": 200}
+    study = make_study(title="shear tracked", run=run, **SHEAR)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        ds = eddyhop.simulate(study)
+    write_trajectories(ds, tmp_path / "tracks.nc")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        measured = analyse_tracks(tmp_path / "tracks.nc")
+    eddyhop.write_netcdf(measured, tmp_path / "measured.nc")
+    eddyhop.write_netcdf(ds, tmp_path / "run.nc")
+    comparison = compare([tmp_path / "measured.nc", tmp_path / "run.nc"],
+                         labels=["measured", "model"])
+    assert list(comparison["kind"].values) == ["measured", "monte_carlo"]
+    d, se = comparison["D_xx"].values, comparison["D_xx_se"].values
+    assert np.all(np.isfinite(d)) and np.all(se > 0)
+    assert abs(d[0] - d[1]) < 4.0 * np.hypot(se[0], se[1])

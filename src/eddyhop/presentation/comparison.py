@@ -44,6 +44,10 @@ SHOWN = {"D_eff_over_kappa": "D_eff/κ"}
 REFERENCE_TENSOR = {"D_xx": "homogenized_dxx", "D_yy": "homogenized_dyy"}
 
 
+class UnitsDifferWarning(UserWarning):
+    """The compared results are in different units (numbers compared as given)."""
+
+
 def _name(source, index):
     if isinstance(source, (str, os.PathLike)):
         return Path(source).stem
@@ -58,7 +62,7 @@ def _open(source, index):
         if ds.attrs.get("eddyhop_kind") == "sweep":
             raise InputDataError(f"{str(source)!r} is a merged sweep; compare takes runs and "
                                  "references: give point files (FOLDER/points/<id>.nc)")
-        ds = require_kind(ds, source, ("monte_carlo", "reference"), "compare")
+        ds = require_kind(ds, source, ("monte_carlo", "reference", "measured"), "compare")
         shown = str(source)
     else:
         ds = source
@@ -131,12 +135,23 @@ def compare(sources, *, labels=None, starts=None, analyse: bool = True) -> xr.Da
                              "one per result")
     opened = [_open(source, i) for i, source in enumerate(sources)]
     names = list(labels) if labels is not None else [_name(s, i) for i, s in enumerate(sources)]
-    families = {str(ds.attrs.get("flow_family", "?")) for ds, _ in opened}
+    # measured tracks (eddyhop tracks) carry no flow family: they sit beside any model
+    modelled = [ds for ds, _ in opened if ds.attrs.get("eddyhop_kind") != "measured"]
+    families = {str(ds.attrs.get("flow_family", "?")) for ds in modelled} or {"measured"}
     if len(families) > 1:
         shown = ", ".join(f"{shown!r}: {ds.attrs.get('flow_family', '?')}"
                           for ds, shown in opened)
         raise InputDataError(f"compare needs results of one flow family; these differ "
                              f"({shown})")
+    units = {shown: (str(ds["msd"].attrs.get("units", "1")),
+                     str(ds["time"].attrs.get("units", "1"))) for ds, shown in opened}
+    if len(set(units.values())) > 1:  # e.g. measured tracks in mm and s beside a model in 1/k
+        warnings.warn("compare: the results' units differ ("
+                      + "; ".join(f"{shown!r}: MSD {m}, time {t}" for shown, (m, t) in
+                                  units.items())
+                      + "); the numbers are compared as given — scale one of them first "
+                        "(e.g. give the model's length and time units in its study)",
+                      UnitsDifferWarning, stacklevel=2)
     if analyse:
         opened = [(_analysed(ds), shown) for ds, shown in opened]
     grids = [np.asarray(ds["time"].values, dtype=float) for ds, _ in opened]
@@ -165,11 +180,12 @@ def compare(sources, *, labels=None, starts=None, analyse: bool = True) -> xr.Da
         chosen = _starts(ds, starts)
         if not chosen:
             raise InputDataError(f"{shown!r} has none of the start regions {list(starts)}")
-        noise_free = ds.attrs.get("eddyhop_kind") == "reference"
+        kind = str(ds.attrs.get("eddyhop_kind", "monte_carlo"))
+        noise_free = kind == "reference"
         for start in chosen:
             part = _part(ds, start)
             series.append(name if start is None or len(chosen) == 1 else f"{name}: {start}")
-            kinds.append("reference" if noise_free else "monte_carlo")
+            kinds.append(kind if kind in ("reference", "measured") else "monte_carlo")
             sources_shown.append(shown)
             integrators.append(str(ds.attrs.get("integrator", "")))
             t = grid
