@@ -29,6 +29,8 @@ from eddyhop.results.io import (
 )
 from eddyhop.sweeps.manifest import folder_lock
 
+from .test_output_safety import STUDY
+
 
 def dead_pid() -> int:
     """The id of a process that has exited (and was reaped)."""
@@ -197,27 +199,10 @@ def test_sigint_in_a_sweep_between_staging_and_rename(tmp_path):
     assert report.complete and "pt0001" in report.computed
 
 
-RUN_STUDY = """\
-title = "interrupted run"
-[flow]
-family = "cellular"
-U = 1.0
-k = 1.0
-[noise]
-peclet = 10.0
-[[start]]
-kind = "uniform"
-label = "whole"
-[run]
-particles = 2000
-dt = 0.05
-t_end = 100.0
-n_times = 40
-seed = 5
-progress = false
-[output]
-path = "result.nc"
-"""
+# the reliability suite's small study, made long enough (~1 s of work) to be interrupted
+RUN_STUDY = (STUDY.replace("particles = 32", "particles = 2000")
+             .replace("t_end = 2.0", "t_end = 100.0").replace("n_times = 12", "n_times = 40")
+             .replace("seed = 3", "seed = 5"))
 
 
 @pytest.mark.slow

@@ -116,3 +116,25 @@ def test_passage_past_a_no_slip_cylinder_diverges_like_inverse_square_root():
     assert abs(beta - 0.5) < 0.03 and se < 0.01
     assert fit.passage_power_verdict.item() == 0 and fit.passage_log_verdict.item() == 1
     assert fit.passage_divergence_form.item() == 1  # power
+
+
+def test_passage_figure_draws_the_points_both_fits_and_the_verdict(tmp_path):
+    """The figure shows every crossed entry, both divergence forms with their verdicts (the
+    rejected power form dashed and named REJECTED) and the distribution."""
+    from eddyhop.presentation.plots import available_figures
+    from eddyhop.presentation.plots.catalogue import FIGURES
+    from eddyhop.presentation.plots._style import save_figure
+
+    _, ds = cats_eye_passages(np.geomspace(1e-8, 1e-3, 10))
+    ds = ds.merge(passage_divergence(ds))
+    assert "passage" in available_figures(ds)
+    fig = FIGURES["passage"][0](ds)
+    left = fig.axes[0]
+    labels = [line.get_label() for line in left.get_lines()]
+    assert labels[0] == "passage times" and len(left.get_lines()[0].get_xdata()) == 10
+    assert any("ln(1/d)" in t and "(accepted)" in t for t in labels)
+    power = [line for line in left.get_lines() if "β" in line.get_label()]
+    assert power and "REJECTED" in power[0].get_label() and power[0].get_linestyle() == "--"
+    assert "logarithmic" in fig._suptitle.get_text()
+    save_figure(fig, tmp_path / "passage")
+    assert (tmp_path / "passage.png").stat().st_size > 0

@@ -104,6 +104,19 @@ def moment_spectrum(ds: xr.Dataset, *, window: float = DEFAULT_WINDOW,
     return per_start(ds, one)
 
 
+def scaled_displacement_density(displacements, edges):
+    """(density on the bins ``edges``, fraction outside them) of the displacements scaled to
+    zero mean and unit standard deviation, (d − mean)/std; NaN for fewer than two finite
+    values or no spread."""
+    d = np.asarray(displacements, dtype=float)
+    d = d[np.isfinite(d)]
+    sigma = d.std() if d.size else 0.0
+    if d.size < 2 or sigma <= 0:
+        return np.full(len(edges) - 1, np.nan), np.nan
+    counts, _ = np.histogram((d - d.mean()) / sigma, edges)
+    return counts / (d.size * (edges[1] - edges[0])), 1.0 - counts.sum() / d.size
+
+
 def displacement_pdf(ds: xr.Dataset, *, pdf_times=None, bins: int = 41,
                      extent: float = 5.0) -> xr.Dataset:
     """PDFs of the scaled displacements ξ = Δx/σ_x, Δy/σ_y of tracked particles at chosen
@@ -130,7 +143,6 @@ def displacement_pdf(ds: xr.Dataset, *, pdf_times=None, bins: int = 41,
         raise InputDataError("displacement_pdf: no tracked sample after t = 0")
     edges = np.linspace(-extent, extent, bins + 1)
     centres = 0.5 * (edges[:-1] + edges[1:])
-    width = edges[1] - edges[0]
 
     def one(part):
         out = {}
@@ -141,17 +153,7 @@ def displacement_pdf(ds: xr.Dataset, *, pdf_times=None, bins: int = 41,
             pdf = np.zeros((index.size, bins))
             outside = np.zeros(index.size)
             for row, j in enumerate(index):
-                d = track[:, j] - origin
-                d = d[np.isfinite(d)]
-                sigma = d.std()
-                if d.size < 2 or sigma <= 0:
-                    pdf[row] = np.nan
-                    outside[row] = np.nan
-                    continue
-                xi = (d - d.mean()) / sigma
-                counts, _ = np.histogram(xi, edges)
-                pdf[row] = counts / (d.size * width)
-                outside[row] = 1.0 - counts.sum() / d.size
+                pdf[row], outside[row] = scaled_displacement_density(track[:, j] - origin, edges)
             out[f"displacement_pdf_{axis}"] = var(
                 ("pdf_time", "scaled_displacement"), pdf, f"probability density of the scaled "
                 f"displacement (d{axis} - mean)/std of tracked particles", "1")

@@ -47,6 +47,7 @@ from ..analysis.aging import (
     tamsd_lag_indices,
     time_averaged_msd,
 )
+from ..analysis.moments import scaled_displacement_density
 from ..errors import InputDataError
 from .readers import TrackFileError, TrackSource, check_track, frames, period_pair, unwrap
 
@@ -598,22 +599,12 @@ def _assemble(s) -> xr.Dataset:
     # displacement PDFs at the PDF lags (the run's displacement_pdf estimator)
     if s["pdf_frames"].size:
         edges = np.linspace(-s["extent"], s["extent"], s["bins"] + 1)
-        width = edges[1] - edges[0]
         for axis, k in (("x", 0), ("y", 1)):
             pdf = np.zeros((s["pdf_frames"].size, s["bins"]))
             outside = np.zeros(s["pdf_frames"].size)
             for row in range(s["pdf_frames"].size):
-                d = s["pdf_dx"][:, row, k]
-                d = d[np.isfinite(d)]
-                sigma = d.std() if d.size else 0.0
-                if d.size < 2 or sigma <= 0:
-                    pdf[row] = np.nan
-                    outside[row] = np.nan
-                    continue
-                xi = (d - d.mean()) / sigma
-                counts, _ = np.histogram(xi, edges)
-                pdf[row] = counts / (d.size * width)
-                outside[row] = 1.0 - counts.sum() / d.size
+                pdf[row], outside[row] = scaled_displacement_density(s["pdf_dx"][:, row, k],
+                                                                     edges)
             data[f"displacement_pdf_{axis}"] = _var(
                 ("pdf_time", "scaled_displacement"), pdf, f"probability density of the scaled "
                 f"displacement (d{axis} - mean)/std of the tracks", "1")

@@ -15,6 +15,7 @@ from .distributions import (
     moment_spectrum_figure,
 )
 from .msd import exponent_figure, msd_figure, starts_figure
+from .passage import passage_figure
 from .residence import residence_figure
 from .sweep import deff_peclet_figure, exponent_map_figure, sweep_dimension
 from .trajectories import trajectories_figure
@@ -40,6 +41,9 @@ FIGURES = {
                  "Lagrangian velocity autocorrelation and its running (Green-Kubo) integral"),
     "velocity_spectrum": (velocity_spectrum_figure, ("velocity_correlation_xx",),
                           "power spectrum of the Lagrangian velocity (Blackman-Tukey)"),
+    "passage": (passage_figure, ("passage_time", "separatrix_distance"),
+                "noise-free passage time against separatrix distance, with both divergence "
+                "fits, and its distribution"),
     "deff_peclet": (deff_peclet_figure, (), "D_eff against Pe with low/high-Pe asymptotes"),
     "exponent_map": (exponent_map_figure, ("alpha",),
                      "local exponent α(t, Pe) as a map over a sweep"),
