@@ -390,15 +390,15 @@ def effective_diffusivity(ds: xr.Dataset, *, fit_decades: float = DEFAULT_FIT_DE
                      "kappa), so this is a plateau longer than the run — run longer "
                      "(run.t_end)") if kappa > 0 else ""
         warnings.warn("the displacement variance stays bounded at late times: "
-                      + ", ".join(bounded) + "; deff_converged = 3 (bounded) and no "
+                      + ", ".join(bounded) + "; D_eff is BOUNDED and no "
                       "diffusivity is claimed (D values are NaN)" + spreading,
                       BoundedVarianceWarning, stacklevel=2)
     if undetermined:
         warnings.warn("the run is too noisy to tell whether it reached the diffusive regime "
                       f"(3 standard errors of the slope ratio exceed deff_tolerance = "
                       f"{deff_tolerance:g}): " + ", ".join(undetermined) + "; "
-                      "deff_converged = 2 (undetermined) — use more particles or a longer "
-                      "fit window", ShortRunWarning, stacklevel=2)
+                      "D_eff is UNDETERMINED — use more particles or a longer fit window",
+                      ShortRunWarning, stacklevel=2)
     if not_converged:
         warnings.warn("the run is too short to have reached the diffusive regime (the "
                       "variance does not yet grow linearly over the D_eff window): "
