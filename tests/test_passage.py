@@ -122,8 +122,8 @@ def test_passage_figure_draws_the_points_both_fits_and_the_verdict(tmp_path):
     """The figure shows every crossed entry, both divergence forms with their verdicts (the
     rejected power form dashed and named REJECTED) and the distribution."""
     from eddyhop.presentation.plots import available_figures
-    from eddyhop.presentation.plots.catalogue import FIGURES
     from eddyhop.presentation.plots._style import save_figure
+    from eddyhop.presentation.plots.catalogue import FIGURES
 
     _, ds = cats_eye_passages(np.geomspace(1e-8, 1e-3, 10))
     ds = ds.merge(passage_divergence(ds))
