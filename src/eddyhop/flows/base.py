@@ -178,6 +178,11 @@ class FlowFamily:
 
     # heading of the field report ``eddyhop validate`` prints (see :meth:`field_attributes`)
     field_report_heading = "flow field"
+    # Family-specific advice appended to general error messages (a family hook, so that
+    # general code never tests family names): when the spectral reference solvers cannot
+    # resolve the flow, and when a 'jet' start region is empty.
+    spectral_hint = ""
+    empty_jet_hint = ""
 
     def field_attributes(self, values: dict) -> dict:
         """How faithful the simulated field is to its source data, as flat ``field_*``

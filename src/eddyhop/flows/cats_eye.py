@@ -65,6 +65,8 @@ class CatsEye(FlowFamily):
         amplitude = values["U"] / values["k"]
         return (-amplitude, amplitude)
 
+    empty_jet_hint = "cats_eye needs epsilon > 0"
+
 
 FAMILY = CatsEye(
     name="cats_eye",

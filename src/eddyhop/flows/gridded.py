@@ -359,6 +359,8 @@ def load_field(values: dict):
 
 class GriddedFamily(FlowFamily):
     field_report_heading = "gridded field (the file's, before flow.scale)"
+    spectral_hint = ("for a gridded flow choose flow.interpolation = 'spectral', which is a "
+                     "finite Fourier series")
 
     def field_attributes(self, values: dict) -> dict:
         return field_attributes(values)

@@ -73,22 +73,21 @@ class CellFields:
         return self.speed / (self.kappa_min * min(self.alpha))
 
 
-def _sampled_modes(function, lx, ly, what, family_name):
+def _sampled_modes(function, lx, ly, what, family):
     n = FIRST_GRID
     while True:
         gx, gy = np.meshgrid(np.arange(n) * lx / n, np.arange(n) * ly / n, indexing="ij")
         values = np.asarray(function(gx, gy), dtype=float)
         if not np.all(np.isfinite(values)):
-            raise StudyError(f"the {what} of flow family {family_name!r} is not finite on the "
+            raise StudyError(f"the {what} of flow family {family.name!r} is not finite on the "
                              "period cell; check the flow parameters")
         modes, tail = fft_modes(values)
         if tail <= BAND_LIMIT:
             return modes, values
         if n >= LARGEST_GRID:
-            hint = (" (for a gridded flow choose flow.interpolation = 'spectral', which is a "
-                    "finite Fourier series)") if family_name == "gridded" else ""
+            hint = f" ({family.spectral_hint})" if family.spectral_hint else ""
             raise StudyError(
-                f"the {what} of flow family {family_name!r} is not a finite Fourier series "
+                f"the {what} of flow family {family.name!r} is not a finite Fourier series "
                 f"resolvable with {LARGEST_GRID // 4} modes (relative spectral tail "
                 f"{tail:.1e}){hint}; the spectral reference solvers need one. Use the Monte "
                 "Carlo ensemble (eddyhop run / eddyhop.simulate) for this flow")
@@ -137,12 +136,12 @@ def cell_fields(family, params: dict, kappa: float, noise_model: str = "constant
                                                                              y.ravel())]
         return np.reshape(flat, x.shape)
 
-    u, u_samples = _sampled_modes(velocity_u, lx, ly, "velocity u", family.name)
-    v, v_samples = _sampled_modes(velocity_v, lx, ly, "velocity v", family.name)
+    u, u_samples = _sampled_modes(velocity_u, lx, ly, "velocity u", family)
+    v, v_samples = _sampled_modes(velocity_v, lx, ly, "velocity v", family)
     if code == MODEL_CODES["constant"]:
         k_modes, k_samples = {(0, 0): complex(kappa)}, np.array([kappa])
     else:
-        k_modes, k_samples = _sampled_modes(kappa_field, lx, ly, "diffusivity", family.name)
+        k_modes, k_samples = _sampled_modes(kappa_field, lx, ly, "diffusivity", family)
     if k_samples.min() <= 0.0:
         raise StudyError("the diffusivity κ(x, y) is not positive everywhere on the cell")
     if len(set(u) | set(v)) > MOST_MODES:

@@ -340,7 +340,7 @@ def _parse_jet(table, geo, where):
     reject_unknown(table, ("margin",), "jet", where)
     margin = read_number(table, "margin", where, default=0.0, low=0.0, high=0.5, high_open=True)
     if len(geo.separatrix_levels) < 2:
-        hint = " (cats_eye needs epsilon > 0)" if geo.family.name == "cats_eye" else ""
+        hint = f" ({geo.family.empty_jet_hint})" if geo.family.empty_jet_hint else ""
         raise StudyError(f"{where}: start kind 'jet' is empty for flow family "
                          f"{geo.family.name!r} with these parameters: there are no open "
                          f"channels between two distinct separatrix levels{hint}")
