@@ -7,8 +7,9 @@ not of the modules it calls, so an edited flow module could silently reuse a sta
 therefore key the cache directory by a hash of the kernel sources (``_kernel_sources``: the
 modules that define compiled code and what they import at module level): an edit to any of
 them gives a fresh cache, an edit to a plot, CLI or analysis module reuses the compiled kernels; a
-flow family registered from outside the package (a plugin, a test) adds its own source to that key
-(:func:`add_cache_key`), since the compiled dispatch is generated from the registered families.
+flow family registered from outside the package (a plugin, a test) switches this process to
+in-memory compilation (:func:`add_cache_key`): the dispatch generated for it cannot be
+rebuilt from an on-disk cache.
 """
 
 from __future__ import annotations
@@ -60,6 +61,8 @@ def jit(function=None, **options):
     """``numba.njit`` with the package's fixed options (cache, numpy error model, nogil)."""
     settings = {"cache": True, "error_model": "numpy", "nogil": True, "fastmath": False}
     settings.update(options)
+    if _EXTRA_KEYS:  # an outside family is registered: in-memory only (see add_cache_key)
+        settings["cache"] = False
 
     def decorate(func):
         with _cache_dir_for_decoration():
@@ -71,13 +74,20 @@ def jit(function=None, **options):
 
 
 def add_cache_key(text: str) -> None:
-    """Make the kernel cache depend on ``text`` too (the source of a family registered from
-    outside the package), re-pointing the caches of the dispatchers already decorated."""
+    """Record the source of a flow family registered from outside the package.
+
+    From then on this process compiles the package's kernels in memory only (no on-disk
+    cache, for the dispatchers already decorated and for later ones): the kernels then inline
+    a dispatch generated for the outside family, and numba cannot rebuild such code from its
+    cache in a new process (it re-imports the module of the compiled code, which a generated
+    switch does not have) — a second run would fail instead of reusing the cache.
+    """
+    from numba.core.caching import NullCache
+
     _EXTRA_KEYS.append(text)
     kernel_cache_dir.cache_clear()
-    with _cache_dir_for_decoration():
-        for dispatcher in _DISPATCHERS:
-            dispatcher.enable_caching()
+    for dispatcher in _DISPATCHERS:
+        dispatcher._cache = NullCache()
 
 
 def any_compiled() -> bool:
