@@ -17,9 +17,15 @@ so that the displacement variance grows as ``var(ΔX_i ΔX_j) ≈ 2 D_ij t`` at 
 the mean drift ``⟨u⟩ t``.  For constant κ this is ``D = κ I + κ ⟨∇χ ∇χᵀ⟩``.
 
 Numerics: Fourier–Galerkin (``grids.py``) in the real basis, the gauge ⟨χ⟩ = 0 fixed by dropping
-the mean mode, only the lattice components coupled to the right-hand side kept (the cellular
-flow couples modes of equal parity of m_x + m_y, which halves the system), SuperLU with a
-column-AMD ordering.  Resolution is refined by factors of √2 until two successive tensors agree
+the mean mode.  Each corrector is solved exactly in the subspace its symmetries fix
+(:func:`cell_symmetries`: the reflections and half-period shifts of the cell that commute with
+L and map the right-hand side to ± itself; for the cellular flow χ_x is odd in x, even in y and
+unchanged by the shift (π, π), which leaves a quarter of the unknowns), restricted to the
+lattice components coupled to its right-hand side, and factorised by SuperLU with a column-AMD
+ordering.  Only the rows of L at one index per symmetry orbit are assembled, entry by entry.
+Measured at Pe = 10⁴ (486 modes): 118 340 unknowns per corrector instead of 473 364, LU fill
+15·10⁶ instead of ~2.5 GB of factors; COLAMD and MMD(AᵀA) fill alike, reverse Cuthill–McKee
+fills 3.4× more.  Resolution is refined by factors of √2 until two successive tensors agree
 to ``rtol``; the returned tensor is the finer one and its ``relative_error`` is that change (with
 spectral convergence the finer value is usually much better than this).  Boundary layers of
 width ~ Pe^(-1/2) around separatrices set the resolution: about 3·Pe^(1/2) modes per direction
@@ -34,6 +40,7 @@ import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
+import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 from scipy.sparse.csgraph import connected_components
 
@@ -58,7 +65,8 @@ class ResolutionWarning(UserWarning):
 class HomogenizedDiffusivity:
     """Effective diffusivity tensor (length²/time) with its resolution-convergence estimate.
 
-    ``tensor[i, j]`` = D_ij (i, j ∈ {x, y}); ``drift`` = ⟨u⟩ (length/time); ``relative_error``
+    ``tensor[i, j]`` = D_ij (i, j ∈ {x, y}); ``drift`` = ⟨u⟩ (length/time); ``unknowns`` = size
+    of the largest linear system solved at the final resolution; ``relative_error``
     = ‖D(M) − D(M')‖ / ‖D(M)‖ between the returned resolution ``modes`` = M and the previous one
     M' (Frobenius norms); ``converged`` says whether it is ≤ ``rtol``.  ``history`` lists every
     (modes, tensor) solved.  ``kappa`` is the cell-averaged molecular diffusivity.
@@ -75,8 +83,8 @@ class HomogenizedDiffusivity:
     converged: bool
     seconds: float
     history: tuple = field(default=())
-    method: str = ("Fourier-Galerkin cell problem (real basis, sparse LU), resolution refined "
-                   "by sqrt(2) until converged")
+    method: str = ("Fourier-Galerkin cell problem (real basis, reduced by the cell's symmetries, "
+                   "sparse LU), resolution refined by sqrt(2) until converged")
 
     @property
     def d_xx(self) -> float:
@@ -116,50 +124,172 @@ def suggested_modes(fields: CellFields, rtol: float = DEFAULT_RTOL) -> int:
     return int(max(8, 2 * fields.highest_mode + 2, math.ceil(need)))
 
 
-def _operators(fields: CellFields, cell: SpectralCell):
-    """Real-basis generator L and right-hand sides −(b − ⟨b⟩) for χ_x, χ_y."""
-    dx, dy = cell.derivative(0), cell.derivative(1)
-    k_mult = cell.multiply(fields.kappa)
-    generator = (cell.multiply(fields.u) @ dx + cell.multiply(fields.v) @ dy
-                 + dx @ k_mult @ dx + dy @ k_mult @ dy)
-    rhs = []
+def _generator_terms(fields: CellFields) -> list:
+    """L = u ∂x + v ∂y + ∂x κ ∂x + ∂y κ ∂y as terms of :meth:`SpectralCell.real_rows`."""
+    return [(fields.u, None, 0), (fields.v, None, 1), (fields.kappa, 0, 0),
+            (fields.kappa, 1, 1)]
+
+
+def _right_hand_sides(fields: CellFields, cell: SpectralCell) -> list[np.ndarray]:
+    """Real-basis −(b − ⟨b⟩) for χ_x and χ_y."""
+    out = []
     for drift in (fields.drift_x, fields.drift_y):
-        vector = -cell.vector(drift)
-        vector[cell.index(0, 0)] = 0.0
-        rhs.append(cell.real_vector(vector))
-    return cell.real_operator(generator), rhs
+        vector = -cell.real_coefficients(drift)
+        vector[0] = 0.0
+        out.append(vector)
+    return out
 
 
-def solve_cell_problem(fields: CellFields, modes: int) -> tuple[np.ndarray, int]:
-    """(D tensor, number of unknowns) at one resolution; raises on a failed solve."""
-    cell = SpectralCell(fields.lx, fields.ly, modes)
+def _operators(fields: CellFields, cell: SpectralCell):
+    """Real-basis generator L (all rows) and right-hand sides −(b − ⟨b⟩) for χ_x, χ_y."""
+    every_row = np.arange(cell.size)
+    return cell.real_rows(every_row, _generator_terms(fields)), _right_hand_sides(fields, cell)
+
+
+# f ↦ f∘g for the reflections x → −x, y → −y and the half-period shifts of the cell (with
+# their compositions: 15 maps besides the identity), as (reflect, shift) of SpectralCell
+_CELL_MAPS = tuple(((rx, ry), (sx, sy)) for rx in (1, -1) for ry in (1, -1)
+                   for sx in (0, 1) for sy in (0, 1) if (rx, ry, sx, sy) != (1, 1, 0, 0))
+_IDENTITY = ((1, 1), (0, 0))
+# relative size of a discrepancy still read as round-off when testing a symmetry (the fields
+# come from FFTs of sampled velocities: their coefficients carry errors of ~1e-16)
+_SYMMETRY_TOL = 1e-12
+
+
+def _compose(a, b):
+    """The cell map g_a ∘ g_b (the maps commute and reflections keep shifts by L/2)."""
+    (ra, sa), (rb, sb) = a, b
+    return ((ra[0] * rb[0], ra[1] * rb[1]), ((sa[0] + sb[0]) % 2, (sa[1] + sb[1]) % 2))
+
+
+def _signed_permutation(source, sign) -> sp.csr_matrix:
+    size = source.size
+    return sp.csr_matrix((sign, (np.arange(size), source)), shape=(size, size))
+
+
+def cell_symmetries(fields: CellFields) -> list[dict]:
+    """Symmetries of each corrector, one dict {(reflect, shift): ±1} per χ_x, χ_y.
+
+    A cell map S (f ↦ f∘g for g among the reflections and half-period shifts) that commutes
+    with the generator L and maps the right-hand side r to σ r (σ = ±1) maps the corrector to
+    σ χ as well (L is invertible on mean-free fields), so χ lies in the subspace where every
+    such map acts as its σ, and the cell problem can be solved there exactly, with a fraction
+    of the unknowns: a quarter for the cellular flow (χ_x odd in x and even in y, at modes of
+    even m_x + m_y: sin(m_x x) cos(m_y y) only).
+
+    Tested exactly on a small lattice (M = 2·highest mode + 2): each entry of S L S − L at
+    Fourier offset p is a polynomial of degree ≤ 2 in the mode index, so it vanishes at every
+    resolution once it vanishes on a lattice with three modes per direction at each offset.
+    A set of maps that is not closed under composition (round-off at the tolerance) is not
+    used.
+    """
+    cell = SpectralCell(fields.lx, fields.ly, max(4, 2 * fields.highest_mode + 2))
     matrix, rhs = _operators(fields, cell)
-    # Unknowns: every real-basis mode except the mean (gauge), restricted to the lattice
-    # components that the right-hand sides reach.
-    pattern = abs(matrix)
-    _, label = connected_components(pattern, directed=False)
-    wanted = np.unique(np.concatenate([label[np.abs(r) > 0] for r in rhs]))
-    keep = np.isin(label, wanted)
-    keep[0] = False  # the real-basis mean a_0
-    keep = np.nonzero(keep)[0]
+    scale = float(abs(matrix).max()) if matrix.nnz else 0.0
+    found: list[dict] = [{} for _ in rhs]
+    for cell_map in _CELL_MAPS:
+        operator = _signed_permutation(*cell.real_symmetry(*cell_map))
+        commutator = operator @ matrix - matrix @ operator
+        if commutator.nnz and abs(commutator).max() > _SYMMETRY_TOL * scale:
+            continue
+        for i, r in enumerate(rhs):
+            size = np.abs(r).max()
+            if size == 0.0:
+                continue
+            image = operator @ r
+            for character in (1.0, -1.0):
+                if np.abs(image - character * r).max() <= _SYMMETRY_TOL * size:
+                    found[i][cell_map] = character
+    for i, group in enumerate(found):
+        group = {**group, _IDENTITY: 1.0}
+        closed = all(group.get(_compose(a, b)) == group[a] * group[b]
+                     for a in group for b in group)
+        if not closed:
+            found[i] = {}
+    return found
+
+
+def _invariant_basis(cell: SpectralCell, group: dict):
+    """(Q, i, w): Q an orthonormal sparse basis (columns) of the real-basis vectors v with
+    S v = σ v for every (S, σ) in ``group``, the mean a_0 excluded (gauge).  Column j is
+    Π e_i / ‖Π e_i‖ with i = ``chosen[j]`` the smallest index of its orbit under the group and
+    Π = mean over the group of σ S, the orthogonal projector on that subspace.  Because Π
+    commutes with L, Qᵀ L Q = diag(w) · L[i, :] · Q with w = 1/‖Π e_i‖ = √(orbit size): only
+    the chosen rows of L are needed."""
+    elements = [(_IDENTITY, 1.0), *group.items()]
+    index = np.arange(cell.size)
+    smallest = index.copy()
+    stabiliser = np.zeros(cell.size)  # Σ σ sign over the maps fixing i: > 0 iff Π e_i ≠ 0
+    maps = []
+    for cell_map, character in elements:
+        source, sign = cell.real_symmetry(*cell_map)
+        np.minimum(smallest, source, out=smallest)
+        fixed = source == index
+        stabiliser[fixed] += character * sign[fixed]
+        maps.append((source, character * sign))
+    chosen = np.nonzero((smallest == index) & (stabiliser > 0.5))[0]
+    chosen = chosen[chosen != 0]
+    del smallest, stabiliser, index
+    # row i of Π (= column i, Π is symmetric) has σ·sign_g(i) at source_g(i) for every g
+    rows = np.concatenate([source[chosen] for source, _ in maps])
+    values = np.concatenate([signs[chosen] for _, signs in maps])
+    columns = np.tile(np.arange(chosen.size), len(maps))
+    basis = sp.csc_matrix((values, (rows, columns)), shape=(cell.size, chosen.size))
+    basis.sum_duplicates()
+    norms = np.sqrt(np.asarray(basis.multiply(basis).sum(axis=0)).ravel())
+    # the raw column sums every map: ‖Π e_i‖ = norm / (number of maps)
+    return (basis @ sp.diags(1.0 / norms)).tocsc(), chosen, len(maps) / norms
+
+
+def solve_cell_problem(fields: CellFields, modes: int, *,
+                       symmetry: bool = True) -> tuple[np.ndarray, int]:
+    """(D tensor, unknowns of the largest linear system solved) at one resolution; raises on
+    a failed solve.
+
+    Each corrector is solved in the subspace fixed by its symmetries (:func:`cell_symmetries`;
+    ``symmetry=False`` ignores them, for checks; the two correctors share one factorisation
+    when their symmetries agree), restricted to the lattice
+    components its right-hand side reaches (the cellular flow couples modes of equal parity of
+    m_x + m_y); the mean mode is dropped (gauge ⟨χ⟩ = 0).
+    """
+    cell = SpectralCell(fields.lx, fields.ly, modes)
+    rhs = _right_hand_sides(fields, cell)
+    terms = _generator_terms(fields)
+    classes: dict = {}
+    groups = cell_symmetries(fields) if symmetry else [{}, {}]
+    for i, group in enumerate(groups):
+        classes.setdefault(frozenset(group.items()), []).append(i)
     chi = [np.zeros(cell.size), np.zeros(cell.size)]
-    if keep.size:
-        system = matrix[keep][:, keep].tocsc()
+    largest = 0
+    for group, members in classes.items():
+        basis, chosen, weights = _invariant_basis(cell, dict(group))
+        reduced = (sp.diags(weights) @ (cell.real_rows(chosen, terms) @ basis)).tocsr()
+        loads = [basis.T @ rhs[i] for i in members]
+        _, label = connected_components(abs(reduced), directed=False)
+        wanted = np.unique(np.concatenate([label[np.abs(load) > 0] for load in loads]))
+        keep = np.nonzero(np.isin(label, wanted))[0]
+        if not keep.size:
+            continue
+        system = reduced[keep][:, keep].tocsc()
+        del reduced
+        largest = max(largest, int(keep.size))
         try:
             factor = spla.splu(system, permc_spec="COLAMD")
         except RuntimeError as exc:
             raise ReferenceConvergenceError(
                 f"the cell problem matrix with {modes} modes is singular ({exc})") from None
-        for i, r in enumerate(rhs):
-            solution = factor.solve(r[keep])
-            residual = np.linalg.norm(system @ solution - r[keep])
-            if not np.all(np.isfinite(solution)) or residual > 1e-8 * max(
-                    np.linalg.norm(r[keep]), 1e-300):
+        for i, load in zip(members, loads):
+            r = load[keep]
+            solution = factor.solve(r)
+            scale = max(np.linalg.norm(r), 1e-300)
+            residual = np.linalg.norm(system @ solution - r)
+            if not np.all(np.isfinite(solution)) or residual > 1e-8 * scale:
                 raise ReferenceConvergenceError(
                     f"the sparse solve of the cell problem with {modes} modes is inaccurate "
-                    f"(relative residual {residual / max(np.linalg.norm(r[keep]), 1e-300):.1e})")
-            chi[i][keep] = solution
-    return _tensor(fields, cell, chi), int(keep.size)
+                    f"(relative residual {residual / scale:.1e})")
+            chi[i] = basis[:, keep] @ solution
+        del factor, system
+    return _tensor(fields, cell, chi), largest
 
 
 def _tensor(fields, cell, chi_real):

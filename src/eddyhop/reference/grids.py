@@ -173,6 +173,128 @@ class SpectralCell:
     def complex_vector(self, real: np.ndarray) -> np.ndarray:
         return np.asarray(self.to_complex() @ real).ravel()
 
+    def real_layout(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Mode (m_x, m_y) and part (0: a, the cosine/real part; 1: b, the sine/imaginary
+        part) of every real-basis index."""
+        half, _ = self._half()
+        mx, my = self.mx[half], self.my[half]
+        part = np.repeat([0, 0, 1], [1, half.size, half.size])
+        return (np.concatenate([[0], mx, mx]), np.concatenate([[0], my, my]), part)
+
+    def real_coefficients(self, coefficients: Modes) -> np.ndarray:
+        """Real-basis vector of a real field given by its modes; the same as
+        ``real_vector(vector(coefficients))`` without forming a complex lattice vector."""
+        half, _ = self._half()
+        position = np.full(self.size, -1, dtype=np.int64)
+        position[half] = np.arange(half.size)
+        out = np.zeros(self.size)
+        for (px, py), value in coefficients.items():
+            if abs(px) > self.modes or abs(py) > self.modes:
+                continue
+            value = complex(value)
+            if px == 0 and py == 0:
+                out[0] += value.real
+            elif position[self.index(px, py)] >= 0:  # a_h = Re(ĉ_h + ĉ_−h)/2,
+                # b_h = Im(ĉ_h − ĉ_−h)/2, as to_real, so unequal halves are averaged alike
+                k = position[self.index(px, py)]
+                out[1 + k] += 0.5 * value.real
+                out[1 + half.size + k] += 0.5 * value.imag
+            else:
+                k = position[self.index(-px, -py)]
+                out[1 + k] += 0.5 * value.real
+                out[1 + half.size + k] -= 0.5 * value.imag
+        return out
+
+    def real_rows(self, rows: np.ndarray, terms) -> sp.csr_matrix:
+        """Rows ``rows`` (real-basis indices) of the real-basis matrix of Σ ∂_l (f ∂_r ·).
+
+        ``terms`` lists (f, l, r): f the modes of a real field, l and r an axis (0: x, 1: y)
+        or None (no derivative), so (u, None, 0) is u ∂x and (κ, 0, 0) is ∂x κ ∂x.  Galerkin
+        truncation as :meth:`multiply`: the complex entry at (n, m) is
+        Σ f̂_(n−m) (i α_l n_l) (i α_r m_r) over |m| ≤ M.  The real basis takes the real part of
+        the complex row n for an a-row and its imaginary part for a b-row; a column mode m in
+        the half lattice enters as a_m + i b_m, its mirror as a_m − i b_m.  Built entry by
+        entry, so only the rows asked for cost memory (``real_operator`` of the products
+        forms the whole complex lattice operator three times over).
+        """
+        rows = np.asarray(rows, dtype=np.int64)
+        half, _ = self._half()
+        nh = half.size
+        position = np.full(self.size, -1, dtype=np.int64)
+        position[half] = np.arange(nh)
+        layout_x, layout_y, layout_part = self.real_layout()
+        nx, ny, part = layout_x[rows], layout_y[rows], layout_part[rows]
+        imaginary_row = part == 1
+        by_offset: dict = {}
+        for coefficients, left, right in terms:
+            for offset, value in coefficients.items():
+                if value != 0:
+                    by_offset.setdefault(offset, []).append((complex(value), left, right))
+        alpha = self.alpha
+        local = np.arange(rows.size)
+        out_rows, out_cols, out_vals = [], [], []
+        for (px, py), parts in by_offset.items():
+            mx, my = nx - px, ny - py
+            inside = np.nonzero(self.contains(mx, my))[0]
+            mx, my = mx[inside], my[inside]
+            n_mode = (nx[inside], ny[inside])
+            z = np.zeros(inside.size, dtype=complex)
+            for value, left, right in parts:
+                factor = np.full(inside.size, value)
+                if left is not None:
+                    factor = factor * (1j * alpha[left] * n_mode[left])
+                if right is not None:
+                    factor = factor * (1j * alpha[right] * (mx if right == 0 else my))
+                z += factor
+            mean = (mx == 0) & (my == 0)
+            flat = self.index(mx, my)
+            mirror = self.index(-mx, -my)
+            in_half = position[flat] >= 0
+            k = np.where(in_half, position[flat], position[mirror])
+            # coefficient of a_m is z, of b_m is i z (m in the half lattice) or −i z (mirror)
+            on_b = np.where(in_half, 1j * z, -1j * z)
+            take = imaginary_row[inside]
+            on_a_value = np.where(take, z.imag, z.real)
+            on_b_value = np.where(take, on_b.imag, on_b.real)
+            out_rows += [local[inside], local[inside][~mean]]
+            out_cols += [np.where(mean, 0, 1 + k), (1 + nh + k)[~mean]]
+            out_vals += [on_a_value, on_b_value[~mean]]
+        if not out_rows:
+            return sp.csr_matrix((rows.size, self.size))
+        out = sp.csr_matrix((np.concatenate(out_vals),
+                             (np.concatenate(out_rows), np.concatenate(out_cols))),
+                            shape=(rows.size, self.size))
+        out.sum_duplicates()
+        out.eliminate_zeros()
+        return out
+
+    # ---- symmetries of the cell --------------------------------------------------------------
+    def real_symmetry(self, reflect: tuple[int, int],
+                      shift: tuple[int, int]) -> tuple[np.ndarray, np.ndarray]:
+        """The map f ↦ f∘g, g(x, y) = (ρx x + sx Lx/2, ρy y + sy Ly/2), in the real basis.
+
+        ``reflect`` = (ρx, ρy) ∈ {±1}², ``shift`` = (sx, sy) ∈ {0, 1}².  In Fourier space it
+        is (S f)^_n = (−1)^(sx nx + sy ny) f̂_(ρx nx, ρy ny), which maps the lattice onto itself
+        and real fields to real fields; in the real basis it is a signed permutation, returned
+        as (``source``, ``sign``) with (S r)[i] = sign[i] · r[source[i]].  Every such map is an
+        involution and any two of them commute.
+        """
+        half, _ = self._half()
+        nh = half.size
+        hx, hy = self.mx[half], self.my[half]
+        sx, sy = (int(s) % 2 for s in shift)
+        sign = np.where((sx * hx + sy * hy) % 2 == 0, 1.0, -1.0)
+        tx, ty = reflect[0] * hx, reflect[1] * hy
+        inside = (tx > 0) | ((tx == 0) & (ty > 0))  # the source mode lies in the half lattice
+        position = np.full(self.size, -1, dtype=np.int64)
+        position[half] = np.arange(nh)
+        flat = np.where(inside, self.index(tx, ty), self.index(-tx, -ty))
+        target = position[flat]
+        # a mode taken from the other half is the conjugate of its mirror: b changes sign
+        source = np.concatenate([[0], 1 + target, 1 + nh + target])
+        signs = np.concatenate([[1.0], sign, np.where(inside, sign, -sign)])
+        return source, signs
+
 
 def fft_modes(samples: np.ndarray, keep_below: float = 1e-13) -> tuple[Modes, float]:
     """Nonzero Fourier modes of a periodic field sampled on an ``n × n`` (or ``nx × ny``) grid
