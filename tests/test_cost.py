@@ -184,6 +184,6 @@ def test_reference_estimate_grows_with_the_peclet_number():
              for pe in (10.0, 1000.0, 10000.0)]
     assert costs[0].cpu_seconds < costs[1].cpu_seconds < costs[2].cpu_seconds
     assert costs[0].memory_bytes < costs[1].memory_bytes < costs[2].memory_bytes
-    # the measured Pe = 10^4 cell problem took 118 s and 2.7 GB: the estimate (cell
-    # problem and one moment evolution) must at least reach the gigabyte and the minute
+    # at Pe = 10^4 one moment evolution (342 modes, 235 000 unknowns) is fitted at hours and
+    # gigabytes (the cell problem alone now takes seconds): the estimate must reach both
     assert costs[2].memory_bytes > 1e9 and costs[2].cpu_seconds > 60
