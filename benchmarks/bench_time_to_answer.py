@@ -10,6 +10,9 @@ Rows (goal in brackets):
 * a 4-point sweep, ``-j 2`` against serial  [≥ 1.8×], and resuming it when complete  [≤ 1 s]
 * the cost of an output time and of ``[hopping]``, in particle-steps  [≤ 0.5 step / ≤ 1.3×]
 * the kernel's ns per particle-step, Euler–Maruyama, cellular flow, one thread  [≤ 8 ns]
+* the cell problem (``effective_diffusivity``) of the cellular flow at Pe = 10⁴, rtol 1e-6:
+  CPU time and peak RSS of a fresh process, and D/κ against the value before issue 18
+  [≤ 30 s and ≤ 1 GB at the same accuracy]
 
 Whole commands run in fresh processes, interleaved A B A B …; each figure is the median of the
 repeats.  On a machine shared with other jobs wall-clock time is inflated by whatever else
@@ -304,7 +307,38 @@ def outputs_and_hopping(particles: int, steps: int, repeats: int) -> None:
     row("`[hopping]` on", f"{ratio:.2f}× a step without it", "≤ 1.3×", ratio <= 1.3)
 
 
-GROUPS = ("cold", "cache", "startup", "plot", "sweep", "kernel")
+# the cell problem at Pe = 10^4 in a fresh process: (CPU s, peak RSS MB, D/kappa)
+CELL_PROBLEM = r"""
+import json, resource, time
+from eddyhop.reference import effective_diffusivity
+cpu = time.process_time()
+r = effective_diffusivity("cellular", {"U": 1.0, "k": 1.0}, peclet=1e4, rtol=1e-6)
+print(json.dumps({"cpu": time.process_time() - cpu, "modes": r.modes, "ratio": r.d_xx / r.kappa,
+                  "rss": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0}))
+"""
+# D/kappa at Pe = 10^4, rtol 1e-6, from the solver before issue 18 (486 modes; 85 s of CPU and
+# 2.8 GB in our run, 118 s and 2.7 GB in the issue)
+CELL_PROBLEM_BEFORE = 106.55776968987026
+
+
+def cell_problem(env, repeats: int) -> None:
+    runs = []
+    for _ in range(repeats):
+        wall, _cpu, out = timed([sys.executable, "-c", CELL_PROBLEM],
+                                env=dict(env, OPENBLAS_NUM_THREADS="1"))
+        runs.append(dict(json.loads(out.strip().splitlines()[-1]), wall=wall))
+    cpu = statistics.median(r["cpu"] for r in runs)
+    wall = statistics.median(r["wall"] for r in runs)
+    rss = max(r["rss"] for r in runs)
+    change = abs(runs[0]["ratio"] - CELL_PROBLEM_BEFORE) / CELL_PROBLEM_BEFORE
+    row("cell problem at Pe = 10⁴ (rtol 1e-6, cellular flow)",
+        f"{cpu:.1f} s CPU ({wall:.1f} s wall), peak RSS {rss / 1024:.2f} GB, "
+        f"{runs[0]['modes']} modes; D/κ = {runs[0]['ratio']:.12g}, {change:.0e} from before",
+        "≤ 30 s and ≤ 1 GB, same D/κ (rtol 1e-6)",
+        cpu <= 30 and rss <= 1024 and change <= 1e-6)
+
+
+GROUPS = ("cold", "cache", "startup", "plot", "sweep", "kernel", "cell")
 
 
 def main(argv=None):
@@ -345,6 +379,8 @@ def main(argv=None):
                    args.sweep_t_end or (20.0 if args.quick else 80.0))
     if "kernel" in groups:
         outputs_and_hopping(20000 if args.quick else 100000, 100, 2 if args.quick else 3)
+    if "cell" in groups:
+        cell_problem(env, 1 if args.quick else 3)
     print(f"\nLoad average after: {load()}.  Start-up verdicts use CPU time (what the wall "
           "clock reads on a quiet machine); the sweep verdict uses wall time.")
 

@@ -8,8 +8,8 @@ particle-step; each with its goal and met / not met), then the kernel set: throu
 a NumPy loop and thread scaling (``bench_kernel``), accuracy per cost (``bench_accuracy``),
 memory (``bench_memory``), the step check's cost (``bench_stepcheck``) and compile latency
 (``bench_compile``).  Not included, run them on their own: ``bench_sweep.py`` (sweep
-backends in detail), ``bench_cell_problem.py`` (the reference cell-problem solver; its
-Pe = 10⁴ row takes minutes and gigabytes) and ``bench_gridded_obstacles.py``.
+backends in detail), ``bench_cell_problem.py`` (the reference cell-problem solver; the
+time-to-answer row covers its Pe = 10⁴ case) and ``bench_gridded_obstacles.py``.
 
 Full sizes take 20–25 minutes on two free cores, most of it the memory case (10⁶
 particles × 10⁴ output steps, run twice); ``--quick`` takes a few minutes (one cold compile of

@@ -88,7 +88,7 @@ def test_cellular_large_peclet_extrapolates_to_the_boundary_layer_constant():
     p = 0.71 ± 0.01, C = 1.06539 ± 0.00003).  Tolerance: the quoted value's rounding (ν to 4
     digits: ±1e-4 in C) + 3 standard errors of the fitted C + the change of C when the
     lowest Pe is dropped (model error, measured 6e-5) + the solver's error estimates;
-    about 2.5e-4 in all.  (Pe = 10⁴ gives 1.065578 in 38 s, 4e-5 from the fit's prediction.)
+    about 2.5e-4 in all.  (Pe = 10⁴ gives 1.065578 in ~5 s of CPU, 4e-5 from the fit's prediction.)
     """
     from scipy.optimize import OptimizeWarning, curve_fit
 
