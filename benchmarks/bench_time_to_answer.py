@@ -380,7 +380,7 @@ def main(argv=None):
     if "kernel" in groups:
         outputs_and_hopping(20000 if args.quick else 100000, 100, 2 if args.quick else 3)
     if "cell" in groups:
-        cell_problem(env, 1 if args.quick else 3)
+        cell_problem(env, repeats)
     print(f"\nLoad average after: {load()}.  Start-up verdicts use CPU time (what the wall "
           "clock reads on a quiet machine); the sweep verdict uses wall time.")
 
