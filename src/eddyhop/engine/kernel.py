@@ -36,10 +36,10 @@ import math
 
 import numpy as np
 from numba.core import cgutils
-from numba.extending import intrinsic
+from numba.extending import intrinsic, overload
 
 from .._jit import jit
-from ..flows.compiled import confine, has_walls
+from ..flows.compiled import confine, has_walls, specialised_code
 from .integrators import (
     PROJECTED_RK45,
     RK4,
@@ -80,6 +80,58 @@ def _borrowed(typingctx, array):
         return view._getvalue()
 
     return array(array), codegen
+
+
+def _step_tile(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new, work):
+    raise NotImplementedError("compiled only")
+
+
+def _start_tile(scheme, fcode, fp, xs, ys, dt, m, work):
+    raise NotImplementedError("compiled only")
+
+
+# Scheme selection at compile time: a kernel specialised on its scheme code (``literally``)
+# types and compiles only that scheme's tile step — the adaptive projected_rk45 stepper is
+# the largest, and a stochastic study never compiles it.  Inlined, so no call is left.
+_SELECT = {"inline": "always", "prefer_literal": True,
+           "jit_options": {"error_model": "numpy", "fastmath": False}}
+
+
+@overload(_step_tile, **_SELECT)
+def _overload_step_tile(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new,
+                        y_new, work):
+    code = specialised_code(scheme)
+    if code == PROJECTED_RK45:
+        def step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
+                 work):
+            advance_tile_projected(fcode, fp, nq, xs, ys, t, dt, m, x_new, y_new, work)
+    elif code is not None:
+        def step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
+                 work):
+            advance_tile(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new,
+                         y_new, work)
+    else:  # a run-time scheme code: both steppers
+        def step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
+                 work):
+            if scheme == PROJECTED_RK45:  # adaptive substeps kept on ψ's level set
+                advance_tile_projected(fcode, fp, nq, xs, ys, t, dt, m, x_new, y_new, work)
+            else:
+                advance_tile(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m,
+                             x_new, y_new, work)
+    return step
+
+
+@overload(_start_tile, **_SELECT)
+def _overload_start_tile(scheme, fcode, fp, xs, ys, dt, m, work):
+    code = specialised_code(scheme)
+    if code is not None and code != PROJECTED_RK45:
+        def start(scheme, fcode, fp, xs, ys, dt, m, work):
+            pass
+    else:
+        def start(scheme, fcode, fp, xs, ys, dt, m, work):
+            if scheme == PROJECTED_RK45:  # ψ₀ and the first trial step of each particle
+                start_tile(fcode, fp, xs, ys, dt, m, work)
+    return start
 
 
 @jit
@@ -311,6 +363,10 @@ def run_particles(
     ``stream_offset`` separates the random streams of different start regions.  ``status`` is
     set to (global particle, step) of the lowest-numbered particle whose position became
     non-finite or ran away (at its first such step), else left at -1.
+
+    Specialised per study: ``fcode``, ``scheme`` and ``ncode`` are compile-time constants
+    (``literally``), so each combination is its own compiled (and cached) kernel that contains
+    only that family's flow, that scheme and that noise model (``flows/compiled.py``).
     """
     sqrt_dt = math.sqrt(dt)
     n_pairs = normal_pairs_per_step(scheme)
@@ -341,19 +397,15 @@ def run_particles(
             ys[g] = y0[lo + g]
             if hop_on:
                 _start_hops(hop, g, xs[g], ys[g], cell)
-        if scheme == PROJECTED_RK45:
-            start_tile(fcode, fp, xs, ys, dt, m, work)
+        _start_tile(scheme, fcode, fp, xs, ys, dt, m, work)
         failed = False
-        step = 0
+        step = np.int64(0)  # not the constant 0: callees compile for int64 only
         for e in range(events.size):
             while step < events[e]:
                 fill_normals(key0, key1, particle0, m, step, n_pairs, words, z)
                 t = step * dt
-                if scheme == PROJECTED_RK45:  # adaptive substeps kept on ψ's level set
-                    advance_tile_projected(fcode, fp, nq, xs, ys, t, dt, m, x_new, y_new, work)
-                else:
-                    advance_tile(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m,
-                                 x_new, y_new, work)
+                _step_tile(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new,
+                           y_new, work)
                 if walls:
                     for g in range(m):
                         x_new[g], y_new[g] = confine(fcode, xs[g], ys[g], x_new[g], y_new[g],

@@ -27,7 +27,7 @@ import xarray as xr
 
 from .._jit import jit
 from ..errors import StudyError
-from ..flows.compiled import evaluate_psi, evaluate_velocity, velocity
+from ..flows.compiled import CompiledCode, evaluate_psi, evaluate_velocity, velocity
 from .kernel import TILE
 from .streamline import WORK_ROWS, advance_tile_projected, scheme_parameters, start_tile
 
@@ -179,8 +179,8 @@ def passage_times(study, entries, *, axis: str = "x", at: float = 0.0,
     dt = 0.05 / scale  # output step: the arrival is interpolated inside it
     nq = scheme_parameters(np.zeros(3), tolerance, side, speed)
     times = np.empty(entries.size)
-    _passage_kernel(model.code, model.pack(values), nq, x0, y0, axis == "x", float(at),
-                    float(period), dt, math.ceil(t_max / dt), times)
+    _passage_kernel(CompiledCode(model.code), model.pack(values), nq, x0, y0, axis == "x",
+                    float(at), float(period), dt, math.ceil(t_max / dt), times)
     if not np.any(np.isfinite(times)):
         raise StudyError(f"section {axis} = {at:g}: no tracer from the {entries.size} entries "
                          f"reaches the next period cell within t_max = {t_max:g} (closed "

@@ -18,6 +18,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import BlowUpError
+from ..flows.compiled import CompiledCode
 from ..flows.compiled import velocity as _velocity  # noqa: F401  (compiled with the kernel)
 from ..starts import area_fraction, sample_starts
 from .integrators import SCHEME_CODES
@@ -199,8 +200,10 @@ def _run_chunk(ctx: _Context, stream_offset: int, first: int, x0, y0):
     status = np.full(2, -1, dtype=np.int64)
     res_low, res_inv = _log_binning(ctx.residence_edges)
     fl_low, fl_inv = _log_binning(ctx.flight_edges)
+    # family, noise model and scheme as compile-time constants: a kernel specialised per study
     run_particles(
-        ctx.fcode, ctx.fp, ctx.ncode, ctx.nq, ctx.scheme, ctx.dt, ctx.key[0], ctx.key[1],
+        CompiledCode(ctx.fcode), ctx.fp, CompiledCode(ctx.ncode), ctx.nq,
+        CompiledCode(ctx.scheme), ctx.dt, ctx.key[0], ctx.key[1],
         x0, y0, first, stream_offset, ctx.block_size,
         s.events, s.ev_out, s.ev_track, s.ev_ref, s.aged_ptr, s.aged_a, s.aged_l, ctx.orders,
         moments, aged, tracks, n_tracked_here,
@@ -214,7 +217,8 @@ def _run_check_batch(ctx: _Context, stream_offset: int, first: int, x0, y0):
     s = ctx.schedule
     coarse = np.zeros((s.out_steps.size, len(CHECK_COLUMNS)))
     status = np.full(2, -1, dtype=np.int64)
-    run_step_check(ctx.fcode, ctx.fp, ctx.ncode, ctx.nq, ctx.scheme, ctx.dt, ctx.key[0],
+    run_step_check(CompiledCode(ctx.fcode), ctx.fp, CompiledCode(ctx.ncode), ctx.nq,
+                   CompiledCode(ctx.scheme), ctx.dt, ctx.key[0],
                    ctx.key[1], x0, y0, first, stream_offset, s.out_steps, False,
                    np.zeros((0, len(CHECK_COLUMNS))), coarse, status)
     return coarse, status

@@ -62,6 +62,8 @@ def run_step_check(fcode, fp, ncode, nq, scheme, dt, key0, key1, x0, y0, first_i
     (global particle, fine step) of the lowest-numbered particle whose coarse path became
     non-finite or ran away (its tile then stops adding); the fine path is the ensemble
     kernel's, whose failures the ensemble run has already reported.
+
+    Specialised like ``kernel.run_particles``: family, scheme and noise model are constants.
     """
     sqrt_dt = math.sqrt(dt)
     coarse_dt = 2.0 * dt
