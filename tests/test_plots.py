@@ -381,3 +381,31 @@ def test_save_png_and_pdf(run_ds, tmp_path):
         plots.save_figure(figure, tmp_path / "x", formats=("gif",))
     with pytest.raises(EddyhopError, match="does not exist"):
         plots.save_figure(figure, tmp_path / "missing" / "x")
+
+
+def test_saving_lays_out_once_and_draws_what_plain_savefig_draws(analysed_ds, tmp_path,
+                                                                  monkeypatch):
+    """save_figure lays a figure out once, without the dry draw savefig makes for its layout
+    engine, and saves the later formats with no engine; the files are the same as those of
+    plain savefig calls (PNG pixel for pixel, PDF byte for byte), aspect-locked axes included."""
+    from PIL import Image
+
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", "0")  # a fixed PDF creation date
+    names = ["msd", "exponent", "trajectories", "residence"]
+    fast = dict(plots.figures_for(analysed_ds, names))
+    plain = dict(plots.figures_for(analysed_ds, names))
+    for name in names:
+        plots.save_figure(fast[name], tmp_path / f"fast_{name}", formats=("png", "pdf"))
+        figure = plain[name]
+        plots._style.make_text_safe(figure)
+        figure.savefig(tmp_path / f"plain_{name}.png", format="png", dpi=150,
+                       metadata=plots._style._metadata("png"))
+        figure.set_layout_engine("none")  # the layout of the PNG, as before this change
+        figure.savefig(tmp_path / f"plain_{name}.pdf", format="pdf", dpi=150,
+                       metadata=plots._style._metadata("pdf"))
+        ours = np.asarray(Image.open(tmp_path / f"fast_{name}.png"))
+        theirs = np.asarray(Image.open(tmp_path / f"plain_{name}.png"))
+        assert ours.shape == theirs.shape and np.array_equal(ours, theirs), name
+        assert (tmp_path / f"fast_{name}.pdf").read_bytes() == \
+            (tmp_path / f"plain_{name}.pdf").read_bytes(), name
+        assert fast[name].get_layout_engine() is not None  # the engine is given back

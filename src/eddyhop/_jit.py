@@ -10,6 +10,10 @@ them gives a fresh cache, an edit to a plot, CLI or analysis module reuses the c
 flow family registered from outside the package (a plugin, a test) switches this process to
 in-memory compilation (:func:`add_cache_key`): the dispatch generated for it cannot be
 rebuilt from an on-disk cache.
+
+Decoration is lazy (:class:`LazyDispatcher`): ``jit`` records the function and its options and
+the numba dispatcher is made on first use, so importing a module of kernels imports no numba
+(``eddyhop validate`` reads the flow families' descriptions without it).
 """
 
 from __future__ import annotations
@@ -18,21 +22,22 @@ import contextlib
 import functools
 import hashlib
 import os
+import threading
 from pathlib import Path
-
-import numba
-from numba.core import config as _numba_config
 
 from ._kernel_sources import kernel_sources_digest
 
 _PACKAGE_DIR = Path(__file__).resolve().parent
 _EXTRA_KEYS: list[str] = []  # sources outside the package that compiled code depends on
-_DISPATCHERS: list = []  # every dispatcher made by :func:`jit`, to re-key their caches
+_DISPATCHERS: list = []  # every dispatcher made by :func:`jit` so far, to re-key their caches
+_MAKING = threading.RLock()
 
 
 @functools.lru_cache(maxsize=1)
 def kernel_cache_dir() -> str:
     """Directory for compiled kernels, unique to this exact version of the kernel sources."""
+    import numba
+
     digest = kernel_sources_digest(_PACKAGE_DIR)
     if _EXTRA_KEYS:
         extra = hashlib.sha256(digest.encode())
@@ -49,6 +54,8 @@ def kernel_cache_dir() -> str:
 def _cache_dir_for_decoration():
     # Numba reads config.CACHE_DIR when a dispatcher is decorated; setting it only around our
     # own decorations leaves the caching of other libraries in the same process untouched.
+    from numba.core import config as _numba_config
+
     previous = _numba_config.CACHE_DIR
     _numba_config.CACHE_DIR = kernel_cache_dir()
     try:
@@ -57,18 +64,81 @@ def _cache_dir_for_decoration():
         _numba_config.CACHE_DIR = previous
 
 
+class LazyDispatcher:
+    """A function decorated by :func:`jit`; the numba dispatcher is made on first use.
+
+    Calling it, or reading any dispatcher attribute (``overloads``, ``targetoptions``,
+    ``_numba_type_``, …), makes the dispatcher once and forwards to it.  Numba therefore
+    sees the real dispatcher when it compiles a caller that names this object as a global:
+    its typing reads ``_numba_type_`` (a ``types.Dispatcher`` of the real dispatcher) and its
+    inlining pass reads ``targetoptions`` and ``py_func``.  ``py_func`` is the plain Python
+    function and needs no numba.
+    """
+
+    def __init__(self, function, settings: dict):
+        self.py_func = function
+        self._settings = settings
+        self._dispatcher = None
+        functools.update_wrapper(self, function)
+
+    def get_dispatcher(self):
+        """The numba dispatcher (made, with the package's cache directory, on first call)."""
+        if self._dispatcher is None:
+            # one dispatcher per function even if worker threads reach it together; reentrant
+            # because numba makes the dispatchers of callees while it compiles a caller
+            with _MAKING:
+                if self._dispatcher is None:
+                    import numba
+
+                    settings = dict(self._settings)
+                    if _EXTRA_KEYS:  # an outside family is registered: in memory only
+                        settings["cache"] = False
+                    with _cache_dir_for_decoration():
+                        dispatcher = numba.njit(**settings)(self.py_func)
+                    _DISPATCHERS.append(dispatcher)
+                    self._dispatcher = dispatcher
+        return self._dispatcher
+
+    def __call__(self, *args, **kwargs):
+        dispatcher = self._dispatcher
+        if dispatcher is None:
+            dispatcher = self.get_dispatcher()
+        return dispatcher(*args, **kwargs)
+
+    def __getattr__(self, name):
+        # only for names not set on the wrapper itself: those of the dispatcher
+        if name.startswith("__") or name in ("_settings", "_dispatcher"):
+            raise AttributeError(name)
+        return getattr(self.get_dispatcher(), name)
+
+    def __reduce__(self):
+        # by reference, like a module-level function (the instance stands in its module)
+        return _module_attribute, (self.__module__, self.__qualname__)
+
+    def __repr__(self):
+        state = "compiled" if self._dispatcher is not None else "not yet made"
+        return f"<eddyhop jit function {self.__module__}.{self.__qualname__} ({state})>"
+
+
+def _module_attribute(module: str, qualname: str):
+    import importlib
+
+    target = importlib.import_module(module)
+    for part in qualname.split("."):
+        target = getattr(target, part)
+    return target
+
+
 def jit(function=None, **options):
-    """``numba.njit`` with the package's fixed options (cache, numpy error model, nogil)."""
+    """``numba.njit`` with the package's fixed options (cache, numpy error model, nogil).
+
+    Returns a :class:`LazyDispatcher`: numba is imported and the dispatcher made on first use.
+    """
     settings = {"cache": True, "error_model": "numpy", "nogil": True, "fastmath": False}
     settings.update(options)
-    if _EXTRA_KEYS:  # an outside family is registered: in-memory only (see add_cache_key)
-        settings["cache"] = False
 
     def decorate(func):
-        with _cache_dir_for_decoration():
-            dispatcher = numba.njit(**settings)(func)
-        _DISPATCHERS.append(dispatcher)
-        return dispatcher
+        return LazyDispatcher(func, settings)
 
     return decorate if function is None else decorate(function)
 

@@ -23,8 +23,8 @@ def command(studies, allow_long):
     and CPU time, and refuses a study over the machine's available memory or
     over 24 h of CPU time (unless --allow-long).
     """
-    from ..engine.runner import step_size_warnings
     from ..engine.schedule import build_schedule
+    from ..engine.step_advice import step_size_warnings
     from ..errors import EddyhopError
     from ..study.cost import study_cost_checked
     from ..study.spec import load_study

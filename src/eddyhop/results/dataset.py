@@ -14,9 +14,12 @@ import xarray as xr
 from ..engine.kernel import MOMENT_COLUMNS, N_BASE
 from ..engine.stepcheck import CHECK_COLUMNS
 from .io import provenance_attrs, units_for
+from .optional_dask import spare_unused_dask
 from .velocity_dataset import COORD_ATTRS as _VELOCITY_COORD_ATTRS
 from .velocity_dataset import VARIABLE_ATTRS as _VELOCITY_ATTRS
 from .velocity_dataset import velocity_coords, velocity_data
+
+spare_unused_dask()  # building the Dataset must not import dask.array (optional_dask.py)
 
 _COL = {name: i for i, name in enumerate(MOMENT_COLUMNS)}
 _CHECK_COL = {name: i for i, name in enumerate(CHECK_COLUMNS)}

@@ -115,11 +115,12 @@ def check_output_path(path) -> Path:
 
 def write_netcdf(ds, path) -> Path:
     """Write ``ds`` to ``path`` atomically (see :func:`atomic_path`)."""
+    from .optional_dask import no_distributed_probe
     from .provenance import prepare_for_writing
 
     path = check_output_path(path)
     ds = prepare_for_writing(ds)  # writer's software, CF/ACDD rules (eddyhop.results.provenance)
-    with atomic_path(path) as temporary:
+    with atomic_path(path) as temporary, no_distributed_probe():
         ds.to_netcdf(temporary, engine="netcdf4", format="NETCDF4")
     return path
 
@@ -134,7 +135,9 @@ def open_result(path):
     import xarray as xr
 
     from ..errors import InputDataError
+    from .optional_dask import spare_unused_dask
 
+    spare_unused_dask()  # a result read into memory needs no dask.array
     path = Path(path)
     text = str(path)
     name = repr(text if len(text) <= 80 else text[:60] + "…" + text[-15:])

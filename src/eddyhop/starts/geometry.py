@@ -23,7 +23,6 @@ from functools import cached_property
 import numpy as np
 
 from ..flows.base import FlowFamily
-from ..flows.compiled import evaluate_psi, evaluate_velocity
 
 _NEWTON_GRID = 48  # Newton starts per period and direction
 _NEWTON_STEPS = 40
@@ -62,6 +61,8 @@ class FlowGeometry:
     @cached_property
     def mean_gradient(self) -> tuple[float, float]:
         """(a, b): ψ(x + Lx, y) − ψ(x, y) = a Lx and ψ(x, y + Ly) − ψ(x, y) = b Ly."""
+        from ..flows.compiled import evaluate_psi  # numba only when a field is evaluated
+
         lx, ly = self.period
         px = evaluate_psi(self.family, self.values, np.array([0.0, lx, 0.0]),
                           np.array([0.0, 0.0, ly]), 0.0)
@@ -79,6 +80,8 @@ class FlowGeometry:
 
     def psi(self, x, y) -> np.ndarray:
         """ψ_p at points (x, y) (periodic part of the stream function at t = 0)."""
+        from ..flows.compiled import evaluate_psi
+
         x = np.asarray(x, dtype=np.float64)
         y = np.asarray(y, dtype=np.float64)
         a, b = self.mean_gradient
@@ -89,6 +92,8 @@ class FlowGeometry:
 
     def _gradient(self, x, y):
         """∇ψ_p = (−v − a, u − b) (from u = ∂ψ/∂y, v = −∂ψ/∂x)."""
+        from ..flows.compiled import evaluate_velocity
+
         a, b = self.mean_gradient
         u, v = evaluate_velocity(self.family, self.values, x, y, 0.0)
         return -v - a, u - b

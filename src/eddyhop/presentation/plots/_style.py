@@ -148,6 +148,16 @@ class PlainLogMinor:
                 mantissa = round(x / 10 ** np.floor(np.log10(x)), 6)
                 return f"{x:g}" if mantissa in (2.0, 5.0) else ""
 
+            def format_ticks(self, values):
+                # the same labels as calling the formatter per tick, with the axis range
+                # read once per draw instead of once per minor tick (dozens per decade)
+                self.set_locs(values)
+                if self.axis is not None:
+                    low, high = sorted(self.axis.get_view_interval())
+                    if low <= 0 or high / low > 30:
+                        return ["" for _ in values]
+                return [self(value, i) for i, value in enumerate(values)]
+
         return _Formatter()
 
 
@@ -299,11 +309,14 @@ def save_figure(figure, path, formats=("png",), dpi: int = 150) -> list[Path]:
     engine = figure.get_layout_engine()
     try:
         for number, fmt in enumerate(formats):
-            if number == 1 and engine is not None:
-                # the layout (in figure coordinates, independent of dpi and file format) was
-                # computed by the first save; the later formats reuse it instead of paying
-                # for the constrained-layout solve again (~10 % of a save)
-                figure.set_layout_engine("none")
+            if number == 0 and engine is not None and fmt == "png":
+                _lay_out_for_png(figure, engine, dpi)
+            if engine is not None and (number == 1 or fmt == "png"):
+                # The layout (in figure coordinates) is computed once, for the first format:
+                # by _lay_out_for_png, or by the first savefig.  Later saves keep it.  No
+                # engine at all (not the "none" placeholder): with any engine set, savefig
+                # first runs a whole draw without output only to let the engine lay out.
+                figure.set_layout_engine(None)
             target = path.parent / f"{path.name}.{fmt}"
             with atomic_path(target) as temporary:
                 figure.savefig(temporary, format=fmt, dpi=dpi, metadata=_metadata(fmt))
@@ -312,6 +325,28 @@ def save_figure(figure, path, formats=("png",), dpi: int = 150) -> list[Path]:
         if engine is not None and figure.get_layout_engine() is not engine:
             figure.set_layout_engine(engine)
     return written
+
+
+def _lay_out_for_png(figure, engine, dpi) -> None:
+    """Lay ``figure`` out exactly as ``savefig(format="png", dpi=dpi)`` would, without drawing.
+
+    savefig runs the engine inside a complete draw (artists, ticks, texts, paths) with no
+    output, then draws again for real; the layout itself needs only text extents from an Agg
+    renderer at the saving resolution, which this gives the engine directly.  The PNG is
+    pixel-identical (tests/test_plots.py compares both ways).
+    """
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    if not isinstance(figure.canvas, FigureCanvasAgg):
+        FigureCanvasAgg(figure)  # the canvas savefig would switch to for a PNG
+    screen_dpi = figure.dpi
+    figure.dpi = dpi
+    try:
+        engine.execute(figure)
+    except ValueError:  # as Figure.draw: a layout that cannot be solved leaves positions as set
+        pass
+    finally:
+        figure.dpi = screen_dpi
 
 
 def _metadata(fmt):

@@ -1,0 +1,117 @@
+"""Start-up: commands import only what they use (checked in fresh processes, no timings).
+
+``eddyhop validate`` reads the study, the flow families' descriptions and the cost model: no
+numba, xarray, netCDF4, scipy, matplotlib or dask.  A tiny ``eddyhop run`` needs numba and
+xarray but no plotting and none of the optional dask stack (``results/optional_dask.py``).
+"""
+
+from __future__ import annotations
+
+import json
+import pickle
+import subprocess
+import sys
+import textwrap
+
+import pytest
+
+TINY = """schema_version = 1
+title = "tiny"
+[flow]
+family = "cellular"
+[noise]
+peclet = 10
+[[start]]
+kind = "uniform"
+[run]
+particles = 200
+dt = 0.05
+t_end = 5.0
+n_times = 10
+seed = 1
+workers = 1
+progress = false
+"""
+
+HEAVY = ("numba", "llvmlite", "xarray", "pandas", "netCDF4", "scipy", "matplotlib", "dask",
+         "dask.array", "distributed")
+
+# runs the command line in this process, then reports which heavy modules it loaded
+PROBE = textwrap.dedent("""
+    import json, sys
+    from eddyhop.cli import main
+    try:
+        main.main(args=sys.argv[1:], prog_name="eddyhop", standalone_mode=False)
+        code = 0
+    except SystemExit as exc:
+        code = exc.code
+    print(json.dumps({"code": code, "loaded": [m for m in HEAVY if m in sys.modules]}))
+""").replace("HEAVY if m", repr(HEAVY) + " if m")
+
+
+def _loaded_by(*args, cwd) -> list[str]:
+    out = subprocess.run([sys.executable, "-c", PROBE, *args], capture_output=True, text=True,
+                         cwd=cwd, timeout=600)
+    report = json.loads(out.stdout.strip().splitlines()[-1])
+    assert report["code"] in (0, None), out.stderr
+    return report["loaded"]
+
+
+def test_validate_imports_no_numba_xarray_or_plotting(tmp_path):
+    study = tmp_path / "tiny.toml"
+    study.write_text(TINY)
+    loaded = _loaded_by("validate", str(study), cwd=tmp_path)
+    assert loaded == [], f"eddyhop validate imported {loaded}"
+
+
+def test_tiny_run_imports_no_plotting_and_no_dask(tmp_path):
+    study = tmp_path / "tiny.toml"
+    study.write_text(TINY)
+    loaded = _loaded_by("run", str(study), "--out", str(tmp_path / "tiny.nc"), cwd=tmp_path)
+    assert (tmp_path / "tiny.nc").exists()
+    assert "numba" in loaded and "xarray" in loaded  # the probe sees what a run does load
+    unwanted = {"matplotlib", "dask.array", "distributed"} & set(loaded)
+    assert not unwanted, f"a tiny eddyhop run imported {sorted(unwanted)}"
+
+
+def test_kernel_modules_import_without_numba():
+    code = ("import sys, eddyhop.flows, eddyhop.engine.rng, eddyhop.starts; "
+            "print('numba' in sys.modules)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         timeout=120)
+    assert out.stdout.strip() == "False", out.stderr
+
+
+def test_lazy_jit_function_behaves_like_its_dispatcher():
+    from eddyhop.flows import cellular
+
+    velocity = cellular.velocity
+    assert pickle.loads(pickle.dumps(velocity)) is velocity  # by reference, as a function
+    p = cellular.FAMILY.pack({"U": 1.0, "k": 1.0})
+    assert velocity(0.3, 0.2, 0.0, p) == velocity.py_func(0.3, 0.2, 0.0, p)
+    assert velocity.get_dispatcher().py_func is velocity.py_func
+    assert velocity.overloads  # dispatcher attributes are forwarded
+
+
+def test_dask_stand_in_hands_over_once_dask_array_is_imported(tmp_path):
+    """The Dataset build must not import dask.array, yet dask arrays made later in the same
+    process are still recognised by xarray."""
+    pytest.importorskip("dask")
+    code = textwrap.dedent("""
+        import sys
+        import numpy as np
+        import xarray as xr
+        from eddyhop.results.optional_dask import no_distributed_probe, spare_unused_dask
+        spare_unused_dask()
+        ds = xr.Dataset({"a": ("t", np.arange(3.0))})
+        before = "dask.array" in sys.modules
+        with no_distributed_probe():
+            ds.to_netcdf("x.nc", engine="netcdf4")
+        blocked = "distributed" in sys.modules
+        import dask.array as da
+        lazy = xr.DataArray(da.zeros(4, chunks=2), dims="t")
+        print(before, blocked, lazy.chunks is not None, float(lazy.sum()))
+    """)
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         timeout=120, cwd=tmp_path)
+    assert out.stdout.split() == ["False", "False", "True", "0.0"], out.stderr
