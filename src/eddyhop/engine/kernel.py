@@ -90,7 +90,7 @@ def _start_tile(scheme, fcode, fp, xs, ys, dt, m, work):
     raise NotImplementedError("compiled only")
 
 
-# Scheme selection at compile time: a kernel specialised on its scheme code (``literally``)
+# Scheme selection at compile time: a kernel specialised on its scheme code (a CompiledCode)
 # types and compiles only that scheme's tile step — the adaptive projected_rk45 stepper is
 # the largest, and a stochastic study never compiles it.  Inlined, so no call is left.
 _SELECT = {"inline": "always", "prefer_literal": True,
@@ -365,7 +365,7 @@ def run_particles(
     non-finite or ran away (at its first such step), else left at -1.
 
     Specialised per study: ``fcode``, ``scheme`` and ``ncode`` are compile-time constants
-    (``literally``), so each combination is its own compiled (and cached) kernel that contains
+    (``flows.compiled.CompiledCode``), so each combination is its own compiled (and cached) kernel that contains
     only that family's flow, that scheme and that noise model (``flows/compiled.py``).
     """
     sqrt_dt = math.sqrt(dt)

@@ -7,8 +7,8 @@ inlined into the caller, so a new family is one new module and no edit here.
 
 Specialisation: the kernels' entry points (``kernel.run_particles``, ``stepcheck.run_step_check``,
 ``passage._passage_kernel`` and the array evaluators below) ask numba for the family code as a
-compile-time constant (``numba.literally``), and every function they call is compiled for that
-constant too.  A switch that sees a constant code is generated with that one family's call and
+compile-time constant (a :class:`CompiledCode`, whose numba type ``CodeType(n)`` carries the
+value), and every function they call is compiled for that constant too.  A switch that sees a constant code is generated with that one family's call and
 no test, so a study compiles only its own family and its kernel has no run-time family
 dispatch; a switch called with a run-time code (a test calling ``velocity`` from Python) is
 generated over every registered family.  An unregistered code yields NaN (which the runner
@@ -241,8 +241,8 @@ def fast_tile_velocity(fcode, fp, xs, ys, t, us, vs, m):
     return _switch_tile(fcode, fp, xs, ys, t, us, vs, m)
 
 
-# The array evaluators are entry points called from Python: ``literally`` compiles (and caches)
-# one specialisation per family code, like the kernels.
+# The array evaluators are entry points called from Python: a CompiledCode argument compiles
+# (and caches) one specialisation per family code, like the kernels.
 @jit
 def _psi_array(code, x, y, t, p, out):
     for i in range(x.size):
