@@ -5,10 +5,13 @@ stepped together: at each step the random numbers of the whole tile are drawn at
 (``rng.fill_normals``, a loop that vectorises across particles) and the flow is evaluated once
 per stage for the whole tile (``integrators.advance_tile``).  Every particle's arithmetic is
 independent of its tile-mates and its noise is a pure function of (seed, global particle index,
-step), so trajectories do not depend on the tiling.  Every particle adds to the sums of the
-block it belongs to, in ascending particle order (tiles in order, particles in order within a
-tile), and blocks have a fixed size, so the runner can fold blocks into batches in a fixed order
-and the totals are bit-identical whatever the chunking or the number of workers.
+step), so trajectories do not depend on the tiling.  Tiles are aligned with the blocks
+(``_tile_length``): a tile holds whole blocks or one fixed segment of a block longer than a
+tile, so the moment sums of a block — lane sums per segment, see ``LANES`` — are built from the
+same segments in the same order whatever the chunking; aged and velocity sums are added in
+ascending particle order.  Blocks have a fixed size, so the runner can fold blocks into batches
+in a fixed order and the totals are bit-identical whatever the chunking or the number of
+workers.
 
 Blow-up: a tile in which a position becomes non-finite or runaway is finished without further
 statistics and the kernel returns with ``status`` = (global particle, step) of the
