@@ -208,13 +208,14 @@ def test_absolute_moments_match_the_tracked_positions():
 
 
 def _lane_sum(values):
-    """The kernel's documented lane order (kernel.LANES = 8): lane j adds values j, j + 8, …
-    in ascending order from +0.0, the lanes are combined pairwise."""
-    lanes = [0.0] * 8
+    """The kernel's documented lane order (``kernel.LANES`` = 32): lane j adds values j,
+    j + 32, … in ascending order from +0.0; c_i = (lane i + lane i+8) + (lane i+16 +
+    lane i+24); total ((c0 + c1) + (c2 + c3)) + ((c4 + c5) + (c6 + c7))."""
+    lanes = [0.0] * 32
     for i, value in enumerate(values):
-        lanes[i % 8] += value
-    return ((lanes[0] + lanes[1]) + (lanes[2] + lanes[3])) + (
-        (lanes[4] + lanes[5]) + (lanes[6] + lanes[7]))
+        lanes[i % 32] += value
+    c = [(lanes[i] + lanes[i + 8]) + (lanes[i + 16] + lanes[i + 24]) for i in range(8)]
+    return ((c[0] + c[1]) + (c[2] + c[3])) + ((c[4] + c[5]) + (c[6] + c[7]))
 
 
 @pytest.mark.parametrize("particles, batches", [(305, 2), (1700, 2)],

@@ -38,7 +38,8 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from numba.core import cgutils
+from llvmlite import ir
+from numba.core import cgutils, types
 from numba.extending import intrinsic
 
 from .._jit import jit
@@ -70,15 +71,18 @@ MAX_PRODUCT_ORDER = 8
 _CX, _CY, _ENTERED, _FLIGHT_X, _FLIGHT_Y, _IN_FLIGHT, _HOP_DUE = range(7)
 HOP_ROWS = 7
 # Moment sums: every block's sums are built per *segment* (the block, or a fixed part of it,
-# see _tile_length) in LANES interleaved partial sums — lane j adds the segment's particles
-# j, j + LANES, j + 2·LANES, ... in ascending order — combined pairwise, then added to the
-# block's column.  A fixed order, written out in the source, independent of the tiling, the
-# chunking and the machine's vector width; the loops vectorise across the lanes.
-LANES = 8
-# Rows of the moment scratch (``moment_rows``): Δx, Δy, two value rows, |Δx|, |Δy|, |ΔX| and
-# their running powers.
-_DX, _DY, _V0, _V1, _AX, _AY, _AR, _PX, _PY, _PR = range(10)
-MOMENT_ROWS = 10
+# see _tile_length) in LANES = 32 interleaved partial sums — lane j adds the segment's
+# particles j, j + 32, j + 64, ... in ascending order, starting from +0.0 — then combined:
+# c_i = (lane i + lane i+8) + (lane i+16 + lane i+24) for i < 8, and
+# ((c0 + c1) + (c2 + c3)) + ((c4 + c5) + (c6 + c7)), which is added to the block's column.
+# A fixed order, written out in the source, independent of the tiling, the chunking and the
+# machine's vector width (:func:`_vector_lanes` adds whole groups of 32 as four vectors of 8).
+LANES = 32
+_VECTOR = 8  # doubles per vector of _vector_lanes (four independent add chains)
+# Rows of the moment scratch (``moment_rows``): Δx, Δy, two value rows, |Δx|, |Δy|, |ΔX|, their
+# running powers, the lanes.
+_DX, _DY, _V0, _V1, _AX, _AY, _AR, _PX, _PY, _PR, _LANES = range(11)
+MOMENT_ROWS = 11
 
 
 @intrinsic
@@ -238,52 +242,93 @@ def _product_orders(orders):
     return products
 
 
-@jit
-def _lane_sum(row, s, e):
-    """Sum of row[s .. e - 1] in ``LANES`` = 8 interleaved lanes (lane j adds s + j,
-    s + j + 8, ... in ascending order), combined pairwise.  Unsigned indices: numba then adds
-    no negative-index test.  Eight independent add chains, so the loop is throughput-bound."""
-    a0 = a1 = a2 = a3 = a4 = a5 = a6 = a7 = 0.0
-    k = np.uint64(s)
-    end = np.uint64(e)
-    one = np.uint64(1)
-    while k + np.uint64(8) <= end:
-        a0 += row[k]
-        a1 += row[k + one]
-        a2 += row[k + np.uint64(2)]
-        a3 += row[k + np.uint64(3)]
-        a4 += row[k + np.uint64(4)]
-        a5 += row[k + np.uint64(5)]
-        a6 += row[k + np.uint64(6)]
-        a7 += row[k + np.uint64(7)]
-        k += np.uint64(8)
-    # the last partial group: the first (e - k) lanes
-    if k < end:
-        a0 += row[k]
-    if k + one < end:
-        a1 += row[k + one]
-    if k + np.uint64(2) < end:
-        a2 += row[k + np.uint64(2)]
-    if k + np.uint64(3) < end:
-        a3 += row[k + np.uint64(3)]
-    if k + np.uint64(4) < end:
-        a4 += row[k + np.uint64(4)]
-    if k + np.uint64(5) < end:
-        a5 += row[k + np.uint64(5)]
-    if k + np.uint64(6) < end:
-        a6 += row[k + np.uint64(6)]
-    return ((a0 + a1) + (a2 + a3)) + ((a4 + a5) + (a6 + a7))
+@intrinsic
+def _vector_lanes(typingctx, row, start, end, lanes):
+    """Lane sums (see ``LANES``) of ``row[start ..]`` over its whole groups of ``LANES``
+    entries below ``end``, stored in ``lanes[0 .. LANES - 1]``; returns where they stop.
+
+    Written as LLVM vector code: numba compiles with LLVM's SLP vectoriser off and the loop
+    vectoriser may not reorder a floating-point sum, so eight scalar lanes would stay eight
+    scalar add chains.  Four vectors of eight lanes, each added element-wise (IEEE, no
+    reassociation), give the same numbers as the scalar definition on any vector width.
+    ``row`` and ``lanes``: C-contiguous float64 arrays, ``lanes`` of at least LANES entries.
+    """
+    contiguous = (isinstance(row, types.Array) and row.layout == "C" and row.ndim == 1
+                  and row.dtype == types.float64 and isinstance(lanes, types.Array)
+                  and lanes.layout == "C" and lanes.ndim == 1
+                  and lanes.dtype == types.float64)
+    if not contiguous:
+        return None
+
+    def codegen(context, builder, signature, args):
+        data = context.make_array(signature.args[0])(context, builder, value=args[0]).data
+        out = context.make_array(signature.args[3])(context, builder, value=args[3]).data
+        start_index = context.cast(builder, args[1], signature.args[1], types.int64)
+        end_index = context.cast(builder, args[2], signature.args[2], types.int64)
+        i64 = ir.IntType(64)
+        vector = ir.VectorType(ir.DoubleType(), _VECTOR)
+        zero = ir.Constant(vector, [0.0] * _VECTOR)
+        width = ir.Constant(i64, LANES)
+        before = builder.block
+        head = builder.append_basic_block("lanes.head")
+        body = builder.append_basic_block("lanes.body")
+        done = builder.append_basic_block("lanes.done")
+        builder.branch(head)
+        builder.position_at_end(head)
+        k = builder.phi(i64)
+        k.add_incoming(start_index, before)
+        sums = []
+        for _ in range(LANES // _VECTOR):
+            phi = builder.phi(vector)
+            phi.add_incoming(zero, before)
+            sums.append(phi)
+        builder.cbranch(builder.icmp_signed("<=", builder.add(k, width), end_index), body,
+                        done)
+        builder.position_at_end(body)
+        added = []
+        for a, phi in enumerate(sums):
+            pointer = builder.gep(data, [builder.add(k, ir.Constant(i64, _VECTOR * a))])
+            value = builder.load(builder.bitcast(pointer, vector.as_pointer()), align=8)
+            added.append(builder.fadd(phi, value))
+        for phi, value in zip(sums, added):
+            phi.add_incoming(value, body)
+        k.add_incoming(builder.add(k, width), body)
+        builder.branch(head)
+        builder.position_at_end(done)
+        for a, phi in enumerate(sums):
+            pointer = builder.gep(out, [ir.Constant(i64, _VECTOR * a)])
+            builder.store(phi, builder.bitcast(pointer, vector.as_pointer()), align=8)
+        return k
+
+    return types.int64(row, start, end, lanes), codegen
 
 
 @jit
-def _add_row(moments, slot, column, row, lo, m, block_size):
+def _lane_sum(row, s, e, lanes):
+    """Sum of row[s .. e - 1] in the order ``LANES`` defines (``lanes``: scratch)."""
+    k = _vector_lanes(row, s, e, lanes)
+    for j in range(e - k):  # the last partial group: the first e - k lanes
+        lanes[j] += row[k + j]
+    c0 = (lanes[0] + lanes[8]) + (lanes[16] + lanes[24])
+    c1 = (lanes[1] + lanes[9]) + (lanes[17] + lanes[25])
+    c2 = (lanes[2] + lanes[10]) + (lanes[18] + lanes[26])
+    c3 = (lanes[3] + lanes[11]) + (lanes[19] + lanes[27])
+    c4 = (lanes[4] + lanes[12]) + (lanes[20] + lanes[28])
+    c5 = (lanes[5] + lanes[13]) + (lanes[21] + lanes[29])
+    c6 = (lanes[6] + lanes[14]) + (lanes[22] + lanes[30])
+    c7 = (lanes[7] + lanes[15]) + (lanes[23] + lanes[31])
+    return ((c0 + c1) + (c2 + c3)) + ((c4 + c5) + (c6 + c7))
+
+
+@jit
+def _add_row(moments, slot, column, row, lo, m, block_size, lanes):
     """Add ``row[g]`` of tile particles ``0 .. m-1`` (chunk particles ``lo ..``) to column
     ``column`` of their blocks' sums: one lane sum per block segment (see ``LANES``)."""
     block = lo // block_size
     s = 0
     e = min((block + 1) * block_size - lo, m)
     while s < m:
-        moments[block, slot, column] += _lane_sum(row, s, e)
+        moments[block, slot, column] += _lane_sum(row, s, e, lanes)
         block += 1
         s = e
         e = min(e + block_size, m)
@@ -303,36 +348,37 @@ def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, produ
     dy = rows[_DY]
     v0 = rows[_V0]
     v1 = rows[_V1]
+    lanes = rows[_LANES]
     for g in range(m):
         dx[g] = xs[g] - x0[lo + g]
         dy[g] = ys[g] - y0[lo + g]
-    _add_row(moments, slot, 0, dx, lo, m, block_size)
-    _add_row(moments, slot, 1, dy, lo, m, block_size)
+    _add_row(moments, slot, 0, dx, lo, m, block_size, lanes)
+    _add_row(moments, slot, 1, dy, lo, m, block_size, lanes)
     for g in range(m):
         v0[g] = dx[g] * dx[g]
         v1[g] = dy[g] * dy[g]
-    _add_row(moments, slot, 2, v0, lo, m, block_size)
-    _add_row(moments, slot, 3, v1, lo, m, block_size)
+    _add_row(moments, slot, 2, v0, lo, m, block_size, lanes)
+    _add_row(moments, slot, 3, v1, lo, m, block_size, lanes)
     for g in range(m):
         dx2 = dx[g] * dx[g]
         dy2 = dy[g] * dy[g]
         r2 = dx2 + dy2
         v0[g] = dx[g] * dy[g]
         v1[g] = r2 * r2
-    _add_row(moments, slot, 4, v0, lo, m, block_size)
-    _add_row(moments, slot, 5, v1, lo, m, block_size)
+    _add_row(moments, slot, 4, v0, lo, m, block_size, lanes)
+    _add_row(moments, slot, 5, v1, lo, m, block_size, lanes)
     for g in range(m):
         v0[g] = (dx[g] * dx[g]) * dx[g]
         v1[g] = (dy[g] * dy[g]) * dy[g]
-    _add_row(moments, slot, 6, v0, lo, m, block_size)
-    _add_row(moments, slot, 7, v1, lo, m, block_size)
+    _add_row(moments, slot, 6, v0, lo, m, block_size, lanes)
+    _add_row(moments, slot, 7, v1, lo, m, block_size, lanes)
     for g in range(m):
         dx2 = dx[g] * dx[g]
         dy2 = dy[g] * dy[g]
         v0[g] = dx2 * dx2
         v1[g] = dy2 * dy2
-    _add_row(moments, slot, 8, v0, lo, m, block_size)
-    _add_row(moments, slot, 9, v1, lo, m, block_size)
+    _add_row(moments, slot, 8, v0, lo, m, block_size, lanes)
+    _add_row(moments, slot, 9, v1, lo, m, block_size, lanes)
     if orders.size == 0:
         return
     ax = rows[_AX]
@@ -352,11 +398,11 @@ def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, produ
             for g in range(m):
                 v0[g] = ax[g] ** orders[q]
                 v1[g] = ay[g] ** orders[q]
-            _add_row(moments, slot, N_BASE + 3 * q, v0, lo, m, block_size)
-            _add_row(moments, slot, N_BASE + 3 * q + 1, v1, lo, m, block_size)
+            _add_row(moments, slot, N_BASE + 3 * q, v0, lo, m, block_size, lanes)
+            _add_row(moments, slot, N_BASE + 3 * q + 1, v1, lo, m, block_size, lanes)
             for g in range(m):
                 v0[g] = ar[g] ** orders[q]
-            _add_row(moments, slot, N_BASE + 3 * q + 2, v0, lo, m, block_size)
+            _add_row(moments, slot, N_BASE + 3 * q + 2, v0, lo, m, block_size, lanes)
     for n in range(1, most + 1):
         if n == 1:
             for g in range(m):
@@ -370,9 +416,9 @@ def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, produ
                 pr[g] *= ar[g]
         for q in range(orders.size):
             if products[q] == n:
-                _add_row(moments, slot, N_BASE + 3 * q, px, lo, m, block_size)
-                _add_row(moments, slot, N_BASE + 3 * q + 1, py, lo, m, block_size)
-                _add_row(moments, slot, N_BASE + 3 * q + 2, pr, lo, m, block_size)
+                _add_row(moments, slot, N_BASE + 3 * q, px, lo, m, block_size, lanes)
+                _add_row(moments, slot, N_BASE + 3 * q + 1, py, lo, m, block_size, lanes)
+                _add_row(moments, slot, N_BASE + 3 * q + 2, pr, lo, m, block_size, lanes)
 
 
 @jit
