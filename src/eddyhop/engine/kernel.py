@@ -303,7 +303,7 @@ def _vector_lanes(typingctx, row, start, end, lanes):
     return types.int64(row, start, end, lanes), codegen
 
 
-@jit
+@jit(inline="always")
 def _lane_sum(row, s, e, lanes):
     """Sum of row[s .. e - 1] in the order ``LANES`` defines (``lanes``: scratch)."""
     k = _vector_lanes(row, s, e, lanes)
