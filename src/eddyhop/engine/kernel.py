@@ -39,7 +39,8 @@ import math
 
 import numpy as np
 from llvmlite import ir
-from numba.core import cgutils, types
+from numba import types
+from numba.core import cgutils
 from numba.extending import intrinsic
 
 from .._jit import jit
