@@ -3,6 +3,7 @@ whatever the tiling, chunking or workers; blow-ups reported deterministically.""
 
 from __future__ import annotations
 
+import itertools
 import math
 
 import numpy as np
@@ -204,3 +205,122 @@ def test_absolute_moments_match_the_tracked_positions():
         np.testing.assert_allclose(sums[:, base + 1], (np.abs(d[..., 1]) ** order).sum(0),
                                    rtol=1e-12)
         np.testing.assert_allclose(sums[:, base + 2], (r**order).sum(0), rtol=1e-12)
+
+
+def _lane_sum(values):
+    """The kernel's documented lane order (``kernel.LANES`` = 32): lane j adds values j,
+    j + 32, … in ascending order from +0.0; c_i = (lane i + lane i+8) + (lane i+16 +
+    lane i+24); total ((c0 + c1) + (c2 + c3)) + ((c4 + c5) + (c6 + c7))."""
+    lanes = [0.0] * 32
+    for i, value in enumerate(values):
+        lanes[i % 32] += value
+    c = [(lanes[i] + lanes[i + 8]) + (lanes[i + 16] + lanes[i + 24]) for i in range(8)]
+    return ((c[0] + c[1]) + (c[2] + c[3])) + ((c[4] + c[5]) + (c[6] + c[7]))
+
+
+@pytest.mark.parametrize("particles, batches", [(305, 2), (1700, 2)],
+                         ids=["blocks below a tile", "blocks cut into two segments"])
+def test_moment_sums_follow_the_documented_lane_order(particles, batches):
+    """Every block's sums are lane sums (see ``kernel.LANES``) over the block, or over its
+    fixed segments when it is longer than a tile (``_tile_length``), added to the block in
+    segment order; rebuilt here from the tracked positions, bit for bit, for a chunk of the
+    whole ensemble and for chunks of three blocks."""
+    from eddyhop.engine.kernel import _tile_length
+    from eddyhop.starts import sample_starts
+
+    steps = 6
+    study = make_study(run={"particles": particles, "batches": batches, "tracked": particles,
+                            "track_samples": steps, "dt": 0.05, "t_end": steps * 0.05,
+                            "n_times": 3})
+    schedule = build_schedule(study.run, study.aging, study.run.track_samples)
+    ctx, _, _ = runner._make_context(study, schedule)
+    block = ctx.block_size
+    assert (block <= TILE) == (particles == 305)
+    x0, y0 = sample_starts(study.starts[0], study.flow.model, study.flow.params, particles,
+                           study.run.seed, 0)
+    steps_tracked = list(schedule.track_steps)
+    for chunk in (particles, 3 * block):
+        for first in range(0, particles, chunk):
+            hi = min(first + chunk, particles)
+            moments, _, tracks = runner._run_chunk(ctx, 0, first, x0[first:hi],
+                                                   y0[first:hi])[:3]
+            for slot, out_step in enumerate(schedule.out_steps):
+                d = tracks[:, steps_tracked.index(out_step)] - np.stack(
+                    [x0[first:hi], y0[first:hi]], 1)
+                values = {0: d[:, 0], 3: d[:, 1] * d[:, 1],
+                          5: (d[:, 0] * d[:, 0] + d[:, 1] * d[:, 1]) ** 2}
+                for b in range(moments.shape[0]):
+                    lo, end = b * block, min((b + 1) * block, hi - first)
+                    cuts = [lo]
+                    while cuts[-1] < end:
+                        cuts.append(min(end, cuts[-1] + int(_tile_length(cuts[-1], hi - first,
+                                                                         block))))
+                    for column, value in values.items():
+                        expected = 0.0
+                        for s, e in itertools.pairwise(cuts):
+                            expected += _lane_sum(value[s:e])
+                        assert moments[b, slot, column] == expected, (first, b, slot, column)
+
+
+def test_tiles_are_aligned_with_blocks():
+    """Tile starts are block starts or fixed offsets inside a block, whatever the chunk."""
+    from eddyhop.engine.kernel import _tile_length
+
+    for block in (1, 7, 38, 64, 128, 129, 200, 256):
+        n = 5 * block + 3
+        bounds, lo = [], 0
+        while lo < n:
+            m = int(_tile_length(lo, n, block))
+            assert 0 < m <= TILE
+            bounds.append((lo, lo + m))
+            lo += m
+        for lo, hi in bounds:
+            if hi - lo > block or block <= TILE:
+                assert lo % block == 0 and (hi % block == 0 or hi == n)
+            else:  # a segment of one block, at a fixed offset from the block's start
+                pieces = -(-block // TILE)
+                assert lo // block == (hi - 1) // block
+                assert lo % block in {k * block // pieces for k in range(pieces)}
+
+
+def test_hop_counts_equal_the_rule_applied_to_every_step():
+    """The vectorised pre-test only chooses which particles reach the bookkeeping: replaying
+    the documented rule (a cell change counts once ``margin`` deep; flights split by gaps of
+    ``gap_steps``) on every step of every tracked path gives the same integer counts."""
+    from eddyhop.engine.kernel import _log_bin
+
+    n, steps, dt = 200, 150, 0.02
+    study = make_study(run={"particles": n, "tracked": n, "track_samples": steps, "dt": dt,
+                            "t_end": steps * dt, "n_times": 4, "batches": 2},
+                       hopping={"enabled": True, "margin": 0.05})
+    result = runner.run_ensemble(study, workers=1)
+    schedule = build_schedule(study.run, study.aging, study.run.track_samples)
+    ctx, _, _ = runner._make_context(study, schedule)
+    assert list(result.schedule.track_steps) == list(range(steps + 1))
+    start = result.starts[0]
+    path = start.tracks / ctx.cell  # [particle, step, 2] in cells
+    n_res, n_fl = len(ctx.residence_edges) - 1, len(ctx.flight_edges) - 1
+    res_low, res_inv = runner._log_binning(ctx.residence_edges)
+    fl_low, fl_inv = runner._log_binning(ctx.flight_edges)
+    residence, flights, hops = np.zeros(n_res), np.zeros(n_fl), 0
+    for p in range(n):
+        cx, cy = math.floor(path[p, 0, 0]), math.floor(path[p, 0, 1])
+        entered, flight, in_flight = 0, (cx, cy), False
+        for step in range(1, steps + 1):
+            fx, fy = path[p, step]
+            nx, ny = math.floor(fx), math.floor(fy)
+            deep_x = min(fx - nx, nx + 1.0 - fx) > ctx.margin or nx == cx
+            deep_y = min(fy - ny, ny + 1.0 - fy) > ctx.margin or ny == cy
+            if (nx != cx or ny != cy) and deep_x and deep_y:
+                residence[_log_bin((step - entered) * dt, res_low, res_inv, n_res)] += 1
+                hops += 1
+                if step - entered >= ctx.gap_steps:
+                    if in_flight:
+                        length = math.hypot(cx - flight[0], cy - flight[1])
+                        flights[_log_bin(length, fl_low, fl_inv, n_fl)] += 1
+                    flight, in_flight = (cx, cy), True
+                cx, cy, entered = nx, ny, step
+    assert hops > 20  # the check means something
+    assert start.hops == hops
+    np.testing.assert_array_equal(start.residence_counts, residence)
+    np.testing.assert_array_equal(start.flight_counts, flights)

@@ -5,10 +5,13 @@ stepped together: at each step the random numbers of the whole tile are drawn at
 (``rng.fill_normals``, a loop that vectorises across particles) and the flow is evaluated once
 per stage for the whole tile (``integrators.advance_tile``).  Every particle's arithmetic is
 independent of its tile-mates and its noise is a pure function of (seed, global particle index,
-step), so trajectories do not depend on the tiling.  Every particle adds to the sums of the
-block it belongs to, in ascending particle order (tiles in order, particles in order within a
-tile), and blocks have a fixed size, so the runner can fold blocks into batches in a fixed order
-and the totals are bit-identical whatever the chunking or the number of workers.
+step), so trajectories do not depend on the tiling.  Tiles are aligned with the blocks
+(``_tile_length``): a tile holds whole blocks or one fixed segment of a block longer than a
+tile, so the moment sums of a block — lane sums per segment, see ``LANES`` — are built from the
+same segments in the same order whatever the chunking; aged and velocity sums are added in
+ascending particle order.  Blocks have a fixed size, so the runner can fold blocks into batches
+in a fixed order and the totals are bit-identical whatever the chunking or the number of
+workers.
 
 Blow-up: a tile in which a position becomes non-finite or runaway is finished without further
 statistics and the kernel returns with ``status`` = (global particle, step) of the
@@ -35,6 +38,8 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from llvmlite import ir
+from numba import types
 from numba.core import cgutils
 from numba.extending import intrinsic, overload
 
@@ -60,8 +65,25 @@ BLOWUP_LIMIT = 1e150
 # the per-step call overhead, short enough to keep the scratch in L1 (benchmarks/bench_kernel.py).
 TILE = 128
 MAX_PRODUCT_ORDER = 8
-# Columns of the per-particle cell-hopping state.
-_CX, _CY, _ENTERED, _FLIGHT_X, _FLIGHT_Y, _IN_FLIGHT = range(6)
+# Rows of the tile's cell-hopping state (float64, one column per tile particle): the counted
+# cell, the step it was entered, the cell where the current flight began, whether a flight is
+# on, and the vectorised test's mark "a hop is due this step".  Cell indices and steps are
+# integers held exactly in floats (|index| < 2**53).
+_CX, _CY, _ENTERED, _FLIGHT_X, _FLIGHT_Y, _IN_FLIGHT, _HOP_DUE = range(7)
+HOP_ROWS = 7
+# Moment sums: every block's sums are built per *segment* (the block, or a fixed part of it,
+# see _tile_length) in LANES = 32 interleaved partial sums — lane j adds the segment's
+# particles j, j + 32, j + 64, ... in ascending order, starting from +0.0 — then combined:
+# c_i = (lane i + lane i+8) + (lane i+16 + lane i+24) for i < 8, and
+# ((c0 + c1) + (c2 + c3)) + ((c4 + c5) + (c6 + c7)), which is added to the block's column.
+# A fixed order, written out in the source, independent of the tiling, the chunking and the
+# machine's vector width (:func:`_vector_lanes` adds whole groups of 32 as four vectors of 8).
+LANES = 32
+_VECTOR = 8  # doubles per vector of _vector_lanes (four independent add chains)
+# Rows of the moment scratch (``moment_rows``): Δx, Δy, two value rows, |Δx|, |Δy|, |ΔX|, their
+# running powers, the lanes.
+_DX, _DY, _V0, _V1, _AX, _AY, _AR, _PX, _PY, _PR, _LANES = range(11)
+MOMENT_ROWS = 11
 
 
 @intrinsic
@@ -168,15 +190,63 @@ def _abs_power(value, order):
 
 
 @jit
+def _tile_length(lo, n, block_size):
+    """Particles of the tile starting at chunk particle ``lo`` (a block or segment start).
+
+    Tiles are aligned with the blocks, so that every block's sums are built from the same
+    segments whatever the chunking (chunks start at block starts): a block of up to ``TILE``
+    particles lies in one tile (a tile holds ``TILE // block_size`` whole blocks); a larger
+    block is cut into ``ceil(block_size / TILE)`` near-equal segments at the fixed offsets
+    ``k·block_size // pieces`` from its start, one tile each.  Positions never depend on the
+    tiling, only the segments of the moment sums do.
+    """
+    if block_size <= TILE:
+        return min((TILE // block_size) * block_size, n - lo)
+    pieces = -(-block_size // TILE)
+    start = (lo // block_size) * block_size
+    for k in range(1, pieces + 1):
+        end = start + (k * block_size) // pieces
+        if end > lo:
+            return min(end, n) - lo
+    return min(TILE, n - lo)
+
+
+@jit(inline="always")
+def _hop_due(fx, fy, nx, ny, cx, cy, margin):
+    """Whether a tracer at (fx, fy) cells, in cell (nx, ny) = floor, counts a hop from its
+    counted cell (cx, cy): it changed cell and is ``margin`` deep in the new one along every
+    axis it crossed.  Non-short-circuit operators, so that the tile loop vectorises."""
+    return ((nx != cx) | (ny != cy)) & (
+        (min(fx - nx, nx + 1.0 - fx) > margin) | (nx == cx)
+    ) & ((min(fy - ny, ny + 1.0 - fy) > margin) | (ny == cy))
+
+
+@jit
 def _start_hops(hop, g, x, y, cell):
-    cx = math.floor(x / cell)
-    cy = math.floor(y / cell)
-    hop[g, _CX] = cx
-    hop[g, _CY] = cy
-    hop[g, _ENTERED] = 0
-    hop[g, _FLIGHT_X] = cx
-    hop[g, _FLIGHT_Y] = cy
-    hop[g, _IN_FLIGHT] = 0
+    cx = np.floor(x / cell)
+    cy = np.floor(y / cell)
+    hop[_CX, g] = cx
+    hop[_CY, g] = cy
+    hop[_ENTERED, g] = 0.0
+    hop[_FLIGHT_X, g] = cx
+    hop[_FLIGHT_Y, g] = cy
+    hop[_IN_FLIGHT, g] = 0.0
+    hop[_HOP_DUE, g] = 0.0
+
+
+@jit
+def _mark_hops(hop, xs, ys, m, cell, margin):
+    """Mark (row ``_HOP_DUE``) the tile particles for which :func:`_check_hop` will count a
+    hop; True when any is marked.  One vectorised pass over the tile: the common step, with
+    no hop in the tile, ends here."""
+    any_due = False
+    for g in range(m):
+        fx = xs[g] / cell
+        fy = ys[g] / cell
+        due = _hop_due(fx, fy, np.floor(fx), np.floor(fy), hop[_CX, g], hop[_CY, g], margin)
+        hop[_HOP_DUE, g] = 1.0 if due else 0.0
+        any_due |= due
+    return any_due
 
 
 @jit
@@ -191,29 +261,27 @@ def _check_hop(hop, g, x, y, step, dt, cell, margin, gap_steps, block,
     """
     fx = x / cell
     fy = y / cell
-    nx = math.floor(fx)
-    ny = math.floor(fy)
-    cx = hop[g, _CX]
-    cy = hop[g, _CY]
-    if (nx != cx or ny != cy) and (
-        min(fx - nx, nx + 1.0 - fx) > margin or nx == cx
-    ) and (min(fy - ny, ny + 1.0 - fy) > margin or ny == cy):
-        residence = step - hop[g, _ENTERED]
+    nx = np.floor(fx)
+    ny = np.floor(fy)
+    cx = hop[_CX, g]
+    cy = hop[_CY, g]
+    if _hop_due(fx, fy, nx, ny, cx, cy, margin):
+        residence = step - hop[_ENTERED, g]
         n_res_bins = residence_hist.shape[1]
         residence_hist[block, _log_bin(residence * dt, res_log_low, res_inv_width,
                                        n_res_bins)] += 1.0
         hop_count[block] += 1.0
         if residence >= gap_steps:
-            if hop[g, _IN_FLIGHT]:
-                length = math.hypot(cx - hop[g, _FLIGHT_X], cy - hop[g, _FLIGHT_Y])
+            if hop[_IN_FLIGHT, g] != 0.0:
+                length = math.hypot(cx - hop[_FLIGHT_X, g], cy - hop[_FLIGHT_Y, g])
                 flight_hist[block, _log_bin(length, fl_log_low, fl_inv_width,
                                             flight_hist.shape[1])] += 1.0
-            hop[g, _FLIGHT_X] = cx
-            hop[g, _FLIGHT_Y] = cy
-            hop[g, _IN_FLIGHT] = 1
-        hop[g, _CX] = nx
-        hop[g, _CY] = ny
-        hop[g, _ENTERED] = step
+            hop[_FLIGHT_X, g] = cx
+            hop[_FLIGHT_Y, g] = cy
+            hop[_IN_FLIGHT, g] = 1.0
+        hop[_CX, g] = nx
+        hop[_CY, g] = ny
+        hop[_ENTERED, g] = step
 
 
 @jit
@@ -227,67 +295,195 @@ def _product_orders(orders):
     return products
 
 
-@jit
-def _add_moments(moments, block, slot, dx, dy, orders, products, powers):
-    """Add one particle's displacement (dx, dy) to the sums ``moments[block, slot]``.
+@intrinsic
+def _vector_lanes(typingctx, row, start, end, lanes):
+    """Lane sums (see ``LANES``) of ``row[start ..]`` over its whole groups of ``LANES``
+    entries below ``end``, stored in ``lanes[0 .. LANES - 1]``; returns where they stop.
 
-    ``powers`` is scratch [3, MAX_PRODUCT_ORDER + 1]: |Δx|^n, |Δy|^n, |ΔX|^n built by the same
-    repeated products as :func:`_abs_power`, once for all orders.
+    Written as LLVM vector code: numba compiles with LLVM's SLP vectoriser off and the loop
+    vectoriser may not reorder a floating-point sum, so eight scalar lanes would stay eight
+    scalar add chains.  Four vectors of eight lanes, each added element-wise (IEEE, no
+    reassociation), give the same numbers as the scalar definition on any vector width.
+    ``row`` and ``lanes``: C-contiguous float64 arrays, ``lanes`` of at least LANES entries.
     """
-    dx2 = dx * dx
-    dy2 = dy * dy
-    r2 = dx2 + dy2
-    moments[block, slot, 0] += dx
-    moments[block, slot, 1] += dy
-    moments[block, slot, 2] += dx2
-    moments[block, slot, 3] += dy2
-    moments[block, slot, 4] += dx * dy
-    moments[block, slot, 5] += r2 * r2
-    moments[block, slot, 6] += dx2 * dx
-    moments[block, slot, 7] += dy2 * dy
-    moments[block, slot, 8] += dx2 * dx2
-    moments[block, slot, 9] += dy2 * dy2
+    contiguous = (isinstance(row, types.Array) and row.layout == "C" and row.ndim == 1
+                  and row.dtype == types.float64 and isinstance(lanes, types.Array)
+                  and lanes.layout == "C" and lanes.ndim == 1
+                  and lanes.dtype == types.float64)
+    if not contiguous:
+        return None
+
+    def codegen(context, builder, signature, args):
+        data = context.make_array(signature.args[0])(context, builder, value=args[0]).data
+        out = context.make_array(signature.args[3])(context, builder, value=args[3]).data
+        start_index = context.cast(builder, args[1], signature.args[1], types.int64)
+        end_index = context.cast(builder, args[2], signature.args[2], types.int64)
+        i64 = ir.IntType(64)
+        vector = ir.VectorType(ir.DoubleType(), _VECTOR)
+        zero = ir.Constant(vector, [0.0] * _VECTOR)
+        width = ir.Constant(i64, LANES)
+        before = builder.block
+        head = builder.append_basic_block("lanes.head")
+        body = builder.append_basic_block("lanes.body")
+        done = builder.append_basic_block("lanes.done")
+        builder.branch(head)
+        builder.position_at_end(head)
+        k = builder.phi(i64)
+        k.add_incoming(start_index, before)
+        sums = []
+        for _ in range(LANES // _VECTOR):
+            phi = builder.phi(vector)
+            phi.add_incoming(zero, before)
+            sums.append(phi)
+        builder.cbranch(builder.icmp_signed("<=", builder.add(k, width), end_index), body,
+                        done)
+        builder.position_at_end(body)
+        added = []
+        for a, phi in enumerate(sums):
+            pointer = builder.gep(data, [builder.add(k, ir.Constant(i64, _VECTOR * a))])
+            value = builder.load(builder.bitcast(pointer, vector.as_pointer()), align=8)
+            added.append(builder.fadd(phi, value))
+        for phi, value in zip(sums, added):
+            phi.add_incoming(value, body)
+        k.add_incoming(builder.add(k, width), body)
+        builder.branch(head)
+        builder.position_at_end(done)
+        for a, phi in enumerate(sums):
+            pointer = builder.gep(out, [ir.Constant(i64, _VECTOR * a)])
+            builder.store(phi, builder.bitcast(pointer, vector.as_pointer()), align=8)
+        return k
+
+    return types.int64(row, start, end, lanes), codegen
+
+
+@jit(inline="always")
+def _lane_sum(row, s, e, lanes):
+    """Sum of row[s .. e - 1] in the order ``LANES`` defines (``lanes``: scratch)."""
+    k = _vector_lanes(row, s, e, lanes)
+    for j in range(e - k):  # the last partial group: the first e - k lanes
+        lanes[j] += row[k + j]
+    c0 = (lanes[0] + lanes[8]) + (lanes[16] + lanes[24])
+    c1 = (lanes[1] + lanes[9]) + (lanes[17] + lanes[25])
+    c2 = (lanes[2] + lanes[10]) + (lanes[18] + lanes[26])
+    c3 = (lanes[3] + lanes[11]) + (lanes[19] + lanes[27])
+    c4 = (lanes[4] + lanes[12]) + (lanes[20] + lanes[28])
+    c5 = (lanes[5] + lanes[13]) + (lanes[21] + lanes[29])
+    c6 = (lanes[6] + lanes[14]) + (lanes[22] + lanes[30])
+    c7 = (lanes[7] + lanes[15]) + (lanes[23] + lanes[31])
+    return ((c0 + c1) + (c2 + c3)) + ((c4 + c5) + (c6 + c7))
+
+
+@jit
+def _add_row(moments, slot, column, row, lo, m, block_size, lanes):
+    """Add ``row[g]`` of tile particles ``0 .. m-1`` (chunk particles ``lo ..``) to column
+    ``column`` of their blocks' sums: one lane sum per block segment (see ``LANES``)."""
+    block = lo // block_size
+    s = 0
+    e = min((block + 1) * block_size - lo, m)
+    while s < m:
+        moments[block, slot, column] += _lane_sum(row, s, e, lanes)
+        block += 1
+        s = e
+        e = min(e + block_size, m)
+
+
+@jit
+def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, products, rows):
+    """Add the displacements of tile particles ``0 .. m-1`` (chunk particles ``lo ..``) to the
+    sums ``moments[block, slot]`` (columns: module docstring).
+
+    Vectorised over the tile: each column's values are a row of ``rows`` (scratch of
+    ``MOMENT_ROWS`` rows of at least ``TILE`` entries), summed per block segment in lanes
+    (:func:`_add_row`).  |Δx|^n, |Δy|^n, |ΔX|^n for integer orders are running products
+    (the n-th is the (n-1)-th times the base, the products of :func:`_abs_power`).
+    """
+    dx = rows[_DX]
+    dy = rows[_DY]
+    v0 = rows[_V0]
+    v1 = rows[_V1]
+    lanes = rows[_LANES]
+    for g in range(m):
+        dx[g] = xs[g] - x0[lo + g]
+        dy[g] = ys[g] - y0[lo + g]
+    _add_row(moments, slot, 0, dx, lo, m, block_size, lanes)
+    _add_row(moments, slot, 1, dy, lo, m, block_size, lanes)
+    for g in range(m):
+        v0[g] = dx[g] * dx[g]
+        v1[g] = dy[g] * dy[g]
+    _add_row(moments, slot, 2, v0, lo, m, block_size, lanes)
+    _add_row(moments, slot, 3, v1, lo, m, block_size, lanes)
+    for g in range(m):
+        dx2 = dx[g] * dx[g]
+        dy2 = dy[g] * dy[g]
+        r2 = dx2 + dy2
+        v0[g] = dx[g] * dy[g]
+        v1[g] = r2 * r2
+    _add_row(moments, slot, 4, v0, lo, m, block_size, lanes)
+    _add_row(moments, slot, 5, v1, lo, m, block_size, lanes)
+    for g in range(m):
+        v0[g] = (dx[g] * dx[g]) * dx[g]
+        v1[g] = (dy[g] * dy[g]) * dy[g]
+    _add_row(moments, slot, 6, v0, lo, m, block_size, lanes)
+    _add_row(moments, slot, 7, v1, lo, m, block_size, lanes)
+    for g in range(m):
+        dx2 = dx[g] * dx[g]
+        dy2 = dy[g] * dy[g]
+        v0[g] = dx2 * dx2
+        v1[g] = dy2 * dy2
+    _add_row(moments, slot, 8, v0, lo, m, block_size, lanes)
+    _add_row(moments, slot, 9, v1, lo, m, block_size, lanes)
     if orders.size == 0:
         return
-    adx = abs(dx)
-    ady = abs(dy)
-    r = math.sqrt(r2)
-    px = adx
-    py = ady
-    pr = r
-    powers[0, 1] = px
-    powers[1, 1] = py
-    powers[2, 1] = pr
-    for n in range(2, MAX_PRODUCT_ORDER + 1):
-        px *= adx
-        py *= ady
-        pr *= r
-        powers[0, n] = px
-        powers[1, n] = py
-        powers[2, n] = pr
+    ax = rows[_AX]
+    ay = rows[_AY]
+    ar = rows[_AR]
+    px = rows[_PX]
+    py = rows[_PY]
+    pr = rows[_PR]
+    for g in range(m):
+        ax[g] = abs(dx[g])
+        ay[g] = abs(dy[g])
+        ar[g] = math.sqrt(dx[g] * dx[g] + dy[g] * dy[g])
+    most = 0
     for q in range(orders.size):
-        base = N_BASE + 3 * q
-        n = products[q]
-        if n > 0:
-            moments[block, slot, base] += powers[0, n]
-            moments[block, slot, base + 1] += powers[1, n]
-            moments[block, slot, base + 2] += powers[2, n]
+        most = max(most, products[q])
+        if products[q] == 0:  # pow for the other orders
+            for g in range(m):
+                v0[g] = ax[g] ** orders[q]
+                v1[g] = ay[g] ** orders[q]
+            _add_row(moments, slot, N_BASE + 3 * q, v0, lo, m, block_size, lanes)
+            _add_row(moments, slot, N_BASE + 3 * q + 1, v1, lo, m, block_size, lanes)
+            for g in range(m):
+                v0[g] = ar[g] ** orders[q]
+            _add_row(moments, slot, N_BASE + 3 * q + 2, v0, lo, m, block_size, lanes)
+    for n in range(1, most + 1):
+        if n == 1:
+            for g in range(m):
+                px[g] = ax[g]
+                py[g] = ay[g]
+                pr[g] = ar[g]
         else:
-            moments[block, slot, base] += _abs_power(adx, orders[q])
-            moments[block, slot, base + 1] += _abs_power(ady, orders[q])
-            moments[block, slot, base + 2] += _abs_power(r, orders[q])
+            for g in range(m):
+                px[g] *= ax[g]
+                py[g] *= ay[g]
+                pr[g] *= ar[g]
+        for q in range(orders.size):
+            if products[q] == n:
+                _add_row(moments, slot, N_BASE + 3 * q, px, lo, m, block_size, lanes)
+                _add_row(moments, slot, N_BASE + 3 * q + 1, py, lo, m, block_size, lanes)
+                _add_row(moments, slot, N_BASE + 3 * q + 2, pr, lo, m, block_size, lanes)
 
 
 @jit
 def _record_event(e, lo, m, block_size, xs, ys, x0, y0, ref,
-                  ev_out, ev_track, ev_ref, aged_ptr, aged_a, aged_l, orders, products, powers,
-                  moments, aged, tracks, n_tracked_here):
-    """Everything event ``e`` asks of tile particles ``lo .. lo + m - 1`` (ascending order)."""
+                  ev_out, ev_track, ev_ref, aged_ptr, aged_a, aged_l, orders, products,
+                  moment_rows, moments, aged, tracks, n_tracked_here):
+    """Everything event ``e`` asks of tile particles ``lo .. lo + m - 1`` (moments: lane sums
+    per block segment, see ``LANES``; aged sums: ascending particle order)."""
     slot = ev_out[e]
     if slot >= 0:
-        for g in range(m):
-            _add_moments(moments, (lo + g) // block_size, slot, xs[g] - x0[lo + g],
-                         ys[g] - y0[lo + g], orders, products, powers)
+        _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, products,
+                     moment_rows)
     tslot = ev_track[e]
     if tslot >= 0:
         for g in range(min(m, n_tracked_here - lo)):
@@ -382,15 +578,17 @@ def run_particles(
     vref = np.empty((max(vcorr.shape[1], 1), 2, TILE))
     tile_u = np.empty(TILE)
     tile_v = np.empty(TILE)
-    hop = np.zeros((TILE, 6), dtype=np.int64)
+    hop = np.zeros((HOP_ROWS, TILE))
     words = np.empty((4, TILE), dtype=np.uint64)
     z = np.zeros((4, TILE))
     products = _product_orders(orders)
-    powers = np.empty((3, MAX_PRODUCT_ORDER + 1))
+    moment_rows = np.zeros((MOMENT_ROWS, TILE))
     walls = has_walls(fcode)
     n = x0.size
-    for lo in range(0, n, TILE):
-        m = min(TILE, n - lo)
+    lo = 0
+    m = 0
+    while lo + m < n:  # tiles aligned with the blocks (see _tile_length)
+        lo, m = lo + m, _tile_length(lo + m, n, block_size)
         particle0 = stream_offset + first_index + lo
         for g in range(m):
             xs[g] = x0[lo + g]
@@ -416,9 +614,17 @@ def run_particles(
                 step += 1
                 runaway = False
                 for g in range(m):  # a vectorised test first; the per-particle loop below
-                    # runs only when a particle ran away or cell hops are counted
+                    # runs only when a particle ran away or a cell hop is due
                     runaway |= not ((abs(xs[g]) < BLOWUP_LIMIT) & (abs(ys[g]) < BLOWUP_LIMIT))
-                if not (runaway or (hop_on and not failed)):
+                if not runaway:
+                    if hop_on and not failed and _mark_hops(hop, xs, ys, m, cell, margin):
+                        for g in range(m):  # only the marked particles: same counts as a
+                            # call of _check_hop for every particle (it tests the same)
+                            if hop[_HOP_DUE, g] != 0.0:
+                                _check_hop(hop, g, xs[g], ys[g], step, dt, cell, margin,
+                                           gap_steps, (lo + g) // block_size, res_log_low,
+                                           res_inv_width, fl_log_low, fl_inv_width,
+                                           residence_hist, flight_hist, hop_count)
                     continue
                 for g in range(m):
                     if not (abs(xs[g]) < BLOWUP_LIMIT and abs(ys[g]) < BLOWUP_LIMIT):
@@ -438,7 +644,7 @@ def run_particles(
             if not failed:
                 _record_event(e, lo, m, block_size, xs, ys, x0, y0, ref,
                               ev_out, ev_track, ev_ref, aged_ptr, aged_a, aged_l, orders,
-                              products, powers, moments, aged, tracks, n_tracked_here)
+                              products, moment_rows, moments, aged, tracks, n_tracked_here)
                 _record_velocity(e, lo, m, block_size, xs, ys, step * dt, fcode, fp, ev_vref,
                                  vc_ptr, vc_r, vc_l, vref, tile_u, tile_v, vcorr)
         if failed:

@@ -28,6 +28,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from numba.cpython.unsafe.numbers import trailing_zeros
 
 from .._jit import jit
 
@@ -45,6 +46,8 @@ _INV_2_53 = 2.0**-53
 # Extra words for one rejected normal: at most this many (a run of 64 rejections has
 # probability below 1e-130; the last candidate is then returned).
 MAX_ATTEMPTS = 64
+# Lanes whose rejections one uint64 bit mask records (see fill_normals).
+_LANE_GROUP = 64
 STEP_LIMIT = 2**48  # steps per particle; spec.py refuses longer runs (kept equal there)
 
 
@@ -246,13 +249,31 @@ def _fill_pair(key0, key1, first_particle, count, low, c1, slot, words, z):
 
 
 @jit
+def _rejected_lanes(words, slot, start, stop):
+    """Bit mask of the lanes ``start .. stop - 1`` (at most 64; bit ``g - start``) of row
+    ``slot`` whose word the ziggurat's common case does not accept: a vectorised OR
+    reduction (unsigned indices, so numba adds no negative-index test that would stop it)."""
+    rejected = np.uint64(0)
+    row = np.uint64(slot)
+    first = np.uint64(start)
+    for i in range(stop - start):
+        word = words[row, first + np.uint64(i)]
+        refused = (word >> _UNIFORM_SHIFT) >= _ZK[word & _LAYER_BITS]
+        rejected |= np.uint64(refused) << np.uint64(i)
+    return rejected
+
+
+@jit
 def fill_normals(k0, k1, first_particle, count, step, n_pairs, words, z):
     """Normals of particles ``first_particle .. + count - 1`` at ``step`` into ``z[slot, g]``.
 
     Fills slots ``0 .. 2·n_pairs - 1`` (tags ``0 .. n_pairs - 1``); ``words`` is uint64
     scratch of the same shape.  Bit-identical to :func:`normals4`: a vectorised pass per tag
-    (:func:`_fill_pair`), then a scalar pass finishing the ~1.5 % of draws that need the
-    wedge or tail test.
+    (:func:`_fill_pair`) computes the common case, a vectorised pass per group of 64 lanes
+    marks the ~1.5 % of draws that need the wedge or tail test in a bit mask
+    (:func:`_rejected_lanes`), and only the marked lanes are finished one at a time, lowest
+    bit first.  Each finished draw is a pure function of (key, particle, step, slot), so the
+    order of the passes changes no number.
     """
     key0 = np.uint64(k0)
     key1 = np.uint64(k1)
@@ -263,10 +284,13 @@ def fill_normals(k0, k1, first_particle, count, step, n_pairs, words, z):
         _fill_pair(key0, key1, first_particle, count, low,
                    high | (np.uint64(tag) << _TAG_SHIFT), 2 * tag, words, z)
     for slot in range(2 * n_pairs):
-        for g in range(count):
-            word = words[slot, g]
-            if (word >> _UNIFORM_SHIFT) >= _ZK[np.int64(word & _LAYER_BITS)]:
-                z[slot, g] = _rejection_normal(key0, key1, first_particle + g, step, slot, word)
+        for start in range(0, count, _LANE_GROUP):
+            rejected = _rejected_lanes(words, slot, start, min(start + _LANE_GROUP, count))
+            while rejected:
+                g = start + np.int64(trailing_zeros(rejected))
+                z[slot, g] = _rejection_normal(key0, key1, first_particle + g, step, slot,
+                                               words[slot, g])
+                rejected &= rejected - np.uint64(1)
 
 
 @jit
