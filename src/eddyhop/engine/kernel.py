@@ -561,8 +561,9 @@ def run_particles(
     non-finite or ran away (at its first such step), else left at -1.
 
     Specialised per study: ``fcode``, ``scheme`` and ``ncode`` are compile-time constants
-    (``flows.compiled.CompiledCode``), so each combination is its own compiled (and cached) kernel that contains
-    only that family's flow, that scheme and that noise model (``flows/compiled.py``).
+    (``flows.compiled.CompiledCode``), so each combination is its own compiled (and cached)
+    kernel that contains only that family's flow, that scheme and that noise model
+    (``flows/compiled.py``).
     """
     sqrt_dt = math.sqrt(dt)
     n_pairs = normal_pairs_per_step(scheme)

@@ -5,17 +5,16 @@ Kernels call :func:`velocity` (and ``psi``, ``gradient``, ``confine``, ``has_wal
 they are generated from the registry (``registry.py``) when numba compiles one of them, and
 inlined into the caller, so a new family is one new module and no edit here.
 
-Specialisation: the kernels' entry points (``kernel.run_particles``, ``stepcheck.run_step_check``,
-``passage._passage_kernel`` and the array evaluators below) ask numba for the family code as a
-compile-time constant (a :class:`CompiledCode`, whose numba type ``CodeType(n)`` carries the
-value), and every function they call is compiled for that constant too.  A switch that sees a constant code is generated with that one family's call and
-no test, so a study compiles only its own family and its kernel has no run-time family
-dispatch; a switch called with a run-time code (a test calling ``velocity`` from Python) is
-generated over every registered family.  An unregistered code yields NaN (which the runner
-reports as a blow-up), never another family's field.  ``tests/test_flows.py`` checks every
-registered family against its own module, and ``tests/test_family_plugin.py`` runs a family
-defined only in a test.
-"""
+Specialisation: the kernels' entry points (``kernel.run_particles``,
+``stepcheck.run_step_check``, ``passage._passage_kernel`` and the array evaluators below) ask
+numba for the family code as a compile-time constant (a :class:`CompiledCode`, whose numba type
+``CodeType(n)`` carries the value), and every function they call is compiled for that constant
+too. A switch that sees a constant code is generated with that one family's call and no test, so
+a study compiles only its own family and its kernel has no run-time family dispatch; a switch
+called with a run-time code (a test calling ``velocity`` from Python) is generated over every
+registered family. An unregistered code yields NaN (which the runner reports as a blow-up),
+never another family's field. ``tests/test_flows.py`` checks every registered family against its
+own module, and ``tests/test_family_plugin.py`` runs a family defined only in a test."""
 
 from __future__ import annotations
 
