@@ -42,10 +42,12 @@ def _scheme_cost(study) -> float:
             advective = 1.0
         cost *= max(1.0, advective / 0.1) if advective == advective else 10.0
     return cost
-# per particle, the work at events (measured here with the runs of tests/test_cost.py on the
-# 2-vCPU development machine, whole simulate() CPU time minus the step figure above): about
-# 2 ns per moment column at each output time and 9 ns per aged (t_a, lag) pair
-NS_PER_OUTPUT_COLUMN = 2.0
+# per particle, the work at events (measured on the 2-vCPU development machine): an output
+# time with the six default moment orders (28 columns) costs 11.6 ns per particle with the
+# vectorised lane sums, runner fold included (benchmarks/bench_time_to_answer.py, kernel
+# group), so 0.5 ns per column; 9 ns per aged (t_a, lag) pair (tests/test_cost.py runs, whole
+# simulate() CPU time minus the step figure above)
+NS_PER_OUTPUT_COLUMN = 0.5
 NS_PER_AGED_PAIR = 9.0
 # per particle and (reference time, lag) pair of the velocity correlation: one vectorised flow
 # evaluation and six sums, ≈ 10 ns (benchmarks/bench_velocity.py: +2.2 ns per particle-step at
