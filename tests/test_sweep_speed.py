@@ -41,7 +41,7 @@ def test_threads_backend_equals_serial_and_restores_warning_filters(serial, tmp_
 def test_auto_runs_local_points_on_threads():
     assert make_pool("auto", jobs=2, scheduler=None, n_todo=4).name == "threads"
     assert make_pool("auto", jobs=2, scheduler=None, n_todo=1).name == "serial"
-    assert make_pool("threads", jobs=8, scheduler=None, n_todo=3).slots == 3
+    assert make_pool("threads", jobs=8, scheduler=None, n_todo=3).slots == 8  # chunks
 
 
 def test_a_point_that_fails_on_a_thread_fails_alone(tmp_path):
