@@ -385,7 +385,7 @@ def run_plans(plans, pool: ChunkPool, *, window: int | None = None):
     ``plans`` is an iterable of ``(key, make_plan)``; ``make_plan()`` returns an
     ``EnsemblePlan`` (or raises).  Tasks are submitted in a fixed order — every task of the
     first ensemble, then of the next … — keeping up to ``window`` tasks in flight (default
-    8 per thread), so that while the caller handles one result (builds, writes, analyses it)
+    16 per thread), so that while the caller handles one result (builds, writes, analyses it)
     the pool already runs the chunks of the following ensembles; ``make_plan`` of a later
     key may therefore run before the caller receives an earlier result.  Each ensemble's
     outputs are folded strictly in task order, so every result is bit-identical to
@@ -395,7 +395,7 @@ def run_plans(plans, pool: ChunkPool, *, window: int | None = None):
     """
     from collections import deque
 
-    window = window or 8 * pool.workers
+    window = window or 16 * pool.workers
     source = iter(plans)
     states = deque()  # ensembles started and not yet yielded, in order
     feeding = deque()  # those whose tasks are not all submitted yet
