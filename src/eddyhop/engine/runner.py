@@ -385,7 +385,8 @@ def run_plans(plans, pool: ChunkPool, *, window: int | None = None):
     ``plans`` is an iterable of ``(key, make_plan)``; ``make_plan()`` returns an
     ``EnsemblePlan`` (or raises).  Tasks are submitted in a fixed order — every task of the
     first ensemble, then of the next … — keeping up to ``window`` tasks in flight (default
-    16 per thread), so that while the caller handles one result (builds, writes, analyses it)
+    16 per thread, at most 64: each holds at most ``CHUNK_OUTPUT_BUDGET`` of sums once run),
+    so that while the caller handles one result (builds, writes, analyses it)
     the pool already runs the chunks of the following ensembles; ``make_plan`` of a later
     key may therefore run before the caller receives an earlier result.  Each ensemble's
     outputs are folded strictly in task order, so every result is bit-identical to
@@ -395,7 +396,7 @@ def run_plans(plans, pool: ChunkPool, *, window: int | None = None):
     """
     from collections import deque
 
-    window = window or 16 * pool.workers
+    window = window or min(16 * pool.workers, 64)
     source = iter(plans)
     states = deque()  # ensembles started and not yet yielded, in order
     feeding = deque()  # those whose tasks are not all submitted yet
@@ -555,7 +556,9 @@ def run_ensemble(study, *, workers: int | None = None, chunk: int | None = None,
     owned = pool is None
     pool = pool or ChunkPool(plan.workers)
     try:
-        [(_, outcome)] = run_plans([(None, lambda: plan)], pool)
+        # two tasks per thread in flight: the fold keeps up, and memory stays that of a few
+        # chunks' sums
+        [(_, outcome)] = run_plans([(None, lambda: plan)], pool, window=2 * pool.workers)
     finally:
         if owned:
             pool.close()
