@@ -18,6 +18,7 @@ and parallel sweeps are compared (they must be bit-identical).
 from __future__ import annotations
 
 import argparse
+import itertools
 import os
 import subprocess
 import sys
@@ -158,6 +159,59 @@ def workload(root: Path, tag: str, particles: int, t_end: float, points: int,
     return {"best": best, "identical": identical, "path": path}
 
 
+def timeline(root: Path, path: Path, jobs: int = 2) -> None:
+    """Where a threads-backend sweep spends its time, in this process (kernels loaded): the
+    CPU before the first kernel task starts, how busy the pool's threads are from the first
+    task to the last (gaps between tasks: an empty queue, or a thread waiting for the GIL),
+    and the CPU after the last task (the last point's Dataset, write and analysis, the merge)."""
+    import functools
+    import threading
+
+    from eddyhop.engine import runner
+    from eddyhop.sweeps import run_sweep
+
+    spans, marks = [], {}
+    originals = {name: getattr(runner, name) for name in ("_run_chunk", "_run_check_batch")}
+
+    def timed(function):
+        @functools.wraps(function)
+        def wrapper(*args):
+            started = time.perf_counter()
+            marks.setdefault("first", (started, time.process_time()))
+            try:
+                return function(*args)
+            finally:
+                ended = time.perf_counter()
+                spans.append((threading.current_thread().name, started, ended))
+                marks["last"] = (ended, time.process_time())
+        return wrapper
+
+    for name, function in originals.items():
+        setattr(runner, name, timed(function))
+    try:
+        begin = (time.perf_counter(), time.process_time())
+        run_sweep(path, root / "timeline", backend="threads", jobs=jobs, progress=False)
+        end = (time.perf_counter(), time.process_time())
+    finally:
+        for name, function in originals.items():
+            setattr(runner, name, function)
+    first, last = marks["first"], marks["last"]
+    print(f"\nwhere a -j {jobs} threads sweep spends its time (in this process, kernels loaded; "
+          f"load average {load()})")
+    print(f"  before the first kernel task: {first[0] - begin[0]:.2f} s wall, "
+          f"{first[1] - begin[1]:.2f} s CPU")
+    for thread in sorted({t for t, _, _ in spans}):
+        mine = sorted((a, b) for t, a, b in spans if t == thread)
+        busy = sum(b - a for a, b in mine)
+        gaps = [b[0] - a[1] for a, b in itertools.pairwise(mine)]
+        print(f"  {thread}: {len(mine)} tasks, busy {busy:.2f} s of the "
+              f"{last[0] - first[0]:.2f} s from first to last task; gaps between tasks "
+              f"{sum(gaps):.2f} s in all (largest {max(gaps, default=0.0):.3f} s)")
+    print(f"  after the last kernel task: {end[0] - last[0]:.2f} s wall, "
+          f"{end[1] - last[1]:.2f} s CPU (last point's Dataset, write, analysis; the merge)")
+    print(f"  CPU in all {end[1] - begin[1]:.2f} s")
+
+
 def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--points", type=int, default=8)
@@ -168,6 +222,8 @@ def main():
     parser.add_argument("--repeat", type=int, default=2)
     parser.add_argument("--skip-documented", action="store_true",
                         help="only the long workload (and the overhead section)")
+    parser.add_argument("--timeline-only", action="store_true",
+                        help="only where a 4-point -j 2 threads sweep spends its time")
     options = parser.parse_args()
 
     from eddyhop.study.spec import load_study
@@ -184,6 +240,10 @@ def main():
         first = study.sweep.points()[0]
         print(f"kernel compile/load in this process: "
               f"{warm_kernels(study.sweep.point_document(first)):.1f} s")
+        if options.timeline_only:
+            timeline(root, write(root, "timeline.toml", STUDY.format(
+                particles=options.particles, t_end=options.t_end, points=4)))
+            return
         capacity_before = machine_capacity(path)
         results, names = [], []
         if not options.skip_documented:
@@ -195,6 +255,8 @@ def main():
                                     options.points, 1))
             names.append("long")
         capacity_after = machine_capacity(path)
+        timeline(root, write(root, "timeline.toml", STUDY.format(
+            particles=options.particles, t_end=options.t_end, points=4)))
         print(f"\navailable: two plain concurrent processes run {capacity_before:.2f}x "
               f"(before) / {capacity_after:.2f}x (after) as fast as one (2.00x on an idle "
               "2-core machine)")
