@@ -158,13 +158,14 @@ def run_sweep(study, out, *, backend: str = "auto", jobs: int | None = None,
               merge_to="default", timeout: float = 10.0, summarize=None) -> SweepReport:
     """Run (or resume) every point of ``study``'s sweep into folder ``out``.
 
-    ``backend``: ``serial``, ``threads`` (``jobs`` points at once on threads of this process,
-    each split over ``jobs`` chunk threads; ``None`` or -1: one per core), ``processes``
-    (local processes through joblib/loky, ``jobs`` of them), ``dask`` (cluster at ``scheduler`` or
-    ``$DASK_SCHEDULER_ADDRESS``) or ``auto``.  ``workers`` is the number of threads per point
-    (-1: every core; default: the study's ``run.workers`` for serial runs, ``jobs`` on
-    threads, 1 in worker processes or on Dask).  Counts of 0 or below -1 are refused, as for
-    ``run.workers``.
+    ``backend``: ``serial``, ``threads`` (one pool of ``jobs`` threads of this process for the
+    whole sweep, fed with the chunks of every point in point order; ``None`` or -1: one per
+    core), ``processes`` (local processes through joblib/loky, ``jobs`` of them), ``dask``
+    (cluster at ``scheduler`` or ``$DASK_SCHEDULER_ADDRESS``) or ``auto``.  ``workers`` is
+    the number of threads per point of the serial, processes and Dask backends (-1: every
+    core; default: the study's ``run.workers`` for serial runs, 1 in worker processes or on
+    Dask); the threads backend spreads every point over its ``jobs`` threads instead.
+    Counts of 0 or below -1 are refused, as for ``run.workers``.
     ``merge_to``: path of the merged Dataset, ``"default"`` for ``out/sweep.nc``, ``None`` for
     no merge.  ``timeout`` (s) bounds the wait for a Dask scheduler and its first worker (one
     deadline for all of it).  None of these options changes any number.
