@@ -1,6 +1,7 @@
-"""Sweep throughput: a 2-process local sweep against a serial one, measured the way the CLI
-runs it (a fresh `eddyhop sweep` process each time, so the worker pool starts from nothing) and
-inside one Python process with a reused worker pool; plus the scheduling overhead per point
+"""Sweep throughput: a local `-j 2` sweep (threads, the default; and worker processes) against a
+serial one, measured the way the CLI runs it (a fresh `eddyhop sweep` process each time, so
+imports, kernel loading and any worker start-up are included) and inside one Python process
+(threads; processes with a fresh and a reused worker pool); plus the scheduling overhead per point
 (everything a sweep does besides integrating: parsing the point, dispatch, returning the
 Dataset, the atomic netCDF write, the sha256, the manifest updates) and the resume check.
 
@@ -17,6 +18,7 @@ and parallel sweeps are compared (they must be bit-identical).
 from __future__ import annotations
 
 import argparse
+import itertools
 import os
 import subprocess
 import sys
@@ -111,18 +113,22 @@ def workload(root: Path, tag: str, particles: int, t_end: float, points: int,
 
     path = write(root, f"{tag}.toml", STUDY.format(particles=particles, t_end=t_end,
                                                    points=points))
-    times = {"cli serial": [], "cli 2 processes": [], "serial": [], "fresh pool": [],
-             "reused pool": []}
+    times = {"cli serial": [], "cli 2 threads": [], "cli 2 processes": [], "serial": [],
+             "threads": [], "fresh pool": [], "reused pool": []}
     integration = []
     for r in range(repeat):
         times["cli serial"].append(cli_sweep(path, root / f"{tag}_cli_serial{r}",
                                              "--backend", "serial", "-w", "1"))
+        times["cli 2 threads"].append(cli_sweep(path, root / f"{tag}_cli_thr{r}", "-j", "2"))
         times["cli 2 processes"].append(cli_sweep(path, root / f"{tag}_cli_par{r}",
                                                   "--backend", "processes", "-j", "2"))
         serial = run_sweep(load_study(path), root / f"{tag}_serial{r}", backend="serial",
                            workers=1, progress=False, merge_to=None)
         times["serial"].append(serial.seconds)
         integration.append(sum(serial.point_seconds))
+        threads = run_sweep(load_study(path), root / f"{tag}_thr{r}", backend="threads",
+                            jobs=2, progress=False, merge_to=None)
+        times["threads"].append(threads.seconds)
         parallel = run_sweep(load_study(path), root / f"{tag}_par{r}", backend="processes",
                              jobs=2, progress=False, merge_to=None)
         times["reused pool" if r or times["fresh pool"] else "fresh pool"].append(
@@ -132,14 +138,17 @@ def workload(root: Path, tag: str, particles: int, t_end: float, points: int,
                           jobs=2, progress=False, merge_to=None)
         times["reused pool"].append(again.seconds)
     identical = all(same_numbers(root / f"{tag}_serial0", root / d)
-                    for d in (f"{tag}_par0", f"{tag}_cli_par0", f"{tag}_cli_serial0"))
+                    for d in (f"{tag}_par0", f"{tag}_cli_par0", f"{tag}_cli_serial0",
+                              f"{tag}_thr0", f"{tag}_cli_thr0"))
     best = {k: min(v) for k, v in times.items()}
     steps = round(t_end / 0.01)
     print(f"\n{points} points x {particles} particles x {steps} steps "
           f"(best of {repeat} interleaved runs; integration alone {min(integration):.2f} s)")
     rows = (("CLI: eddyhop sweep --backend serial", "cli serial", "cli serial"),
-            ("CLI: eddyhop sweep -j 2 (fresh pool)", "cli 2 processes", "cli serial"),
+            ("CLI: eddyhop sweep -j 2 (threads)", "cli 2 threads", "cli serial"),
+            ("CLI: -j 2 --backend processes", "cli 2 processes", "cli serial"),
             ("in-process: serial", "serial", "serial"),
+            ("in-process: 2 threads", "threads", "serial"),
             ("in-process: 2 processes, fresh pool", "fresh pool", "serial"),
             ("in-process: 2 processes, reused pool", "reused pool", "serial"))
     for label, key, reference in rows:
@@ -148,6 +157,59 @@ def workload(root: Path, tag: str, particles: int, t_end: float, points: int,
         print(f"  {label:<40} {best[key]:7.2f} s  speed-up {speedup:4.2f}x{efficiency}")
     print(f"  merged numbers bit-identical (serial, in-process and CLI parallel): {identical}")
     return {"best": best, "identical": identical, "path": path}
+
+
+def timeline(root: Path, path: Path, jobs: int = 2) -> None:
+    """Where a threads-backend sweep spends its time, in this process (kernels loaded): the
+    CPU before the first kernel task starts, how busy the pool's threads are from the first
+    task to the last (gaps between tasks: an empty queue, or a thread waiting for the GIL),
+    and the CPU after the last task (the last point's Dataset, write and analysis, the merge)."""
+    import functools
+    import threading
+
+    from eddyhop.engine import runner
+    from eddyhop.sweeps import run_sweep
+
+    spans, marks = [], {}
+    originals = {name: getattr(runner, name) for name in ("_run_chunk", "_run_check_batch")}
+
+    def timed(function):
+        @functools.wraps(function)
+        def wrapper(*args):
+            started = time.perf_counter()
+            marks.setdefault("first", (started, time.process_time()))
+            try:
+                return function(*args)
+            finally:
+                ended = time.perf_counter()
+                spans.append((threading.current_thread().name, started, ended))
+                marks["last"] = (ended, time.process_time())
+        return wrapper
+
+    for name, function in originals.items():
+        setattr(runner, name, timed(function))
+    try:
+        begin = (time.perf_counter(), time.process_time())
+        run_sweep(path, root / "timeline", backend="threads", jobs=jobs, progress=False)
+        end = (time.perf_counter(), time.process_time())
+    finally:
+        for name, function in originals.items():
+            setattr(runner, name, function)
+    first, last = marks["first"], marks["last"]
+    print(f"\nwhere a -j {jobs} threads sweep spends its time (in this process, kernels loaded; "
+          f"load average {load()})")
+    print(f"  before the first kernel task: {first[0] - begin[0]:.2f} s wall, "
+          f"{first[1] - begin[1]:.2f} s CPU")
+    for thread in sorted({t for t, _, _ in spans}):
+        mine = sorted((a, b) for t, a, b in spans if t == thread)
+        busy = sum(b - a for a, b in mine)
+        gaps = [b[0] - a[1] for a, b in itertools.pairwise(mine)]
+        print(f"  {thread}: {len(mine)} tasks, busy {busy:.2f} s of the "
+              f"{last[0] - first[0]:.2f} s from first to last task; gaps between tasks "
+              f"{sum(gaps):.2f} s in all (largest {max(gaps, default=0.0):.3f} s)")
+    print(f"  after the last kernel task: {end[0] - last[0]:.2f} s wall, "
+          f"{end[1] - last[1]:.2f} s CPU (last point's Dataset, write, analysis; the merge)")
+    print(f"  CPU in all {end[1] - begin[1]:.2f} s")
 
 
 def main():
@@ -160,6 +222,8 @@ def main():
     parser.add_argument("--repeat", type=int, default=2)
     parser.add_argument("--skip-documented", action="store_true",
                         help="only the long workload (and the overhead section)")
+    parser.add_argument("--timeline-only", action="store_true",
+                        help="only where a 4-point -j 2 threads sweep spends its time")
     options = parser.parse_args()
 
     from eddyhop.study.spec import load_study
@@ -176,6 +240,10 @@ def main():
         first = study.sweep.points()[0]
         print(f"kernel compile/load in this process: "
               f"{warm_kernels(study.sweep.point_document(first)):.1f} s")
+        if options.timeline_only:
+            timeline(root, write(root, "timeline.toml", STUDY.format(
+                particles=options.particles, t_end=options.t_end, points=4)))
+            return
         capacity_before = machine_capacity(path)
         results, names = [], []
         if not options.skip_documented:
@@ -187,22 +255,27 @@ def main():
                                     options.points, 1))
             names.append("long")
         capacity_after = machine_capacity(path)
+        timeline(root, write(root, "timeline.toml", STUDY.format(
+            particles=options.particles, t_end=options.t_end, points=4)))
         print(f"\navailable: two plain concurrent processes run {capacity_before:.2f}x "
               f"(before) / {capacity_after:.2f}x (after) as fast as one (2.00x on an idle "
               "2-core machine)")
         for result, name in zip(results, names):
             best = result["best"]
-            cli = best["cli serial"] / best["cli 2 processes"]
-            print(f"  {name}: CLI speed-up {cli:.2f}x "
-                  f"({'meets' if cli >= 1.8 else 'misses'} the >= 1.8x target on 2 cores); "
-                  f"in-process reused pool {best['serial'] / best['reused pool']:.2f}x")
+            cli = best["cli serial"] / best["cli 2 threads"]
+            ceiling = max(capacity_before, capacity_after)
+            print(f"  {name}: CLI -j 2 speed-up {cli:.2f}x, {cli / ceiling:.0%} of the "
+                  f"ceiling ({'meets' if cli >= 1.8 else 'misses'} the >= 1.8x target on 2 "
+                  f"cores); CLI processes {best['cli serial'] / best['cli 2 processes']:.2f}x; "
+                  f"in-process threads {best['serial'] / best['threads']:.2f}x, reused "
+                  f"process pool {best['serial'] / best['reused pool']:.2f}x")
         print(f"  load average now: {load()}")
 
         tiny = write(root, "tiny.toml", STUDY.format(particles=16, t_end=0.05,
                                                      points=options.tiny_points))
         print(f"\nscheduling overhead per point ({options.tiny_points} points of 16 "
               "particles x 5 steps; wall time minus integration time, per point)")
-        for backend, jobs in (("serial", None), ("processes", 2)):
+        for backend, jobs in (("serial", None), ("threads", 2), ("processes", 2)):
             report = run_sweep(tiny, root / f"tiny_{backend}", backend=backend, jobs=jobs,
                                workers=1, progress=False, merge_to=None)
             per_point = (report.seconds - report.warm_seconds) / options.tiny_points

@@ -227,3 +227,20 @@ def test_kill_processes_backend_in_the_window(kill_study, tmp_path):
     entries = json.loads((out / "sweep-manifest.json").read_text())["points"]
     assert sum(e["attempts"] for e in entries) == 6 + sum(
         1 for s in before.values() if s["status"] == "running" and not s["complete"])
+
+
+@pytest.mark.parametrize("stage", ["running", "renamed"])
+def test_kill_threads_backend(kill_study, tmp_path, stage):
+    """The threads backend (the default for local parallel sweeps) keeps the chunks of the
+    next points queued on its pool while it writes one: killed while pt0003 is started, or
+    in pt0002's window, the resume computes exactly the points not complete, bit-identical
+    to an uninterrupted run."""
+    out = tmp_path / "out"
+    point = "pt0003" if stage == "running" else "pt0002"
+    kill_at(kill_study["path"], out, stage, point, "--backend", "threads", "-j", "2")
+    before = folder_state(out)
+    assert before[point]["status"] == "running"
+    assert before[point]["complete"] == (stage == "renamed")
+    report = check_resume(kill_study, out, before, backend="threads", jobs=2)
+    assert report.backend == "threads"
+    assert (point in report.recovered) == (stage == "renamed")

@@ -27,21 +27,92 @@ def serial(tmp_path_factory):
             "folder": folder / "out"}
 
 
-def test_threads_backend_equals_serial_and_restores_warning_filters(serial, tmp_path):
+@pytest.mark.parametrize("jobs", [2, 3])
+def test_threads_backend_equals_serial_and_restores_warning_filters(serial, tmp_path, jobs):
     filters = list(warnings.filters)
-    report = run_sweep(serial["path"], tmp_path / "threads", backend="threads", jobs=2,
+    report = run_sweep(serial["path"], tmp_path / "threads", backend="threads", jobs=jobs,
                        progress=False)
-    assert report.backend == "threads" and report.slots == 2 and report.complete
+    assert report.backend == "threads" and report.slots == jobs and report.complete
     assert report.warm_seconds == 0.0  # no worker processes: no separate warm-up
     assert_same_numbers(merge_sweep(tmp_path / "threads", analyse=False), serial["merged"])
-    assert warnings.filters == filters
-    assert not any(f[2] is StepSizeWarning for f in warnings.filters)
+    # the caller's filters are back (libraries such as xarray add their own while reading
+    # files, in any order), and the pool's own filter is gone
+    assert all(f in warnings.filters for f in filters)
+    assert not any(f[2] is StepSizeWarning for f in warnings.filters if f not in filters)
+    # the merged file, from points analysed as they were written: the same analysis, the
+    # same warnings gathered per point, as the serial sweep's merge
+    from eddyhop.results.io import open_result
+
+    ours, theirs = (open_result(folder / "sweep.nc")
+                    for folder in (tmp_path / "threads", serial["folder"]))
+    assert_same_numbers(ours, theirs)
+    assert ours.attrs["sweep_warnings"] == theirs.attrs["sweep_warnings"]
+
+
+def _studies():
+    """Three small studies: two start regions, the step check on, particles not a whole
+    number of blocks; the middle one blows up (a drift that runs away, see FAILING)."""
+    from eddyhop.study.spec import parse_study
+
+    def study(drift, seed):
+        return parse_study({
+            "title": "plans", "flow": {"family": "drifting_cellular", "drift_x": drift},
+            "noise": {"kappa": 0.1},
+            "start": [{"kind": "uniform", "label": "a"}, {"kind": "centre", "label": "b"}],
+            "run": {"particles": 203, "dt": 0.05 if drift < 1e6 else 0.01,
+                    "t_end": 2.0 if drift < 1e6 else 50.0, "n_times": 5, "seed": seed,
+                    "step_check": True, "step_check_particles": 150, "progress": False}})
+
+    return [study(0.5, 1), study(1e8, 2), study(0.0, 3)]
+
+
+def _same_ensemble(a, b) -> None:
+    import numpy as np
+
+    for x, y in zip(a.starts, b.starts, strict=True):
+        for name in ("batch_counts", "moments", "aged", "tracks", "residence_counts",
+                     "flight_counts", "check_counts", "check_fine", "check_coarse"):
+            assert np.array_equal(getattr(x, name), getattr(y, name), equal_nan=True), name
+        assert x.hops == y.hops
+
+
+@pytest.mark.parametrize("workers, window", [(2, 3), (3, None)])
+def test_chunks_of_several_ensembles_on_one_pool_equal_each_alone(workers, window):
+    """run_plans interleaves the chunks of consecutive ensembles on one ChunkPool (a window
+    of 3 tasks forces a point's fold to wait behind the next point's chunks): every result
+    is bit-identical to that ensemble run alone on one thread, and the ensemble that blows up
+    gives its error without stopping the others."""
+    from eddyhop.engine.runner import (
+        ChunkPool,
+        EnsemblePlan,
+        StepBiasWarning,
+        run_ensemble,
+        run_plans,
+    )
+    from eddyhop.errors import BlowUpError
+
+    studies = _studies()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", StepSizeWarning)
+        warnings.simplefilter("ignore", StepBiasWarning)
+        alone = [run_ensemble(studies[0], workers=1), None, run_ensemble(studies[2], workers=1)]
+        with pytest.raises(BlowUpError) as failure:  # its message names the chunk's particles
+            run_ensemble(studies[1], workers=workers)
+        with ChunkPool(workers) as pool:
+            made = [(i, (lambda s=s: EnsemblePlan(s, workers=workers)))
+                    for i, s in enumerate(studies)]
+            outcomes = list(run_plans(made, pool, window=window))
+    assert [key for key, _ in outcomes] == [0, 1, 2]
+    _same_ensemble(outcomes[0][1], alone[0])
+    _same_ensemble(outcomes[2][1], alone[2])
+    assert isinstance(outcomes[1][1], BlowUpError)
+    assert str(outcomes[1][1]) == str(failure.value)  # the same first failing chunk
 
 
 def test_auto_runs_local_points_on_threads():
     assert make_pool("auto", jobs=2, scheduler=None, n_todo=4).name == "threads"
     assert make_pool("auto", jobs=2, scheduler=None, n_todo=1).name == "serial"
-    assert make_pool("threads", jobs=8, scheduler=None, n_todo=3).slots == 3
+    assert make_pool("threads", jobs=8, scheduler=None, n_todo=3).slots == 8  # chunks
 
 
 def test_a_point_that_fails_on_a_thread_fails_alone(tmp_path):

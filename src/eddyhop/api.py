@@ -31,6 +31,49 @@ def simulate(study: Study, *, workers: int | None = None, chunk: int | None = No
     return ds
 
 
+def simulate_each(studies, *, pool, allow_long: bool = False):
+    """Datasets of several studies, in order, their kernel chunks sharing one thread pool.
+
+    ``studies``: iterable of ``(key, make_study)`` (``make_study()`` returns a ``Study`` or
+    raises); ``pool``: an ``engine.runner.ChunkPool``.  Yields ``(key, Dataset)`` — exactly
+    what ``simulate(study)`` returns, with the same warnings — or ``(key, exception)`` for a
+    study that fails (invalid, too costly, blown up), without stopping the others.  The chunks
+    of the following studies run while the caller handles a yielded Dataset (writes or
+    analyses it); the caller's thread is the only one running Python code of the package.
+    """
+    from .engine.runner import EnsemblePlan, run_plans
+    from .study.cost import study_cost_checked
+
+    keys, made = {}, {}  # by position in ``studies`` (keys need not be hashable)
+
+    def planned():
+        for number, (key, make_study) in enumerate(studies):
+            keys[number] = key
+
+            def make(number=number, make_study=make_study):
+                study = make_study()
+                study_cost_checked(study, allow_long=allow_long, workers=pool.workers)
+                made[number] = study
+                return EnsemblePlan(study, workers=pool.workers, progress=False)
+            yield number, make
+
+    for number, result in run_plans(planned(), pool):
+        key, study = keys.pop(number), made.pop(number, None)
+        if isinstance(result, Exception):
+            yield key, result
+            continue
+        try:
+            # imported here: the first chunks already run while xarray is imported
+            from .results.dataset import build_dataset
+
+            ds = build_dataset(study, result)
+            _warn_step_bias(ds)
+        except Exception as exc:
+            yield key, exc
+            continue
+        yield key, ds
+
+
 def _warn_step_bias(ds) -> None:
     """A :class:`StepBiasWarning` when the measured step-size bias is not shown below the
     statistical error of D_eff (verdict ``biased`` or ``inconclusive``)."""

@@ -29,8 +29,9 @@ from .common import (
 @click.option("--scheduler", default=None, metavar="tcp://HOST:PORT",
               help="Dask scheduler to send points to. [default: $DASK_SCHEDULER_ADDRESS]")
 @click.option("--workers", "-w", type=int, default=None, callback=check_workers,
-              help="Threads per point; -1: every core. [default: run.workers when serial, "
-                   "--jobs with threads, else 1]")
+              help="Threads per point (the threads backend spreads every point over its "
+                   "--jobs threads instead); -1: every core. [default: run.workers when "
+                   "serial, else 1]")
 @click.option("--merged", type=click.Path(dir_okay=False), default=None,
               help="Where to write the merged Dataset. [default: OUT/sweep.nc]")
 @click.option("--no-merge", is_flag=True, help="Do not merge at the end.")

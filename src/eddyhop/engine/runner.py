@@ -174,14 +174,15 @@ def check_plan(step_check_particles: int, particles: int, block: int, batches: i
     return size, (np.arange(n_blocks) * count) // n_blocks
 
 
-def _coarse_sums(ctx, region, offset, x0, y0, n_check, check_of_block, workers, backend,
-                 messages):
-    """Coarse-path (2·dt) sums [C, T, 5] of one start region's subsample, per check batch."""
-    block = ctx.block_size
+def _check_edges(n_check: int, check_of_block, block: int) -> list[int]:
+    """Particle boundaries of the step check's batches (whole blocks; see ``check_plan``)."""
     count = int(check_of_block[-1]) + 1
-    edges = [int(np.searchsorted(check_of_block, c)) * block for c in range(count)] + [n_check]
-    tasks = [(ctx, offset, lo, x0[lo:hi], y0[lo:hi]) for lo, hi in itertools.pairwise(edges)]
-    outs = list(_parallel_map(_run_check_batch, tasks, workers, backend))
+    return [int(np.searchsorted(check_of_block, c)) * block for c in range(count)] + [n_check]
+
+
+def _coarse_sums(ctx, region, offset, outs, edges, messages):
+    """Coarse-path (2·dt) sums [C, T, 5] of one start region's subsample, per check batch,
+    from the outputs ``outs`` of ``_run_check_batch`` (one per check batch, in order)."""
     coarse = np.stack([o[0] for o in outs])
     coarse[:, ctx.schedule.out_steps % 2 == 1, :] = np.nan  # no coarse state at odd steps
     failures = [o[1] for o in outs if o[1][0] >= 0]
@@ -259,18 +260,166 @@ def _chunks(particles: int, chunk: int, block: int):
     return [(first, min(particles, first + size)) for first in range(0, particles, size)]
 
 
-def _parallel_map(function, tasks, workers: int, backend: str):
-    """Ordered results of ``function(*task)``: serial, or joblib threads (the kernel releases
-    the GIL).  Results come back in submission order, which the deterministic fold needs."""
-    if backend == "serial" or workers == 1 or len(tasks) == 1:
-        for task in tasks:
-            yield function(*task)
-        return
-    from joblib import Parallel, delayed
+class ChunkPool:
+    """Kernel tasks on a fixed set of daemon threads (the kernels release the GIL).
 
-    parallel = Parallel(n_jobs=workers, backend="threading", return_as="generator",
-                        pre_dispatch="2*n_jobs")
-    yield from parallel(delayed(function)(*task) for task in tasks)
+    Tasks run in the order they are submitted (one FIFO queue), so a caller that submits the
+    chunks of several ensembles in a fixed order — as ``run_plans`` does for a sweep — keeps
+    every thread busy across ensembles: the chunks of the next one are queued while the
+    previous one is folded and written.  Only kernel calls run here (``_run_chunk``,
+    ``_run_check_batch``): no Python warnings, no I/O, so the caller's thread is the only one
+    running package Python code.  Which thread runs a task never changes a number.
+    """
+
+    def __init__(self, workers: int):
+        import queue
+        import threading
+
+        self.workers = max(1, int(workers))
+        self._tasks = queue.SimpleQueue()
+        self._threads = [threading.Thread(target=self._work, name=f"eddyhop-chunks-{i}",
+                                          daemon=True) for i in range(self.workers)]
+        for thread in self._threads:
+            thread.start()
+
+    def _work(self) -> None:
+        while True:
+            item = self._tasks.get()
+            if item is None:
+                return
+            future, function, args = item
+            if not future.set_running_or_notify_cancel():
+                continue  # cancelled while queued (its ensemble failed or was abandoned)
+            try:
+                future.set_result(function(*args))
+            except BaseException as exc:  # handed to the caller, in order
+                future.set_exception(exc)
+
+    def submit(self, function, args):
+        """A ``concurrent.futures.Future`` of ``function(*args)``."""
+        from concurrent.futures import Future
+
+        future = Future()
+        self._tasks.put((future, function, args))
+        return future
+
+    def close(self) -> None:
+        """Let the threads end once the queued tasks are done (they are daemons anyway)."""
+        for _ in self._threads:
+            self._tasks.put(None)
+        self._threads = []
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+
+def run_plans(plans, pool: ChunkPool, *, window: int | None = None):
+    """Run several ensembles on one ``ChunkPool``; yield ``(key, result)`` in order.
+
+    ``plans`` is an iterable of ``(key, make_plan)``; ``make_plan()`` returns an
+    ``EnsemblePlan`` (or raises).  Tasks are submitted in a fixed order — every task of the
+    first ensemble, then of the next … — keeping up to ``window`` tasks in flight (default
+    16 per thread, at most 64: each holds at most ``CHUNK_OUTPUT_BUDGET`` of sums once run),
+    so that while the caller handles one result (builds, writes, analyses it)
+    the pool already runs the chunks of the following ensembles; ``make_plan`` of a later
+    key may therefore run before the caller receives an earlier result.  Each ensemble's
+    outputs are folded strictly in task order, so every result is bit-identical to
+    ``run_ensemble`` with any worker count.  ``result`` is an ``EnsembleResult``, or the
+    exception the ensemble raised (a blow-up, an invalid study): one failing ensemble never
+    stops the others.  Closing the generator early cancels the queued tasks.
+    """
+    from collections import deque
+
+    window = window or min(16 * pool.workers, 64)
+    source = iter(plans)
+    states = deque()  # ensembles started and not yet yielded, in order
+    feeding = deque()  # those whose tasks are not all submitted yet
+    in_flight = deque()  # (state, future) in submission order
+    exhausted = False
+
+    class State:
+        def __init__(self, key, make_plan):
+            self.key, self.plan, self.error, self.tasks = key, None, None, None
+            try:
+                self.plan = make_plan()
+                self.tasks = self.plan.tasks()
+            except Exception as exc:
+                self.error = exc
+
+    def fail(state, exc) -> None:
+        state.error = exc
+        if state in feeding:
+            feeding.remove(state)
+        for other, future in in_flight:
+            if other is state:
+                future.cancel()
+
+    def top_up() -> None:
+        nonlocal exhausted
+        while len(in_flight) < window:
+            if not feeding:
+                if exhausted:
+                    return
+                try:
+                    key, make_plan = next(source)
+                except StopIteration:
+                    exhausted = True
+                    return
+                state = State(key, make_plan)
+                states.append(state)
+                if state.error is None:
+                    feeding.append(state)
+                continue
+            state = feeding[0]
+            try:
+                function, args = next(state.tasks)
+            except StopIteration:
+                feeding.popleft()
+                continue
+            except Exception as exc:  # e.g. sampling the starts of the next region
+                fail(state, exc)
+                continue
+            in_flight.append((state, pool.submit(function, args)))
+
+    try:
+        top_up()
+        while states:
+            state = states[0]
+            while in_flight and in_flight[0][0] is state:
+                _, future = in_flight.popleft()
+                top_up()  # keep the pool fed before waiting
+                if state.error is not None:
+                    future.cancel()
+                    continue
+                try:
+                    state.plan.fold(future.result())
+                except Exception as exc:
+                    fail(state, exc)
+                if not in_flight or in_flight[0][0] is not state:
+                    top_up()  # the ensemble's next region (more tasks) if it has one
+            if state in feeding:  # tasks still to come (in_flight was full of others)
+                top_up()
+                continue
+            states.popleft()
+            if state.error is None:
+                try:
+                    outcome = state.plan.result()
+                except Exception as exc:
+                    outcome = exc
+            else:
+                outcome = state.error
+            if state.plan is not None:
+                state.plan.close()
+            yield state.key, outcome
+    finally:
+        for _, future in in_flight:
+            future.cancel()
+        for state in states:
+            if state.plan is not None:
+                state.plan.close()
 
 
 def _check_finite_sums(moments, schedule, dt, label, lo, hi):
@@ -323,121 +472,213 @@ def _check_displacement_range(moments, schedule, dt, label, lo, hi, limit):
 
 
 def run_ensemble(study, *, workers: int | None = None, chunk: int | None = None,
-                 backend: str = "threads", progress: bool | None = None) -> EnsembleResult:
+                 backend: str = "threads", progress: bool | None = None,
+                 pool: ChunkPool | None = None) -> EnsembleResult:
     """Integrate every start region of ``study`` and return batch-folded sums.
 
     ``workers``/``chunk`` override the study's run table; results do not depend on either.
+    ``pool``: run the chunks on this ``ChunkPool`` (its thread count replaces ``workers``)
+    instead of threads started for this call.
     """
-    run = study.run
-    workers = run.workers if workers is None else workers
-    if workers < 0:
-        import os
-
-        workers = os.cpu_count() or 1
-    chunk = run.chunk if chunk is None else chunk
-    if workers > 1:
-        # enough chunks to keep every worker busy; chunking never changes the numbers
-        chunk = min(chunk, max(1, -(-run.particles // (4 * workers))))
-    show = run.progress if progress is None else progress
-    schedule = build_schedule(run, study.aging, run.track_samples,
-                              study.velocity_correlation)
-    messages = step_size_warnings(study)
-    for message in messages:
-        warnings.warn(message, StepSizeWarning, stacklevel=2)
-    ctx, residence_edges, flight_edges = _make_context(study, schedule)
-    chunk = min(chunk, _memory_capped_chunk(ctx))
-    family = study.flow.model
-    params = study.flow.params
-    n = run.particles
-    block = ctx.block_size
-    n_blocks = -(-n // block)
-    n_batches = min(run.batches, n_blocks)
-    batch_of_block = (np.arange(n_blocks) * n_batches) // n_blocks
-    block_counts = np.full(n_blocks, block, dtype=np.int64)
-    block_counts[-1] = n - block * (n_blocks - 1)
-    batch_counts = np.bincount(batch_of_block, weights=block_counts, minlength=n_batches)
-    # the step check's subsample: the first n_check particles of every start region (a
-    # study built in code may have fewer particles than its resolved subsample)
-    n_check, check_of_block = 0, np.zeros(0, dtype=np.int64)
-    if run.step_check:
-        n_check, check_of_block = check_plan(run.step_check_particles, n, block, run.batches)
-        if not n_check:
-            messages.append(f"step check skipped: {min(run.step_check_particles, n)} "
-                            f"particles are too few for an error estimate (need at least "
-                            f"{2 * MIN_CHECK_BATCH})")
-            warnings.warn(messages[-1], StepBiasWarning, stacklevel=2)
-    result = EnsembleResult(schedule=schedule, block_size=block, batches=n_batches,
-                            orders=ctx.orders, residence_edges=residence_edges,
-                            flight_edges=flight_edges, warnings=messages,
-                            step_check_particles=n_check)
-    bar = None
-    if show:
-        from tqdm.auto import tqdm
-
-        bar = tqdm(total=n * len(study.starts), unit="particle", unit_scale=True,
-                   desc="integrating", leave=False, dynamic_ncols=True)
+    if pool is not None:
+        workers = pool.workers
+    plan = EnsemblePlan(study, workers=workers, chunk=chunk, progress=progress)
+    if pool is None and (backend == "serial" or plan.workers == 1):
+        try:
+            for function, args in plan.tasks():
+                plan.fold(function(*args))
+            return plan.result()
+        finally:
+            plan.close()
+    owned = pool is None
+    pool = pool or ChunkPool(plan.workers)
     try:
-        for s_index, region in enumerate(study.starts):
-            x0, y0 = sample_starts(region, family, params, n, run.seed, s_index)
-            offset = s_index * STREAM_STRIDE
-            tasks = [(ctx, offset, lo, x0[lo:hi], y0[lo:hi]) for lo, hi in _chunks(n, chunk,
-                                                                                    block)]
-            sums = None
-            check_fine = np.zeros((int(check_of_block[-1]) + 1 if n_check else 0,
-                                   schedule.out_steps.size, len(CHECK_COLUMNS)))
-            tracks = []
-            hops = 0.0
-            for (lo, hi), out in zip(_chunks(n, chunk, block),
-                                     _parallel_map(_run_chunk, tasks, workers, backend)):
-                (moments, aged, chunk_tracks, residence, flights, chunk_hops, vcorr,
-                 status) = out
-                if status[0] >= 0:
-                    raise BlowUpError(
-                        f"non-finite or runaway position (|x| > 1e150) for particle "
-                        f"{int(status[0]) - offset} of start '{region.label}' at step "
-                        f"{int(status[1])} (t = {int(status[1]) * run.dt:g}) with "
-                        f"run.dt = {run.dt:g}; reduce run.dt or check the flow parameters")
-                _check_finite_sums(moments, schedule, run.dt, region.label, lo, hi)
-                _check_displacement_range(moments, schedule, run.dt, region.label, lo, hi,
-                                          _displacement_phase_limit(study))
-                if sums is None:
-                    sums = [np.zeros((n_batches, *moments.shape[1:])),
-                            np.zeros((n_batches, *aged.shape[1:])),
-                            np.zeros(residence.shape[1]), np.zeros(flights.shape[1]),
-                            np.zeros((n_batches, *vcorr.shape[1:]))]
-                first_block = lo // block
-                for b in range(moments.shape[0]):
-                    target = batch_of_block[first_block + b]
-                    sums[0][target] += moments[b]
-                    sums[1][target] += aged[b]
-                    if vcorr.size:
-                        sums[4][target] += vcorr[b]
-                    if first_block + b < check_of_block.size:  # the subsample's fine path
-                        check_fine[check_of_block[first_block + b]] += \
-                            moments[b][:, _CHECK_IN_MOMENTS]
-                    sums[2] += residence[b]
-                    sums[3] += flights[b]
-                    hops += chunk_hops[b]
-                if chunk_tracks.shape[0]:
-                    tracks.append(chunk_tracks)
-                if bar is not None:
-                    bar.update(hi - lo)
-            check = (None, None, None)
-            if n_check:
-                counts, coarse = _coarse_sums(ctx, region, offset, x0, y0, n_check,
-                                              check_of_block, workers, backend, messages)
-                check = (counts, check_fine, coarse)
-            tracked = (np.concatenate(tracks) if tracks
-                       else np.zeros((0, schedule.track_steps.size, 2)))
-            result.starts.append(StartSums(
-                label=region.label, kind=region.kind,
-                area_fraction=area_fraction(region, family, params), particles=n,
-                batch_counts=batch_counts.astype(float), moments=sums[0], aged=sums[1],
-                tracks=tracked, track_starts=np.stack([x0[:run.tracked], y0[:run.tracked]], 1),
-                residence_counts=sums[2], flight_counts=sums[3], hops=hops,
-                check_counts=check[0], check_fine=check[1], check_coarse=check[2],
-                velocity=sums[4] if schedule.vc_ref_steps.size else None))
+        # two tasks per thread in flight: the fold keeps up, and memory stays that of a few
+        # chunks' sums
+        [(_, outcome)] = run_plans([(None, lambda: plan)], pool, window=2 * pool.workers)
     finally:
-        if bar is not None:
-            bar.close()
-    return result
+        if owned:
+            pool.close()
+    if isinstance(outcome, BaseException):
+        raise outcome
+    return outcome
+
+
+class EnsemblePlan:
+    """One ensemble as an ordered list of kernel tasks and the fold of their outputs.
+
+    ``tasks()`` yields ``(function, args)``: for each start region in turn (its starts are
+    drawn when the generator reaches it, so positions exist for one region at a time), the
+    chunks of whole blocks, then the step check's coarse batches.  ``fold(output)`` takes the
+    outputs in exactly that order — it raises ``BlowUpError`` at the first chunk that blew up
+    — and ``result()`` returns the ``EnsembleResult``.  Because block sums are folded into
+    batch sums in block order whatever ran them, any executor (this thread, ``ChunkPool``,
+    several ensembles interleaved by ``run_plans``) gives bit-identical numbers.
+    """
+
+    def __init__(self, study, *, workers: int | None = None, chunk: int | None = None,
+                 progress: bool | None = None):
+        run = study.run
+        workers = run.workers if workers is None else workers
+        if workers < 0:
+            import os
+
+            workers = os.cpu_count() or 1
+        chunk = run.chunk if chunk is None else chunk
+        if workers > 1:
+            # enough chunks to keep every worker busy; chunking never changes the numbers
+            chunk = min(chunk, max(1, -(-run.particles // (4 * workers))))
+        self.study, self.workers = study, workers
+        show = run.progress if progress is None else progress
+        schedule = build_schedule(run, study.aging, run.track_samples,
+                                  study.velocity_correlation)
+        messages = step_size_warnings(study)
+        for message in messages:
+            warnings.warn(message, StepSizeWarning, stacklevel=3)
+        ctx, residence_edges, flight_edges = _make_context(study, schedule)
+        self.chunk = min(chunk, _memory_capped_chunk(ctx))
+        self.ctx, self.schedule, self.messages = ctx, schedule, messages
+        n = run.particles
+        block = ctx.block_size
+        n_blocks = -(-n // block)
+        self.n_batches = min(run.batches, n_blocks)
+        self.batch_of_block = (np.arange(n_blocks) * self.n_batches) // n_blocks
+        block_counts = np.full(n_blocks, block, dtype=np.int64)
+        block_counts[-1] = n - block * (n_blocks - 1)
+        self.batch_counts = np.bincount(self.batch_of_block, weights=block_counts,
+                                        minlength=self.n_batches)
+        # the step check's subsample: the first n_check particles of every start region (a
+        # study built in code may have fewer particles than its resolved subsample)
+        self.n_check, self.check_of_block = 0, np.zeros(0, dtype=np.int64)
+        if run.step_check:
+            self.n_check, self.check_of_block = check_plan(run.step_check_particles, n, block,
+                                                           run.batches)
+            if not self.n_check:
+                messages.append(f"step check skipped: {min(run.step_check_particles, n)} "
+                                f"particles are too few for an error estimate (need at least "
+                                f"{2 * MIN_CHECK_BATCH})")
+                warnings.warn(messages[-1], StepBiasWarning, stacklevel=3)
+        self.phase_limit = _displacement_phase_limit(study)
+        self.ensemble = EnsembleResult(schedule=schedule, block_size=block,
+                                       batches=self.n_batches, orders=ctx.orders,
+                                       residence_edges=residence_edges,
+                                       flight_edges=flight_edges, warnings=messages,
+                                       step_check_particles=self.n_check)
+        self._expected = []  # what the next outputs are, in task order
+        self._region = None
+        self.bar = None
+        if show:
+            from tqdm.auto import tqdm
+
+            self.bar = tqdm(total=n * len(study.starts), unit="particle", unit_scale=True,
+                            desc="integrating", leave=False, dynamic_ncols=True)
+
+    def tasks(self):
+        """``(function, args)`` of every kernel call, in fold order (a generator)."""
+        study, ctx, n = self.study, self.ctx, self.study.run.particles
+        family, params = study.flow.model, study.flow.params
+        for s_index, region in enumerate(study.starts):
+            x0, y0 = sample_starts(region, family, params, n, study.run.seed, s_index)
+            offset = s_index * STREAM_STRIDE
+            chunks = _chunks(n, self.chunk, ctx.block_size)
+            edges = (_check_edges(self.n_check, self.check_of_block, ctx.block_size)
+                     if self.n_check else [])
+            self._expected.append(("region", region, offset, x0, y0, edges))
+            self._expected += [("chunk", lo, hi) for lo, hi in chunks]
+            self._expected += [("check",)] * (len(edges) - 1 if edges else 0)
+            self._expected.append(("end",))
+            for lo, hi in chunks:
+                yield _run_chunk, (ctx, offset, lo, x0[lo:hi], y0[lo:hi])
+            for lo, hi in itertools.pairwise(edges):
+                yield _run_check_batch, (ctx, offset, lo, x0[lo:hi], y0[lo:hi])
+
+    def fold(self, output) -> None:
+        """Fold the output of the next task (in the order of ``tasks()``)."""
+        item = self._expected.pop(0)
+        if item[0] == "region":  # the first output of a start region
+            _, region, offset, x0, y0, edges = item
+            self._region = {
+                "region": region, "offset": offset, "x0": x0, "y0": y0, "sums": None,
+                "tracks": [], "hops": 0.0, "checks": [], "check_edges": edges,
+                "check_fine": np.zeros((len(edges) - 1 if edges else 0,
+                                        self.schedule.out_steps.size, len(CHECK_COLUMNS)))}
+            item = self._expected.pop(0)
+        r = self._region
+        if item[0] == "chunk":
+            self._fold_chunk(r, item[1], item[2], output)
+        else:  # a step-check batch
+            r["checks"].append(output)
+        if self._expected[0][0] == "end":
+            self._expected.pop(0)
+            self._finish_region(r)
+
+    def _fold_chunk(self, r, lo, hi, out) -> None:
+        run, schedule, block = self.study.run, self.schedule, self.ctx.block_size
+        region, offset = r["region"], r["offset"]
+        (moments, aged, chunk_tracks, residence, flights, chunk_hops, vcorr, status) = out
+        if status[0] >= 0:
+            raise BlowUpError(
+                f"non-finite or runaway position (|x| > 1e150) for particle "
+                f"{int(status[0]) - offset} of start '{region.label}' at step "
+                f"{int(status[1])} (t = {int(status[1]) * run.dt:g}) with "
+                f"run.dt = {run.dt:g}; reduce run.dt or check the flow parameters")
+        _check_finite_sums(moments, schedule, run.dt, region.label, lo, hi)
+        _check_displacement_range(moments, schedule, run.dt, region.label, lo, hi,
+                                  self.phase_limit)
+        n_batches, batch_of_block = self.n_batches, self.batch_of_block
+        check_of_block, check_fine = self.check_of_block, r["check_fine"]
+        if r["sums"] is None:
+            r["sums"] = [np.zeros((n_batches, *moments.shape[1:])),
+                         np.zeros((n_batches, *aged.shape[1:])),
+                         np.zeros(residence.shape[1]), np.zeros(flights.shape[1]),
+                         np.zeros((n_batches, *vcorr.shape[1:]))]
+        sums = r["sums"]
+        first_block = lo // block
+        for b in range(moments.shape[0]):
+            target = batch_of_block[first_block + b]
+            sums[0][target] += moments[b]
+            sums[1][target] += aged[b]
+            if vcorr.size:
+                sums[4][target] += vcorr[b]
+            if first_block + b < check_of_block.size:  # the subsample's fine path
+                check_fine[check_of_block[first_block + b]] += \
+                    moments[b][:, _CHECK_IN_MOMENTS]
+            sums[2] += residence[b]
+            sums[3] += flights[b]
+            r["hops"] += chunk_hops[b]
+        if chunk_tracks.shape[0]:
+            r["tracks"].append(chunk_tracks)
+        if self.bar is not None:
+            self.bar.update(hi - lo)
+
+    def _finish_region(self, r) -> None:
+        study, run, schedule = self.study, self.study.run, self.schedule
+        region, x0, y0, sums = r["region"], r["x0"], r["y0"], r["sums"]
+        family, params = study.flow.model, study.flow.params
+        check = (None, None, None)
+        if self.n_check:
+            counts, coarse = _coarse_sums(self.ctx, region, r["offset"], r["checks"],
+                                          r["check_edges"], self.messages)
+            check = (counts, r["check_fine"], coarse)
+        tracked = (np.concatenate(r["tracks"]) if r["tracks"]
+                   else np.zeros((0, schedule.track_steps.size, 2)))
+        self.ensemble.starts.append(StartSums(
+            label=region.label, kind=region.kind,
+            area_fraction=area_fraction(region, family, params), particles=run.particles,
+            batch_counts=self.batch_counts.astype(float), moments=sums[0], aged=sums[1],
+            tracks=tracked, track_starts=np.stack([x0[:run.tracked], y0[:run.tracked]], 1),
+            residence_counts=sums[2], flight_counts=sums[3], hops=r["hops"],
+            check_counts=check[0], check_fine=check[1], check_coarse=check[2],
+            velocity=sums[4] if schedule.vc_ref_steps.size else None))
+        self._region = None
+
+    def result(self) -> EnsembleResult:
+        """The ensemble, once every task's output has been folded."""
+        if len(self.ensemble.starts) != len(self.study.starts):
+            raise RuntimeError("EnsemblePlan.result() before every task was folded")
+        return self.ensemble
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.close()
+            self.bar = None

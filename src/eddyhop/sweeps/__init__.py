@@ -18,12 +18,26 @@ reference, ``eddyhop.api``); never presentation or the CLI.
 
 from __future__ import annotations
 
+import importlib
+
 from ..study.sweep_table import Axis, SweepPoint, SweepSpec, sweepable
 from ..study.sweep_table import parse_sweep as _parse_sweep
-from .execute import SweepReport, compute_point, run_sweep, warm_kernels
-from .manifest import Manifest
-from .merge import merge_sweep
-from .scaling import PowerLaw, fit_power_law, scaling_summary, time_scales
+
+# Names of the submodules, imported on first use: `eddyhop sweep` reaches its first kernel
+# chunk without importing xarray and the analysis package (≈ 0.4 s of CPU), which it then
+# imports while the chunks run; a resumed complete sweep never imports them.
+_LAZY = {"SweepReport": "execute", "compute_point": "execute", "run_sweep": "execute",
+         "warm_kernels": "execute", "Manifest": "manifest", "merge_sweep": "merge",
+         "PowerLaw": "scaling", "fit_power_law": "scaling", "scaling_summary": "scaling",
+         "time_scales": "scaling"}
+
+
+def __getattr__(name: str):
+    if name in _LAZY:
+        value = getattr(importlib.import_module(f".{_LAZY[name]}", __name__), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
 def parse_sweep(table: dict, document: dict, source_path: str = "", *, parse_study=None):

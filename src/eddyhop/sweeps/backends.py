@@ -337,5 +337,5 @@ def make_pool(backend: str, *, jobs: int | None, scheduler: str | None, n_todo: 
     if backend == "threads":
         from .thread_pool import ThreadPool
 
-        return ThreadPool(min(jobs, max(n_todo, 1)))
+        return ThreadPool(jobs)  # the chunks of even one point use every thread
     return SerialPool()

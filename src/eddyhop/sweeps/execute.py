@@ -158,13 +158,14 @@ def run_sweep(study, out, *, backend: str = "auto", jobs: int | None = None,
               merge_to="default", timeout: float = 10.0, summarize=None) -> SweepReport:
     """Run (or resume) every point of ``study``'s sweep into folder ``out``.
 
-    ``backend``: ``serial``, ``threads`` (``jobs`` points at once on threads of this process,
-    each split over ``jobs`` chunk threads; ``None`` or -1: one per core), ``processes``
-    (local processes through joblib/loky, ``jobs`` of them), ``dask`` (cluster at ``scheduler`` or
-    ``$DASK_SCHEDULER_ADDRESS``) or ``auto``.  ``workers`` is the number of threads per point
-    (-1: every core; default: the study's ``run.workers`` for serial runs, ``jobs`` on
-    threads, 1 in worker processes or on Dask).  Counts of 0 or below -1 are refused, as for
-    ``run.workers``.
+    ``backend``: ``serial``, ``threads`` (one pool of ``jobs`` threads of this process for the
+    whole sweep, fed with the chunks of every point in point order; ``None`` or -1: one per
+    core), ``processes`` (local processes through joblib/loky, ``jobs`` of them), ``dask``
+    (cluster at ``scheduler`` or ``$DASK_SCHEDULER_ADDRESS``) or ``auto``.  ``workers`` is
+    the number of threads per point of the serial, processes and Dask backends (-1: every
+    core; default: the study's ``run.workers`` for serial runs, 1 in worker processes or on
+    Dask); the threads backend spreads every point over its ``jobs`` threads instead.
+    Counts of 0 or below -1 are refused, as for ``run.workers``.
     ``merge_to``: path of the merged Dataset, ``"default"`` for ``out/sweep.nc``, ``None`` for
     no merge.  ``timeout`` (s) bounds the wait for a Dask scheduler and its first worker (one
     deadline for all of it).  None of these options changes any number.
@@ -204,6 +205,7 @@ def run_sweep(study, out, *, backend: str = "auto", jobs: int | None = None,
         report.failed = {p.id: manifest.entry(p.id)["error"] for p in points
                          if p.id not in todo and manifest.entry(p.id)["status"] == "failed"}
         queue = [p for p in points if p.id in todo]
+        prepared = None
         if queue:
             from ..engine.runner import step_size_warnings
 
@@ -220,10 +222,11 @@ def run_sweep(study, out, *, backend: str = "auto", jobs: int | None = None,
                                                        once=pool.name == "processes")
                 threads = workers if workers is not None else (
                     study.run.workers if pool.name == "serial" else 1)
-                if hasattr(pool, "point_threads"):  # threads backend: points split over slots
-                    threads = pool.point_threads(workers)
+                # each point is analysed for the merge as soon as it is written, while the
+                # other points compute (its file is read back, as merge_sweep would)
+                prepared = {} if merge_to is not None else None
                 _dispatch(pool, queue, spec, study, manifest, report, threads, show,
-                          step_size_warnings)
+                          step_size_warnings, prepared)
             finally:
                 pool.close()
         if merge_to is not None and manifest.counts()["done"]:
@@ -241,7 +244,7 @@ def run_sweep(study, out, *, backend: str = "auto", jobs: int | None = None,
                 from ..results.io import write_netcdf
                 from .merge import merge_sweep
 
-                merged = merge_sweep(directory)
+                merged = merge_sweep(directory, prepared=prepared)
                 write_netcdf(merged, target)
                 report.summary = list(summarize(merged)) if summarize is not None else []
                 record_merge(manifest, target, report.summary if summarize else None)
@@ -288,8 +291,12 @@ def _write_point(ds, point, manifest, seconds: float, messages: list) -> Path:
     return path
 
 
-def _dispatch(pool, queue, spec, study, manifest, report, threads, show, step_warnings):
-    """Keep ``pool.slots`` points running; record each outcome as it arrives."""
+def _dispatch(pool, queue, spec, study, manifest, report, threads, show, step_warnings,
+              prepared=None):
+    """Run the points of ``queue`` on ``pool``; record each outcome as it arrives.
+
+    ``prepared``: a dict to fill with each written point's analysed Dataset for the merge
+    (``merge.prepare_point``), or ``None``."""
     waiting = list(queue)
     running = {}
 
@@ -313,37 +320,55 @@ def _dispatch(pool, queue, spec, study, manifest, report, threads, show, step_wa
         if bar is not None:
             bar.set_postfix_str(state(), refresh=True)
 
+    def started(point) -> None:
+        waiting.remove(point)
+        manifest.mark_running(point.id)
+        manifest.save()
+        _test_pause("running", point.id)
+        running[point.id] = point
+        show_state()
+
+    def record(point, outcome) -> None:
+        running.pop(point.id)
+        if outcome["ok"]:
+            messages = step_warnings(spec.point_study(point))
+            _write_point(outcome["dataset"], point, manifest, outcome["seconds"], messages)
+            report.computed.append(point.id)
+            report.point_seconds.append(outcome["seconds"])
+            report.failed.pop(point.id, None)
+        else:
+            manifest.mark_failed(point.id, outcome["error"], outcome["seconds"])
+            report.failed[point.id] = outcome["error"]
+            if bar is not None:
+                bar.write(f"point {point.id} ({point.describe(spec.axes)}) failed: "
+                          f"{outcome['error']}", file=sys.stderr)  # beside the bar
+        manifest.save()
+        if bar is not None:
+            bar.update(1)
+        show_state()
+        if outcome["ok"] and prepared is not None:
+            from .merge import prepare_point
+
+            try:
+                prepared[point.id] = prepare_point(manifest, point.id)
+            except Exception:  # only a head start: merge_sweep reads it again and reports
+                pass
+
+    def payload(point) -> dict:
+        return {"document": spec.point_document(point), "source_text": study.source_text,
+                "source_path": study.source_path, "workers": threads}
+
     try:
+        if getattr(pool, "chunked", False):
+            _run_chunked(pool, queue, payload, started, record)
+            return
         while waiting or running:
             while waiting and len(running) < pool.slots:
-                point = waiting.pop(0)
-                document = spec.point_document(point)
-                payload = {"document": document, "source_text": study.source_text,
-                           "source_path": study.source_path, "workers": threads}
-                manifest.mark_running(point.id)
-                manifest.save()
-                _test_pause("running", point.id)
-                running[point.id] = point
-                pool.submit((point.index, point.id), compute_point, payload)
-                show_state()
+                point = waiting[0]
+                started(point)
+                pool.submit((point.index, point.id), compute_point, payload(point))
             (_, point_id), outcome = pool.next_done()
-            point = running.pop(point_id)
-            if outcome["ok"]:
-                messages = step_warnings(spec.point_study(point))
-                _write_point(outcome["dataset"], point, manifest, outcome["seconds"], messages)
-                report.computed.append(point.id)
-                report.point_seconds.append(outcome["seconds"])
-                report.failed.pop(point.id, None)
-            else:
-                manifest.mark_failed(point.id, outcome["error"], outcome["seconds"])
-                report.failed[point.id] = outcome["error"]
-                if bar is not None:
-                    bar.write(f"point {point.id} ({point.describe(spec.axes)}) failed: "
-                              f"{outcome['error']}", file=sys.stderr)  # beside the bar
-            manifest.save()
-            if bar is not None:
-                bar.update(1)
-            show_state()
+            record(running[point_id], outcome)
     except BaseException:
         # interrupted (Ctrl-C, an I/O error): running points go back to pending
         pool.cancel()
@@ -355,3 +380,32 @@ def _dispatch(pool, queue, spec, study, manifest, report, threads, show, step_wa
     finally:
         if bar is not None:
             bar.close()
+
+
+def _run_chunked(pool, queue, payload, started, record) -> None:
+    """The threads backend: every point's chunks on the pool's threads, in point order
+    (``api.simulate_each``); outcomes are recorded here, in point order, while the threads
+    already compute the following points."""
+    from ..api import simulate_each
+    from ..study.spec import parse_study
+
+    clock = {}
+
+    def studies():
+        for point in queue:
+            def make(point=point):
+                started(point)
+                clock[point.id] = time.perf_counter()
+                data = payload(point)
+                return parse_study(data["document"], source_text=data["source_text"],
+                                   source_path=data["source_path"])
+            yield point, make
+
+    for point, result in simulate_each(studies(), pool=pool.chunks, allow_long=True):
+        seconds = time.perf_counter() - clock.pop(point.id)
+        if isinstance(result, Exception):
+            outcome = {"ok": False, "error": f"{type(result).__name__}: {result}",
+                       "seconds": seconds}
+        else:
+            outcome = {"ok": True, "dataset": result, "seconds": seconds}
+        record(point, outcome)

@@ -127,14 +127,28 @@ def _nest(items: list, shape: list) -> list:
     return [_nest(items[i * size:(i + 1) * size], shape[1:]) for i in range(shape[0])]
 
 
+def prepare_point(manifest, point_id: str, *, analyse: bool = True) -> tuple:
+    """A written point's file read back and analysed, as ``merge_sweep`` would (its sha256
+    checked), for ``merge_sweep(prepared=...)``: ``(sha256, Dataset, notes)``.  The sweep
+    calls it for each point as soon as the point is written, so that the analysis of one
+    point overlaps the computation of the others instead of all of it waiting for the end."""
+    entry = manifest.entry(point_id)
+    function = analysis_function() if analyse else None
+    ds, notes = _load_point(manifest, entry, function, verify=True)
+    return entry["sha256"], function is not None, ds, notes
+
+
 def merge_sweep(directory, *, analyse: bool = True, verify: bool = True, scaling: bool = True,
-                peclet_range=None):
+                peclet_range=None, prepared: dict | None = None):
     """One Dataset from the points of sweep folder ``directory`` (see the module docstring).
 
     ``analyse``: apply ``eddyhop.analysis.analyse`` to each point when available.  ``verify``:
     check every point file against its manifest checksum (a mismatch is an error).
     ``scaling``: for a sweep over ``noise.peclet``, add the variables of
     ``scaling.scaling_summary`` (fits restricted to ``peclet_range = (low, high)`` if given).
+    ``prepared``: point id → ``prepare_point(...)`` of points already read and analysed; one
+    is used only if its checksum is the manifest's (and the file's, with ``verify``) and it
+    was analysed as asked, so the result is the same as without it.
     """
     import xarray as xr
 
@@ -149,17 +163,27 @@ def merge_sweep(directory, *, analyse: bool = True, verify: bool = True, scaling
     function = analysis_function() if analyse else None
     entries = sorted(manifest.points, key=lambda e: e["index"])
     loaded, notes = {}, []
+    prepared = prepared or {}
     for entry in entries:
-        if entry["status"] == "done":
+        if entry["status"] != "done":
+            continue
+        ready = prepared.get(entry["id"])
+        if (ready is not None and ready[0] == entry["sha256"]
+                and ready[1] == (function is not None)
+                and (not verify or sha256_file(manifest.directory / entry["file"])
+                     == entry["sha256"])):
+            loaded[entry["id"]], point_notes = ready[2], ready[3]
+        else:
             loaded[entry["id"]], point_notes = _load_point(manifest, entry, function, verify)
-            notes += point_notes
+        notes += point_notes
     if not loaded:
         counts = manifest.counts()
         raise EddyhopError(f"no point of the sweep in {str(manifest.directory)!r} has completed "
                            f"({counts['failed']} failed, {counts['pending'] + counts['running']} "
                            "not computed); nothing to merge")
     template = next(iter(loaded.values()))
-    blank = _blank(template)
+    # NaN stand-in for points not computed (built only when there is one: it copies a point)
+    blank = _blank(template) if len(loaded) < len(entries) else None
     dims = [a["dim"] for a in axes] if combine == "product" else ["point"]
 
     def placed(entry):
