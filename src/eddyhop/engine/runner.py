@@ -35,6 +35,9 @@ MAX_BLOCK = 256
 # Random streams of different start regions are separated by this particle-index offset.
 STREAM_STRIDE = 1 << 40
 
+# progress-bar label while the kernels are loaded or compiled (before the first chunk)
+KERNELS_PENDING = "loading or compiling kernels (compiled once per flow family, scheme, noise)"
+
 
 class StepSizeWarning(UserWarning):
     """dt is large against a time scale of the flow or the noise."""
@@ -570,8 +573,11 @@ class EnsemblePlan:
         if show:
             from tqdm.auto import tqdm
 
+            # until the first chunk returns the kernels are being loaded from the cache or,
+            # on the first run of this flow family, scheme and noise model, compiled (tens of
+            # seconds): say so instead of a frozen "integrating 0 %"
             self.bar = tqdm(total=n * len(study.starts), unit="particle", unit_scale=True,
-                            desc="integrating", leave=False, dynamic_ncols=True)
+                            desc=KERNELS_PENDING, leave=False, dynamic_ncols=True)
 
     def tasks(self):
         """``(function, args)`` of every kernel call, in fold order (a generator)."""
@@ -649,6 +655,8 @@ class EnsemblePlan:
         if chunk_tracks.shape[0]:
             r["tracks"].append(chunk_tracks)
         if self.bar is not None:
+            if self.bar.desc != "integrating":
+                self.bar.set_description_str("integrating", refresh=False)
             self.bar.update(hi - lo)
 
     def _finish_region(self, r) -> None:
