@@ -65,10 +65,10 @@ FIRST_TICK = r"""
 import time
 t0 = time.perf_counter()
 import dataclasses, json
-import eddyhop.runner as runner
+import eddyhop.engine.runner as runner
 from eddyhop.api import simulate
 from eddyhop.cli.demo import demo_text
-from eddyhop.spec import parse_study_text
+from eddyhop.study.spec import parse_study_text
 original = runner._run_chunk
 tick = []
 def timed(*args):

@@ -19,7 +19,6 @@ import numpy as np
 
 from ..errors import BlowUpError
 from ..flows.compiled import CompiledCode
-from ..flows.compiled import velocity as _velocity  # noqa: F401  (compiled with the kernel)
 from ..starts import area_fraction, sample_starts
 from .integrators import SCHEME_CODES
 from .kernel import AGED_COLUMNS, MOMENT_COLUMNS, N_BASE, run_particles
