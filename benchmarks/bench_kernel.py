@@ -14,6 +14,11 @@ Euler–Maruyama step of the cellular flow ψ = (U/k) sin kx sin ky, U = k = 1, 
 * ``two raw threads``: the kernel on two halves of the ensemble in two plain threads, to separate
   the machine's scaling from the runner's.
 * per-step cost of every integrator relative to Euler–Maruyama (kernel, one thread).
+* the Euler–Maruyama step split into its parts (CPU time, same N, steps and tiles as the
+  kernel): ``normals`` (``rng.fill_normals``, one Philox block → 2 normals per particle-step),
+  ``flow`` (``integrators.tile_velocity`` of the cellular flow) and ``rest`` (the raw kernel
+  minus both: the update, the blow-up test, the step loop, the output times), and the distance
+  of the whole to the ≈ 5 ns per particle-step instruction-issue limit the issue quotes.
 """
 
 from __future__ import annotations
@@ -27,6 +32,7 @@ from common import best_times, cellular_study, machine_note, markdown_table
 
 import eddyhop
 from eddyhop.engine import runner
+from eddyhop.engine.kernel import TILE
 from eddyhop.engine.schedule import build_schedule
 from eddyhop.starts import sample_starts
 
@@ -72,6 +78,73 @@ def _two_raw_threads(study):
     return run_one, run
 
 
+ISSUE_LIMIT_NS = 5.0  # instruction-issue limit per particle-step quoted by issue 18
+
+
+def step_parts(study):
+    """Callables that repeat the kernel's random-number and flow work of an Euler–Maruyama
+    ``study`` alone, over the same particles, steps and tiles of ``kernel.TILE``:
+    ``{"normals": ..., "flow": ...}`` (each compiled on first use; call once before timing)."""
+    import numba
+
+    from eddyhop.engine.integrators import tile_velocity
+    from eddyhop.engine.rng import fill_normals, split_seed
+    from eddyhop.flows.compiled import CompiledCode
+
+    @numba.njit
+    def normals(k0, k1, n, steps, words, z):
+        for lo in range(0, n, TILE):
+            m = min(TILE, n - lo)
+            for step in range(steps):
+                fill_normals(k0, k1, lo, m, step, 1, words, z)
+
+    @numba.njit
+    def flow(fcode, fp, x0, y0, steps, dt, xs, ys, us, vs):
+        n = x0.size
+        for lo in range(0, n, TILE):
+            m = min(TILE, n - lo)
+            for g in range(m):
+                xs[g] = x0[lo + g]
+                ys[g] = y0[lo + g]
+            for step in range(steps):
+                tile_velocity(fcode, fp, xs, ys, step * dt, us, vs, m)
+                for g in range(m):  # move along a little, as the kernel's positions do
+                    xs[g] += dt * us[g]
+                    ys[g] += dt * vs[g]
+
+    n = study.run.particles
+    steps = round(study.run.t_end / study.run.dt)
+    k0, k1 = split_seed(study.run.seed)
+    words = np.empty((4, TILE), dtype=np.uint64)
+    z = np.empty((4, TILE))
+    family = study.flow.model
+    fcode = CompiledCode(family.code)
+    fp = family.pack(study.flow.params)
+    x0, y0 = sample_starts(study.starts[0], family, study.flow.params, n, study.run.seed, 0)
+    scratch = [np.empty(TILE) for _ in range(4)]
+    return {
+        "normals": lambda: normals(k0, k1, n, steps, words, z),
+        "flow": lambda: flow(fcode, fp, x0, y0, steps, study.run.dt, *scratch),
+    }
+
+
+def parts_table(times, work, kernel_name="raw kernel, 1 thread") -> str:
+    """The step split into normals / flow / rest (CPU ns per particle-step) and the distance
+    of the kernel to the issue limit."""
+    total = times[kernel_name][1] / work * 1e9
+    normals = times["normals"][1] / work * 1e9
+    flow = times["flow"][1] / work * 1e9
+    rows = [["normals (rng.fill_normals)", normals, normals / total],
+            ["flow (integrators.tile_velocity, cellular)", flow, flow / total],
+            ["rest (update, tests, step loop, outputs)", total - normals - flow,
+             (total - normals - flow) / total],
+            [f"{kernel_name} (all)", total, 1.0],
+            [f"distance to the ≈ {ISSUE_LIMIT_NS:g} ns issue limit", total / ISSUE_LIMIT_NS,
+             "×"]]
+    return markdown_table(["Euler–Maruyama step, parts (CPU time)", "ns per particle-step",
+                           "share"], rows)
+
+
 def measure(particles, steps, repeats):
     schemes = ("euler_maruyama", "milstein", "strang_rk2", "rk4")
     studies = {scheme: cellular_study(particles, steps, integrator=scheme) for scheme in schemes}
@@ -90,6 +163,10 @@ def measure(particles, steps, repeats):
         "raw kernel, 1 thread": raw_one,
         "raw kernel, 2 raw threads": raw_two,
     }
+    parts = step_parts(em)
+    for function in parts.values():  # compile before timing
+        function()
+    functions.update(parts)
     for scheme in schemes[1:]:
         functions[f"kernel {scheme}, 1 thread"] = (
             lambda s=studies[scheme]: runner.run_ensemble(s, workers=1))
@@ -143,7 +220,8 @@ def report(times, work) -> str:
     note = ("CPU-time efficiency = CPU time of one thread / total CPU time of two threads "
             "(1 = no overhead from threading; the wall speed-up can reach 2 × efficiency only "
             "when two cores are free). " + machine_note() + ".")
-    return "\n\n".join([table, scaling, schemes, ratios, note])
+    parts = parts_table(times, work)
+    return "\n\n".join([table, parts, scaling, schemes, ratios, note])
 
 
 def main(argv=None):
