@@ -38,7 +38,24 @@ def study_factory():
 
 
 # Reliability suite counters (tests/test_reliability.py): suite → tried / held / accepted.
+# Under pytest-xdist each worker counts its own; the workers hand their counts to the
+# controlling process (``workeroutput``), which adds them up and prints the summary.
 RELIABILITY: dict[str, dict[str, int]] = {}
+
+
+def pytest_sessionfinish(session):
+    workeroutput = getattr(session.config, "workeroutput", None)
+    if workeroutput is not None:  # an xdist worker: report to the controller
+        workeroutput["reliability"] = {suite: dict(counts)
+                                       for suite, counts in RELIABILITY.items()}
+
+
+@pytest.hookimpl(optionalhook=True)
+def pytest_testnodedown(node, error):  # an xdist hook: called in the controller
+    for suite, counts in getattr(node, "workeroutput", {}).get("reliability", {}).items():
+        total = RELIABILITY.setdefault(suite, {"tried": 0, "held": 0, "accepted": 0})
+        for key, value in counts.items():
+            total[key] = total.get(key, 0) + value
 
 
 def pytest_terminal_summary(terminalreporter):
