@@ -296,35 +296,41 @@ def _product_orders(orders):
 
 
 @intrinsic
-def _vector_lanes(typingctx, row, start, end, lanes):
-    """Lane sums (see ``LANES``) of ``row[start ..]`` over its whole groups of ``LANES``
-    entries below ``end``, stored in ``lanes[0 .. LANES - 1]``; returns where they stop.
+def _lane_total(typingctx, row, start, end):
+    """Sum of ``row[start .. end - 1]`` in the order ``LANES`` defines, all in vector registers.
+
+    Lane j adds the entries start + j, start + j + 32, … in ascending order from +0.0 (four
+    vectors of eight lanes, each added element-wise: IEEE, no reassociation); a last partial
+    group adds +0.0 in the lanes past ``end``, which leaves every lane unchanged (a lane that
+    starts at +0.0 is never -0.0, and x + 0.0 = x for every other x, NaN and infinities
+    included).  Then c = (lanes 0-7 + lanes 8-15) + (lanes 16-23 + lanes 24-31) element-wise
+    and ((c0 + c1) + (c2 + c3)) + ((c4 + c5) + (c6 + c7)) by pairwise shuffles: the same
+    numbers as the scalar definition, on any vector width.
 
     Written as LLVM vector code: numba compiles with LLVM's SLP vectoriser off and the loop
-    vectoriser may not reorder a floating-point sum, so eight scalar lanes would stay eight
-    scalar add chains.  Four vectors of eight lanes, each added element-wise (IEEE, no
-    reassociation), give the same numbers as the scalar definition on any vector width.
-    ``row`` and ``lanes``: C-contiguous float64 arrays, ``lanes`` of at least LANES entries.
+    vectoriser may not reorder a floating-point sum.  ``row``: C-contiguous float64 with at
+    least ``LANES - 1`` readable entries past ``end`` (the partial group is loaded whole and
+    the entries past ``end`` are replaced by +0.0, never added).
     """
     contiguous = (isinstance(row, types.Array) and row.layout == "C" and row.ndim == 1
-                  and row.dtype == types.float64 and isinstance(lanes, types.Array)
-                  and lanes.layout == "C" and lanes.ndim == 1
-                  and lanes.dtype == types.float64)
+                  and row.dtype == types.float64)
     if not contiguous:
         return None
 
     def codegen(context, builder, signature, args):
         data = context.make_array(signature.args[0])(context, builder, value=args[0]).data
-        out = context.make_array(signature.args[3])(context, builder, value=args[3]).data
         start_index = context.cast(builder, args[1], signature.args[1], types.int64)
         end_index = context.cast(builder, args[2], signature.args[2], types.int64)
         i64 = ir.IntType(64)
+        i32 = ir.IntType(32)
         vector = ir.VectorType(ir.DoubleType(), _VECTOR)
         zero = ir.Constant(vector, [0.0] * _VECTOR)
         width = ir.Constant(i64, LANES)
         before = builder.block
         head = builder.append_basic_block("lanes.head")
         body = builder.append_basic_block("lanes.body")
+        tail = builder.append_basic_block("lanes.tail")
+        partial = builder.append_basic_block("lanes.partial")
         done = builder.append_basic_block("lanes.done")
         builder.branch(head)
         builder.position_at_end(head)
@@ -336,52 +342,66 @@ def _vector_lanes(typingctx, row, start, end, lanes):
             phi.add_incoming(zero, before)
             sums.append(phi)
         builder.cbranch(builder.icmp_signed("<=", builder.add(k, width), end_index), body,
-                        done)
+                        tail)
         builder.position_at_end(body)
-        added = []
-        for a, phi in enumerate(sums):
+
+        def load(a):
             pointer = builder.gep(data, [builder.add(k, ir.Constant(i64, _VECTOR * a))])
-            value = builder.load(builder.bitcast(pointer, vector.as_pointer()), align=8)
-            added.append(builder.fadd(phi, value))
+            return builder.load(builder.bitcast(pointer, vector.as_pointer()), align=8)
+
+        added = [builder.fadd(phi, load(a)) for a, phi in enumerate(sums)]
         for phi, value in zip(sums, added):
             phi.add_incoming(value, body)
         k.add_incoming(builder.add(k, width), body)
         builder.branch(head)
-        builder.position_at_end(done)
+        # the last partial group (if any): entries past ``end`` replaced by +0.0
+        builder.position_at_end(tail)
+        left = builder.sub(end_index, k)
+        builder.cbranch(builder.icmp_signed(">", left, ir.Constant(i64, 0)), partial, done)
+        builder.position_at_end(partial)
+        i64_vector = ir.VectorType(i64, _VECTOR)
+        left_splat = builder.insert_element(ir.Constant(i64_vector, None), left,
+                                            ir.Constant(i32, 0))
+        left_splat = builder.shuffle_vector(left_splat, ir.Constant(i64_vector, None),
+                                            ir.Constant(ir.VectorType(i32, _VECTOR),
+                                                        [0] * _VECTOR))
+        topped = []
         for a, phi in enumerate(sums):
-            pointer = builder.gep(out, [ir.Constant(i64, _VECTOR * a)])
-            builder.store(phi, builder.bitcast(pointer, vector.as_pointer()), align=8)
-        return k
+            offsets = ir.Constant(i64_vector, [_VECTOR * a + j for j in range(_VECTOR)])
+            inside = builder.icmp_signed("<", offsets, left_splat)
+            topped.append(builder.fadd(phi, builder.select(inside, load(a), zero)))
+        builder.branch(done)
+        builder.position_at_end(done)
+        lanes = []
+        for phi_sum, value in zip(sums, topped):
+            merged = builder.phi(vector)
+            merged.add_incoming(phi_sum, tail)
+            merged.add_incoming(value, partial)
+            lanes.append(merged)
+        c = builder.fadd(builder.fadd(lanes[0], lanes[1]), builder.fadd(lanes[2], lanes[3]))
 
-    return types.int64(row, start, end, lanes), codegen
+        def pick(value, indices):
+            return builder.shuffle_vector(value, value,
+                                          ir.Constant(ir.VectorType(i32, len(indices)),
+                                                      indices))
 
+        pairs = builder.fadd(pick(c, [0, 2, 4, 6]), pick(c, [1, 3, 5, 7]))  # c0 + c1, …
+        halves = builder.fadd(pick(pairs, [0, 2]), pick(pairs, [1, 3]))
+        return builder.fadd(builder.extract_element(halves, ir.Constant(i32, 0)),
+                            builder.extract_element(halves, ir.Constant(i32, 1)))
 
-@jit(inline="always")
-def _lane_sum(row, s, e, lanes):
-    """Sum of row[s .. e - 1] in the order ``LANES`` defines (``lanes``: scratch)."""
-    k = _vector_lanes(row, s, e, lanes)
-    for j in range(e - k):  # the last partial group: the first e - k lanes
-        lanes[j] += row[k + j]
-    c0 = (lanes[0] + lanes[8]) + (lanes[16] + lanes[24])
-    c1 = (lanes[1] + lanes[9]) + (lanes[17] + lanes[25])
-    c2 = (lanes[2] + lanes[10]) + (lanes[18] + lanes[26])
-    c3 = (lanes[3] + lanes[11]) + (lanes[19] + lanes[27])
-    c4 = (lanes[4] + lanes[12]) + (lanes[20] + lanes[28])
-    c5 = (lanes[5] + lanes[13]) + (lanes[21] + lanes[29])
-    c6 = (lanes[6] + lanes[14]) + (lanes[22] + lanes[30])
-    c7 = (lanes[7] + lanes[15]) + (lanes[23] + lanes[31])
-    return ((c0 + c1) + (c2 + c3)) + ((c4 + c5) + (c6 + c7))
+    return types.float64(row, start, end), codegen
 
 
 @jit
-def _add_row(moments, slot, column, row, lo, m, block_size, lanes):
+def _add_row(moments, slot, column, row, lo, m, block_size):
     """Add ``row[g]`` of tile particles ``0 .. m-1`` (chunk particles ``lo ..``) to column
     ``column`` of their blocks' sums: one lane sum per block segment (see ``LANES``)."""
     block = lo // block_size
     s = 0
     e = min((block + 1) * block_size - lo, m)
     while s < m:
-        moments[block, slot, column] += _lane_sum(row, s, e, lanes)
+        moments[block, slot, column] += _lane_total(row, s, e)
         block += 1
         s = e
         e = min(e + block_size, m)
@@ -401,37 +421,36 @@ def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, produ
     dy = rows[_DY]
     v0 = rows[_V0]
     v1 = rows[_V1]
-    lanes = rows[_LANES]
     for g in range(m):
         dx[g] = xs[g] - x0[lo + g]
         dy[g] = ys[g] - y0[lo + g]
-    _add_row(moments, slot, 0, dx, lo, m, block_size, lanes)
-    _add_row(moments, slot, 1, dy, lo, m, block_size, lanes)
+    _add_row(moments, slot, 0, dx, lo, m, block_size)
+    _add_row(moments, slot, 1, dy, lo, m, block_size)
     for g in range(m):
         v0[g] = dx[g] * dx[g]
         v1[g] = dy[g] * dy[g]
-    _add_row(moments, slot, 2, v0, lo, m, block_size, lanes)
-    _add_row(moments, slot, 3, v1, lo, m, block_size, lanes)
+    _add_row(moments, slot, 2, v0, lo, m, block_size)
+    _add_row(moments, slot, 3, v1, lo, m, block_size)
     for g in range(m):
         dx2 = dx[g] * dx[g]
         dy2 = dy[g] * dy[g]
         r2 = dx2 + dy2
         v0[g] = dx[g] * dy[g]
         v1[g] = r2 * r2
-    _add_row(moments, slot, 4, v0, lo, m, block_size, lanes)
-    _add_row(moments, slot, 5, v1, lo, m, block_size, lanes)
+    _add_row(moments, slot, 4, v0, lo, m, block_size)
+    _add_row(moments, slot, 5, v1, lo, m, block_size)
     for g in range(m):
         v0[g] = (dx[g] * dx[g]) * dx[g]
         v1[g] = (dy[g] * dy[g]) * dy[g]
-    _add_row(moments, slot, 6, v0, lo, m, block_size, lanes)
-    _add_row(moments, slot, 7, v1, lo, m, block_size, lanes)
+    _add_row(moments, slot, 6, v0, lo, m, block_size)
+    _add_row(moments, slot, 7, v1, lo, m, block_size)
     for g in range(m):
         dx2 = dx[g] * dx[g]
         dy2 = dy[g] * dy[g]
         v0[g] = dx2 * dx2
         v1[g] = dy2 * dy2
-    _add_row(moments, slot, 8, v0, lo, m, block_size, lanes)
-    _add_row(moments, slot, 9, v1, lo, m, block_size, lanes)
+    _add_row(moments, slot, 8, v0, lo, m, block_size)
+    _add_row(moments, slot, 9, v1, lo, m, block_size)
     if orders.size == 0:
         return
     ax = rows[_AX]
@@ -451,11 +470,11 @@ def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, produ
             for g in range(m):
                 v0[g] = ax[g] ** orders[q]
                 v1[g] = ay[g] ** orders[q]
-            _add_row(moments, slot, N_BASE + 3 * q, v0, lo, m, block_size, lanes)
-            _add_row(moments, slot, N_BASE + 3 * q + 1, v1, lo, m, block_size, lanes)
+            _add_row(moments, slot, N_BASE + 3 * q, v0, lo, m, block_size)
+            _add_row(moments, slot, N_BASE + 3 * q + 1, v1, lo, m, block_size)
             for g in range(m):
                 v0[g] = ar[g] ** orders[q]
-            _add_row(moments, slot, N_BASE + 3 * q + 2, v0, lo, m, block_size, lanes)
+            _add_row(moments, slot, N_BASE + 3 * q + 2, v0, lo, m, block_size)
     for n in range(1, most + 1):
         if n == 1:
             for g in range(m):
@@ -469,9 +488,9 @@ def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, produ
                 pr[g] *= ar[g]
         for q in range(orders.size):
             if products[q] == n:
-                _add_row(moments, slot, N_BASE + 3 * q, px, lo, m, block_size, lanes)
-                _add_row(moments, slot, N_BASE + 3 * q + 1, py, lo, m, block_size, lanes)
-                _add_row(moments, slot, N_BASE + 3 * q + 2, pr, lo, m, block_size, lanes)
+                _add_row(moments, slot, N_BASE + 3 * q, px, lo, m, block_size)
+                _add_row(moments, slot, N_BASE + 3 * q + 1, py, lo, m, block_size)
+                _add_row(moments, slot, N_BASE + 3 * q + 2, pr, lo, m, block_size)
 
 
 @jit
@@ -583,7 +602,7 @@ def run_particles(
     words = np.empty((4, TILE), dtype=np.uint64)
     z = np.zeros((4, TILE))
     products = _product_orders(orders)
-    moment_rows = np.zeros((MOMENT_ROWS, TILE))
+    moment_rows = np.zeros((MOMENT_ROWS, TILE + LANES))
     walls = has_walls(fcode)
     n = x0.size
     lo = 0
