@@ -77,13 +77,14 @@ HOP_ROWS = 7
 # c_i = (lane i + lane i+8) + (lane i+16 + lane i+24) for i < 8, and
 # ((c0 + c1) + (c2 + c3)) + ((c4 + c5) + (c6 + c7)), which is added to the block's column.
 # A fixed order, written out in the source, independent of the tiling, the chunking and the
-# machine's vector width (:func:`_vector_lanes` adds whole groups of 32 as four vectors of 8).
+# machine's vector width (:func:`_emit_lane_totals` adds groups of 32 as four vectors of 8).
 LANES = 32
-_VECTOR = 8  # doubles per vector of _vector_lanes (four independent add chains)
-# Rows of the moment scratch (``moment_rows``): Δx, Δy, two value rows, |Δx|, |Δy|, |ΔX|, their
-# running powers, the lanes.
-_DX, _DY, _V0, _V1, _AX, _AY, _AR, _PX, _PY, _PR, _LANES = range(11)
-MOMENT_ROWS = 11
+_VECTOR = 8  # doubles per lane vector (four independent add chains per sum)
+# Rows of the moment scratch (``moment_rows``, MOMENT_ROWS × (TILE + LANES): the padding lets
+# the lane sums load a last partial group whole): Δx, Δy, two value rows (pow), |Δx|, |Δy|,
+# |ΔX|, and the totals of one pass (:func:`_base_totals`, :func:`_power_totals`).
+_DX, _DY, _V0, _V1, _AX, _AY, _AR, _SUMS = range(8)
+MOMENT_ROWS = 8
 
 
 @intrinsic
@@ -295,102 +296,207 @@ def _product_orders(orders):
     return products
 
 
+def _emit_lane_totals(context, builder, rows, start, end, values, count):
+    """LLVM code of ``count`` lane sums (see ``LANES``) over entries ``start .. end - 1``:
+    ``values(inputs)`` maps the input vectors (eight consecutive entries of each row of
+    ``rows``, data pointers) to ``count`` value vectors, each added to its own 32 lanes;
+    returns the ``count`` totals (scalars).
+
+    Lane j adds the values of entries start + j, start + j + 32, … in ascending order from
+    +0.0 (four vectors of eight lanes per sum, added element-wise: IEEE, no reassociation).
+    In a last partial group the inputs past ``end`` are replaced by +0.0 before ``values`` is
+    applied; every value of zero inputs must be +0.0, which leaves every lane unchanged (a lane
+    that starts at +0.0 is never -0.0, and x + 0.0 = x for every other x, NaN and infinities
+    included).  Then c = (lanes 0-7 + lanes 8-15) + (lanes 16-23 + lanes 24-31) element-wise
+    and ((c0 + c1) + (c2 + c3)) + ((c4 + c5) + (c6 + c7)) by pairwise shuffles: the numbers of
+    the scalar definition, on any vector width.  Values are computed with plain IEEE
+    operations (no contraction), as the scalar expressions they replace.
+    """
+    i64 = ir.IntType(64)
+    i32 = ir.IntType(32)
+    vector = ir.VectorType(ir.DoubleType(), _VECTOR)
+    zero = ir.Constant(vector, [0.0] * _VECTOR)
+    width = ir.Constant(i64, LANES)
+    groups = LANES // _VECTOR
+    before = builder.block
+    head = builder.append_basic_block("lanes.head")
+    body = builder.append_basic_block("lanes.body")
+    tail = builder.append_basic_block("lanes.tail")
+    partial = builder.append_basic_block("lanes.partial")
+    done = builder.append_basic_block("lanes.done")
+    builder.branch(head)
+    builder.position_at_end(head)
+    k = builder.phi(i64)
+    k.add_incoming(start, before)
+    sums = []
+    for _ in range(count * groups):
+        phi = builder.phi(vector)
+        phi.add_incoming(zero, before)
+        sums.append(phi)
+    builder.cbranch(builder.icmp_signed("<=", builder.add(k, width), end), body, tail)
+
+    def load(data, a):
+        pointer = builder.gep(data, [builder.add(k, ir.Constant(i64, _VECTOR * a))])
+        return builder.load(builder.bitcast(pointer, vector.as_pointer()), align=8)
+
+    def accumulate(inputs_of):
+        added = []
+        for a in range(groups):
+            for c, value in enumerate(values(inputs_of(a))):
+                added.append((c * groups + a, builder.fadd(sums[c * groups + a], value)))
+        return [value for _, value in sorted(added, key=lambda pair: pair[0])]
+
+    builder.position_at_end(body)
+    added = accumulate(lambda a: [load(data, a) for data in rows])
+    for phi, value in zip(sums, added):
+        phi.add_incoming(value, body)
+    k.add_incoming(builder.add(k, width), body)
+    builder.branch(head)
+    # the last partial group (if any): inputs past ``end`` replaced by +0.0
+    builder.position_at_end(tail)
+    left = builder.sub(end, k)
+    builder.cbranch(builder.icmp_signed(">", left, ir.Constant(i64, 0)), partial, done)
+    builder.position_at_end(partial)
+    i64_vector = ir.VectorType(i64, _VECTOR)
+    left_splat = builder.insert_element(ir.Constant(i64_vector, None), left,
+                                        ir.Constant(i32, 0))
+    left_splat = builder.shuffle_vector(left_splat, ir.Constant(i64_vector, None),
+                                        ir.Constant(ir.VectorType(i32, _VECTOR),
+                                                    [0] * _VECTOR))
+
+    def masked_inputs(a):
+        offsets = ir.Constant(i64_vector, [_VECTOR * a + j for j in range(_VECTOR)])
+        inside = builder.icmp_signed("<", offsets, left_splat)
+        return [builder.select(inside, load(data, a), zero) for data in rows]
+
+    topped = accumulate(masked_inputs)
+    builder.branch(done)
+    builder.position_at_end(done)
+    lanes = []
+    for phi_sum, value in zip(sums, topped):
+        merged = builder.phi(vector)
+        merged.add_incoming(phi_sum, tail)
+        merged.add_incoming(value, partial)
+        lanes.append(merged)
+
+    def pick(value, indices):
+        return builder.shuffle_vector(value, value,
+                                      ir.Constant(ir.VectorType(i32, len(indices)), indices))
+
+    totals = []
+    for c in range(count):
+        v = lanes[c * groups:(c + 1) * groups]
+        folded = builder.fadd(builder.fadd(v[0], v[1]), builder.fadd(v[2], v[3]))
+        pairs = builder.fadd(pick(folded, [0, 2, 4, 6]), pick(folded, [1, 3, 5, 7]))
+        halves = builder.fadd(pick(pairs, [0, 2]), pick(pairs, [1, 3]))
+        totals.append(builder.fadd(builder.extract_element(halves, ir.Constant(i32, 0)),
+                                   builder.extract_element(halves, ir.Constant(i32, 1))))
+    return totals
+
+
+def _is_row(value):
+    return (isinstance(value, types.Array) and value.layout == "C" and value.ndim == 1
+            and value.dtype == types.float64)
+
+
+def _row_data(context, builder, row_type, row):
+    return context.make_array(row_type)(context, builder, value=row).data
+
+
 @intrinsic
 def _lane_total(typingctx, row, start, end):
-    """Sum of ``row[start .. end - 1]`` in the order ``LANES`` defines, all in vector registers.
-
-    Lane j adds the entries start + j, start + j + 32, … in ascending order from +0.0 (four
-    vectors of eight lanes, each added element-wise: IEEE, no reassociation); a last partial
-    group adds +0.0 in the lanes past ``end``, which leaves every lane unchanged (a lane that
-    starts at +0.0 is never -0.0, and x + 0.0 = x for every other x, NaN and infinities
-    included).  Then c = (lanes 0-7 + lanes 8-15) + (lanes 16-23 + lanes 24-31) element-wise
-    and ((c0 + c1) + (c2 + c3)) + ((c4 + c5) + (c6 + c7)) by pairwise shuffles: the same
-    numbers as the scalar definition, on any vector width.
-
-    Written as LLVM vector code: numba compiles with LLVM's SLP vectoriser off and the loop
-    vectoriser may not reorder a floating-point sum.  ``row``: C-contiguous float64 with at
-    least ``LANES - 1`` readable entries past ``end`` (the partial group is loaded whole and
-    the entries past ``end`` are replaced by +0.0, never added).
-    """
-    contiguous = (isinstance(row, types.Array) and row.layout == "C" and row.ndim == 1
-                  and row.dtype == types.float64)
-    if not contiguous:
+    """Sum of ``row[start .. end - 1]`` in the order ``LANES`` defines, in vector registers
+    (:func:`_emit_lane_totals`).  ``row``: C-contiguous float64 with at least ``LANES - 1``
+    readable entries past ``end`` (a partial group is loaded whole, the entries past ``end``
+    replaced by +0.0)."""
+    if not _is_row(row):
         return None
 
     def codegen(context, builder, signature, args):
-        data = context.make_array(signature.args[0])(context, builder, value=args[0]).data
-        start_index = context.cast(builder, args[1], signature.args[1], types.int64)
-        end_index = context.cast(builder, args[2], signature.args[2], types.int64)
-        i64 = ir.IntType(64)
-        i32 = ir.IntType(32)
-        vector = ir.VectorType(ir.DoubleType(), _VECTOR)
-        zero = ir.Constant(vector, [0.0] * _VECTOR)
-        width = ir.Constant(i64, LANES)
-        before = builder.block
-        head = builder.append_basic_block("lanes.head")
-        body = builder.append_basic_block("lanes.body")
-        tail = builder.append_basic_block("lanes.tail")
-        partial = builder.append_basic_block("lanes.partial")
-        done = builder.append_basic_block("lanes.done")
-        builder.branch(head)
-        builder.position_at_end(head)
-        k = builder.phi(i64)
-        k.add_incoming(start_index, before)
-        sums = []
-        for _ in range(LANES // _VECTOR):
-            phi = builder.phi(vector)
-            phi.add_incoming(zero, before)
-            sums.append(phi)
-        builder.cbranch(builder.icmp_signed("<=", builder.add(k, width), end_index), body,
-                        tail)
-        builder.position_at_end(body)
-
-        def load(a):
-            pointer = builder.gep(data, [builder.add(k, ir.Constant(i64, _VECTOR * a))])
-            return builder.load(builder.bitcast(pointer, vector.as_pointer()), align=8)
-
-        added = [builder.fadd(phi, load(a)) for a, phi in enumerate(sums)]
-        for phi, value in zip(sums, added):
-            phi.add_incoming(value, body)
-        k.add_incoming(builder.add(k, width), body)
-        builder.branch(head)
-        # the last partial group (if any): entries past ``end`` replaced by +0.0
-        builder.position_at_end(tail)
-        left = builder.sub(end_index, k)
-        builder.cbranch(builder.icmp_signed(">", left, ir.Constant(i64, 0)), partial, done)
-        builder.position_at_end(partial)
-        i64_vector = ir.VectorType(i64, _VECTOR)
-        left_splat = builder.insert_element(ir.Constant(i64_vector, None), left,
-                                            ir.Constant(i32, 0))
-        left_splat = builder.shuffle_vector(left_splat, ir.Constant(i64_vector, None),
-                                            ir.Constant(ir.VectorType(i32, _VECTOR),
-                                                        [0] * _VECTOR))
-        topped = []
-        for a, phi in enumerate(sums):
-            offsets = ir.Constant(i64_vector, [_VECTOR * a + j for j in range(_VECTOR)])
-            inside = builder.icmp_signed("<", offsets, left_splat)
-            topped.append(builder.fadd(phi, builder.select(inside, load(a), zero)))
-        builder.branch(done)
-        builder.position_at_end(done)
-        lanes = []
-        for phi_sum, value in zip(sums, topped):
-            merged = builder.phi(vector)
-            merged.add_incoming(phi_sum, tail)
-            merged.add_incoming(value, partial)
-            lanes.append(merged)
-        c = builder.fadd(builder.fadd(lanes[0], lanes[1]), builder.fadd(lanes[2], lanes[3]))
-
-        def pick(value, indices):
-            return builder.shuffle_vector(value, value,
-                                          ir.Constant(ir.VectorType(i32, len(indices)),
-                                                      indices))
-
-        pairs = builder.fadd(pick(c, [0, 2, 4, 6]), pick(c, [1, 3, 5, 7]))  # c0 + c1, …
-        halves = builder.fadd(pick(pairs, [0, 2]), pick(pairs, [1, 3]))
-        return builder.fadd(builder.extract_element(halves, ir.Constant(i32, 0)),
-                            builder.extract_element(halves, ir.Constant(i32, 1)))
+        first = context.cast(builder, args[1], signature.args[1], types.int64)
+        stop = context.cast(builder, args[2], signature.args[2], types.int64)
+        data = _row_data(context, builder, signature.args[0], args[0])
+        [total] = _emit_lane_totals(context, builder, [data], first, stop,
+                                    lambda inputs: inputs, 1)
+        return total
 
     return types.float64(row, start, end), codegen
+
+
+def _store_totals(context, builder, out_type, out, totals):
+    data = _row_data(context, builder, out_type, out)
+    for c, total in enumerate(totals):
+        builder.store(total, builder.gep(data, [ir.Constant(ir.IntType(64), c)]))
+
+
+def _base_values_first(builder, inputs):
+    dx, dy = inputs
+    return [dx, dy, builder.fmul(dx, dx), builder.fmul(dy, dy), builder.fmul(dx, dy)]
+
+
+def _base_values_second(builder, inputs):
+    dx, dy = inputs
+    dx2 = builder.fmul(dx, dx)
+    dy2 = builder.fmul(dy, dy)
+    r2 = builder.fadd(dx2, dy2)
+    return [builder.fmul(r2, r2), builder.fmul(dx2, dx), builder.fmul(dy2, dy),
+            builder.fmul(dx2, dx2), builder.fmul(dy2, dy2)]
+
+
+@intrinsic
+def _base_totals(typingctx, dx, dy, start, end, part, out):
+    """Lane sums (``LANES`` order) over entries ``start .. end - 1`` of five of the
+    ``MOMENT_COLUMNS`` from the rows ``dx``, ``dy``, stored in ``out[0 .. 4]``: part 0 (a
+    literal) Δx, Δy, Δx·Δx, Δy·Δy, Δx·Δy; part 1 (Δx²+Δy²)², Δx²·Δx, Δy²·Δy, Δx²·Δx², Δy²·Δy²
+    (Δx² = Δx·Δx), the products of the scalar definitions.  Five sums per pass keep the
+    twenty lane vectors in registers.  Rows as for :func:`_lane_total`."""
+    if not (_is_row(dx) and _is_row(dy) and _is_row(out)):
+        return None
+    if not isinstance(part, types.IntegerLiteral):
+        return None
+    values = _base_values_first if part.literal_value == 0 else _base_values_second
+
+    def codegen(context, builder, signature, args):
+        first = context.cast(builder, args[2], signature.args[2], types.int64)
+        stop = context.cast(builder, args[3], signature.args[3], types.int64)
+        rows = [_row_data(context, builder, signature.args[a], args[a]) for a in (0, 1)]
+        totals = _emit_lane_totals(context, builder, rows, first, stop,
+                                   lambda inputs: values(builder, inputs), 5)
+        _store_totals(context, builder, signature.args[5], args[5], totals)
+        return context.get_dummy_value()
+
+    return types.none(dx, dy, start, end, part, out), codegen
+
+
+@intrinsic
+def _power_totals(typingctx, row, start, end, count, out):
+    """Lane sums (``LANES`` order) over entries ``start .. end - 1`` of row^1 … row^count
+    (``count`` a literal), stored in ``out[0 .. count - 1]``: the n-th power is the (n-1)-th
+    times the row, the running products of :func:`_abs_power`.  Rows as for
+    :func:`_lane_total`."""
+    if not (_is_row(row) and _is_row(out)):
+        return None
+    if not isinstance(count, types.IntegerLiteral):
+        return None
+    n = count.literal_value
+
+    def powers(builder, inputs):
+        [base] = inputs
+        result = [base]
+        for _ in range(n - 1):
+            result.append(builder.fmul(result[-1], base))
+        return result
+
+    def codegen(context, builder, signature, args):
+        first = context.cast(builder, args[1], signature.args[1], types.int64)
+        stop = context.cast(builder, args[2], signature.args[2], types.int64)
+        data = _row_data(context, builder, signature.args[0], args[0])
+        totals = _emit_lane_totals(context, builder, [data], first, stop,
+                                   lambda inputs: powers(builder, inputs), n)
+        _store_totals(context, builder, signature.args[4], args[4], totals)
+        return context.get_dummy_value()
+
+    return types.none(row, start, end, count, out), codegen
 
 
 @jit
@@ -408,57 +514,69 @@ def _add_row(moments, slot, column, row, lo, m, block_size):
 
 
 @jit
+def _add_powers(moments, slot, family, row, lo, m, block_size, products, most, totals):
+    """Add row^n (tile particles ``0 .. m-1``, chunk particles ``lo ..``) to the columns of
+    the integer orders n = ``products[q]`` of ``family`` (0: |Δx|, 1: |Δy|, 2: |ΔX|), one
+    :func:`_power_totals` pass per block segment (``most``: the highest n)."""
+    block = lo // block_size
+    s = 0
+    e = min((block + 1) * block_size - lo, m)
+    while s < m:
+        # powers up to the next even count: at most 32 lane vectors, all in registers
+        if most <= 2:
+            _power_totals(row, s, e, 2, totals)
+        elif most <= 4:
+            _power_totals(row, s, e, 4, totals)
+        elif most <= 6:
+            _power_totals(row, s, e, 6, totals)
+        else:
+            _power_totals(row, s, e, 8, totals)
+        for q in range(products.size):
+            if products[q] > 0:
+                moments[block, slot, N_BASE + 3 * q + family] += totals[products[q] - 1]
+        block += 1
+        s = e
+        e = min(e + block_size, m)
+
+
+@jit
 def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, products, rows):
     """Add the displacements of tile particles ``0 .. m-1`` (chunk particles ``lo ..``) to the
     sums ``moments[block, slot]`` (columns: module docstring).
 
-    Vectorised over the tile: each column's values are a row of ``rows`` (scratch of
-    ``MOMENT_ROWS`` rows of at least ``TILE`` entries), summed per block segment in lanes
-    (:func:`_add_row`).  |Δx|^n, |Δy|^n, |ΔX|^n for integer orders are running products
-    (the n-th is the (n-1)-th times the base, the products of :func:`_abs_power`).
+    Vectorised over the tile: Δx, Δy (and |Δx|, |Δy|, |ΔX| when orders are asked for) are rows
+    of ``rows`` (scratch of ``MOMENT_ROWS`` rows of ``TILE + LANES`` entries); the columns are
+    computed from them inside the lane sums, per block segment, several columns per pass
+    (:func:`_base_totals`, :func:`_power_totals`); orders that are not products use ``pow``
+    on a row (:func:`_add_row`).  |Δx|^n, |Δy|^n, |ΔX|^n for integer orders are running
+    products (the n-th is the (n-1)-th times the base, the products of :func:`_abs_power`).
     """
     dx = rows[_DX]
     dy = rows[_DY]
-    v0 = rows[_V0]
-    v1 = rows[_V1]
+    totals = rows[_SUMS]
     for g in range(m):
         dx[g] = xs[g] - x0[lo + g]
         dy[g] = ys[g] - y0[lo + g]
-    _add_row(moments, slot, 0, dx, lo, m, block_size)
-    _add_row(moments, slot, 1, dy, lo, m, block_size)
-    for g in range(m):
-        v0[g] = dx[g] * dx[g]
-        v1[g] = dy[g] * dy[g]
-    _add_row(moments, slot, 2, v0, lo, m, block_size)
-    _add_row(moments, slot, 3, v1, lo, m, block_size)
-    for g in range(m):
-        dx2 = dx[g] * dx[g]
-        dy2 = dy[g] * dy[g]
-        r2 = dx2 + dy2
-        v0[g] = dx[g] * dy[g]
-        v1[g] = r2 * r2
-    _add_row(moments, slot, 4, v0, lo, m, block_size)
-    _add_row(moments, slot, 5, v1, lo, m, block_size)
-    for g in range(m):
-        v0[g] = (dx[g] * dx[g]) * dx[g]
-        v1[g] = (dy[g] * dy[g]) * dy[g]
-    _add_row(moments, slot, 6, v0, lo, m, block_size)
-    _add_row(moments, slot, 7, v1, lo, m, block_size)
-    for g in range(m):
-        dx2 = dx[g] * dx[g]
-        dy2 = dy[g] * dy[g]
-        v0[g] = dx2 * dx2
-        v1[g] = dy2 * dy2
-    _add_row(moments, slot, 8, v0, lo, m, block_size)
-    _add_row(moments, slot, 9, v1, lo, m, block_size)
+    block = lo // block_size
+    s = 0
+    e = min((block + 1) * block_size - lo, m)
+    while s < m:
+        _base_totals(dx, dy, s, e, 0, totals)
+        for c in range(5):
+            moments[block, slot, c] += totals[c]
+        _base_totals(dx, dy, s, e, 1, totals)
+        for c in range(5):
+            moments[block, slot, 5 + c] += totals[c]
+        block += 1
+        s = e
+        e = min(e + block_size, m)
     if orders.size == 0:
         return
     ax = rows[_AX]
     ay = rows[_AY]
     ar = rows[_AR]
-    px = rows[_PX]
-    py = rows[_PY]
-    pr = rows[_PR]
+    v0 = rows[_V0]
+    v1 = rows[_V1]
     for g in range(m):
         ax[g] = abs(dx[g])
         ay[g] = abs(dy[g])
@@ -475,22 +593,10 @@ def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, produ
             for g in range(m):
                 v0[g] = ar[g] ** orders[q]
             _add_row(moments, slot, N_BASE + 3 * q + 2, v0, lo, m, block_size)
-    for n in range(1, most + 1):
-        if n == 1:
-            for g in range(m):
-                px[g] = ax[g]
-                py[g] = ay[g]
-                pr[g] = ar[g]
-        else:
-            for g in range(m):
-                px[g] *= ax[g]
-                py[g] *= ay[g]
-                pr[g] *= ar[g]
-        for q in range(orders.size):
-            if products[q] == n:
-                _add_row(moments, slot, N_BASE + 3 * q, px, lo, m, block_size)
-                _add_row(moments, slot, N_BASE + 3 * q + 1, py, lo, m, block_size)
-                _add_row(moments, slot, N_BASE + 3 * q + 2, pr, lo, m, block_size)
+    if most > 0:
+        _add_powers(moments, slot, 0, ax, lo, m, block_size, products, most, totals)
+        _add_powers(moments, slot, 1, ay, lo, m, block_size, products, most, totals)
+        _add_powers(moments, slot, 2, ar, lo, m, block_size, products, most, totals)
 
 
 @jit
