@@ -95,7 +95,9 @@ def _borrowed(typingctx, array):
     around the call unless it can prove the pair redundant.  On the flow and noise parameter
     vectors, shared by all threads, those atomic updates cost several per particle-step and
     bounce one cache line between cores.  A NULL meminfo turns them into a null test.  Only
-    for arguments of the kernel: the caller keeps the array alive for the whole call.
+    for arrays that outlive every use of the view: the kernel's arguments (the caller keeps
+    them alive for the whole call) and its scratch passed to the event recorders inside the
+    tile loop (the loop keeps the owning variables alive).
     """
     def codegen(context, builder, signature, args):
         view = context.make_array(signature.args[0])(context, builder, value=args[0])
@@ -768,10 +770,17 @@ def run_particles(
                                    fl_log_low, fl_inv_width, residence_hist, flight_hist,
                                    hop_count)
             if not failed:
-                _record_event(e, lo, m, block_size, xs, ys, x0, y0, ref,
-                              ev_out, ev_track, ev_ref, aged_ptr, aged_a, aged_l, orders,
-                              products, moment_rows, moments, aged, tracks, n_tracked_here)
-                _record_velocity(e, lo, m, block_size, xs, ys, step * dt, fcode, fp, ev_vref,
-                                 vc_ptr, vc_r, vc_l, vref, tile_u, tile_v, vcorr)
+                # every array borrowed (see _borrowed): the callees' reference counting
+                # of a dozen arrays per call and tile would otherwise be atomic updates
+                _record_event(e, lo, m, block_size, _borrowed(xs), _borrowed(ys),
+                              _borrowed(x0), _borrowed(y0), _borrowed(ref), _borrowed(ev_out),
+                              _borrowed(ev_track), _borrowed(ev_ref), _borrowed(aged_ptr),
+                              _borrowed(aged_a), _borrowed(aged_l), _borrowed(orders),
+                              _borrowed(products), _borrowed(moment_rows), _borrowed(moments),
+                              _borrowed(aged), _borrowed(tracks), n_tracked_here)
+                _record_velocity(e, lo, m, block_size, _borrowed(xs), _borrowed(ys), step * dt,
+                                 fcode, fp, _borrowed(ev_vref), _borrowed(vc_ptr),
+                                 _borrowed(vc_r), _borrowed(vc_l), _borrowed(vref),
+                                 _borrowed(tile_u), _borrowed(tile_v), _borrowed(vcorr))
         if failed:
             return
