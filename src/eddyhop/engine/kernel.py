@@ -64,7 +64,7 @@ BLOWUP_LIMIT = 1e150
 # Particles stepped together: long enough to vectorise the random-number loop and to spread
 # the per-step call overhead, short enough to keep the scratch in L1 (benchmarks/bench_kernel.py).
 TILE = 128
-MAX_PRODUCT_ORDER = 8
+MAX_PRODUCT_ORDER = 8  # at most 8: _add_powers sums up to eight powers per pass
 # Rows of the tile's cell-hopping state (float64, one column per tile particle): the counted
 # cell, the step it was entered, the cell where the current flight began, whether a flight is
 # on, and the vectorised test's mark "a hop is due this step".  Cell indices and steps are
@@ -778,9 +778,11 @@ def run_particles(
                               _borrowed(aged_a), _borrowed(aged_l), _borrowed(orders),
                               _borrowed(products), _borrowed(moment_rows), _borrowed(moments),
                               _borrowed(aged), _borrowed(tracks), n_tracked_here)
-                _record_velocity(e, lo, m, block_size, _borrowed(xs), _borrowed(ys), step * dt,
-                                 fcode, fp, _borrowed(ev_vref), _borrowed(vc_ptr),
-                                 _borrowed(vc_r), _borrowed(vc_l), _borrowed(vref),
-                                 _borrowed(tile_u), _borrowed(tile_v), _borrowed(vcorr))
+                if ev_vref[e] >= 0 or vc_ptr[e] < vc_ptr[e + 1]:  # velocity work due
+                    _record_velocity(e, lo, m, block_size, _borrowed(xs), _borrowed(ys),
+                                     step * dt, fcode, fp, _borrowed(ev_vref),
+                                     _borrowed(vc_ptr), _borrowed(vc_r), _borrowed(vc_l),
+                                     _borrowed(vref), _borrowed(tile_u), _borrowed(tile_v),
+                                     _borrowed(vcorr))
         if failed:
             return
