@@ -310,7 +310,8 @@ def _emit_lane_totals(context, builder, rows, start, end, values, count):
     applied; every value of zero inputs must be +0.0, which leaves every lane unchanged (a lane
     that starts at +0.0 is never -0.0, and x + 0.0 = x for every other x, NaN and infinities
     included).  Then c = (lanes 0-7 + lanes 8-15) + (lanes 16-23 + lanes 24-31) element-wise
-    and ((c0 + c1) + (c2 + c3)) + ((c4 + c5) + (c6 + c7)) by pairwise shuffles: the numbers of
+    and ((c0 + c1) + (c2 + c3)) + ((c4 + c5) + (c6 + c7)) by pairwise shuffles, four sums at a
+    time: the numbers of
     the scalar definition, on any vector width.  Values are computed with plain IEEE
     operations (no contraction), as the scalar expressions they replace.
     """
@@ -385,15 +386,27 @@ def _emit_lane_totals(context, builder, rows, start, end, values, count):
         return builder.shuffle_vector(value, value,
                                       ir.Constant(ir.VectorType(i32, len(indices)), indices))
 
-    totals = []
+    def pair(first, second, indices):
+        return builder.shuffle_vector(first, second,
+                                      ir.Constant(ir.VectorType(i32, len(indices)), indices))
+
+    folded = []
     for c in range(count):
         v = lanes[c * groups:(c + 1) * groups]
-        folded = builder.fadd(builder.fadd(v[0], v[1]), builder.fadd(v[2], v[3]))
-        pairs = builder.fadd(pick(folded, [0, 2, 4, 6]), pick(folded, [1, 3, 5, 7]))
-        halves = builder.fadd(pick(pairs, [0, 2]), pick(pairs, [1, 3]))
-        totals.append(builder.fadd(builder.extract_element(halves, ir.Constant(i32, 0)),
-                                   builder.extract_element(halves, ir.Constant(i32, 1))))
-    return totals
+        folded.append(builder.fadd(builder.fadd(v[0], v[1]), builder.fadd(v[2], v[3])))
+    folded += [zero] * (-count % 4)  # the tree runs on four sums at once
+    evens = list(range(0, 2 * _VECTOR, 2))
+    odds = list(range(1, 2 * _VECTOR, 2))
+    totals = []
+    for a in range(0, len(folded), 4):
+        # c0 + c1, c2 + c3, … of two sums per vector; then (c0 + c1) + (c2 + c3) and
+        # (c4 + c5) + (c6 + c7) of four sums per vector; then their sum, per sum
+        pairs = [builder.fadd(pair(x, y, evens), pair(x, y, odds))
+                 for x, y in (folded[a:a + 2], folded[a + 2:a + 4])]
+        quads = builder.fadd(pair(pairs[0], pairs[1], evens), pair(pairs[0], pairs[1], odds))
+        whole = builder.fadd(pick(quads, [0, 2, 4, 6]), pick(quads, [1, 3, 5, 7]))
+        totals += [builder.extract_element(whole, ir.Constant(i32, j)) for j in range(4)]
+    return totals[:count]
 
 
 def _is_row(value):
