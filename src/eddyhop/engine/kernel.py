@@ -311,9 +311,8 @@ def _emit_lane_totals(context, builder, rows, start, end, values, count):
     that starts at +0.0 is never -0.0, and x + 0.0 = x for every other x, NaN and infinities
     included).  Then c = (lanes 0-7 + lanes 8-15) + (lanes 16-23 + lanes 24-31) element-wise
     and ((c0 + c1) + (c2 + c3)) + ((c4 + c5) + (c6 + c7)) by pairwise shuffles, four sums at a
-    time: the numbers of
-    the scalar definition, on any vector width.  Values are computed with plain IEEE
-    operations (no contraction), as the scalar expressions they replace.
+    time: the numbers of the scalar definition, on any vector width.  Values are computed with
+    plain IEEE operations (no contraction), as the scalar expressions they replace.
     """
     i64 = ir.IntType(64)
     i32 = ir.IntType(32)
