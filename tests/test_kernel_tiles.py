@@ -238,8 +238,10 @@ def _column_values(d, orders):
     return dict(enumerate(values))
 
 
-@pytest.mark.parametrize("orders", [(1.0, 2.0, 3.0, 4.0, 5.0, 6.0), (2.0, 0.5, 8.0, 3.0)],
-                         ids=["default orders", "pow and eighth power"])
+@pytest.mark.parametrize("orders", [(1.0, 2.0, 3.0, 4.0, 5.0, 6.0), (2.0, 0.5, 8.0, 3.0),
+                                    (3.0, 1.5), (2.0,)],
+                         ids=["default orders", "pow and eighth power", "third power and pow",
+                              "second power only"])
 @pytest.mark.parametrize("particles, batches", [(305, 2), (1700, 2)],
                          ids=["blocks below a tile", "blocks cut into two segments"])
 def test_moment_sums_follow_the_documented_lane_order(particles, batches, orders):
