@@ -218,20 +218,45 @@ def _lane_sum(values):
     return ((c[0] + c[1]) + (c[2] + c[3])) + ((c[4] + c[5]) + (c[6] + c[7]))
 
 
+def _column_values(d, orders):
+    """Every moment column's value per particle, by the scalar definitions (module docstring
+    of ``kernel``): plain products in the written order, |·|^n for integer n ≤ 8 as running
+    products, other orders by the C library's pow (``math.pow``)."""
+    dx, dy = d[:, 0], d[:, 1]
+    dx2, dy2 = dx * dx, dy * dy
+    r2 = dx2 + dy2
+    values = [dx, dy, dx2, dy2, dx * dy, r2 * r2, dx2 * dx, dy2 * dy, dx2 * dx2, dy2 * dy2]
+    for order in orders:
+        for base in (np.abs(dx), np.abs(dy), np.sqrt(r2)):
+            if order == int(order) and 1 <= order <= 8:
+                power = base
+                for _ in range(int(order) - 1):
+                    power = power * base
+            else:
+                power = np.array([math.pow(b, order) for b in base])
+            values.append(power)
+    return dict(enumerate(values))
+
+
+@pytest.mark.parametrize("orders", [(1.0, 2.0, 3.0, 4.0, 5.0, 6.0), (2.0, 0.5, 8.0, 3.0),
+                                    (3.0, 1.5), (2.0,)],
+                         ids=["default orders", "pow and eighth power", "third power and pow",
+                              "second power only"])
 @pytest.mark.parametrize("particles, batches", [(305, 2), (1700, 2)],
                          ids=["blocks below a tile", "blocks cut into two segments"])
-def test_moment_sums_follow_the_documented_lane_order(particles, batches):
+def test_moment_sums_follow_the_documented_lane_order(particles, batches, orders):
     """Every block's sums are lane sums (see ``kernel.LANES``) over the block, or over its
     fixed segments when it is longer than a tile (``_tile_length``), added to the block in
-    segment order; rebuilt here from the tracked positions, bit for bit, for a chunk of the
-    whole ensemble and for chunks of three blocks."""
+    segment order; rebuilt here from the tracked positions, bit for bit, for every column
+    (the scalar definitions of the values), for a chunk of the whole ensemble and for chunks
+    of three blocks.  The blocks of 38 particles end in partial groups of lanes."""
     from eddyhop.engine.kernel import _tile_length
     from eddyhop.starts import sample_starts
 
     steps = 6
     study = make_study(run={"particles": particles, "batches": batches, "tracked": particles,
                             "track_samples": steps, "dt": 0.05, "t_end": steps * 0.05,
-                            "n_times": 3})
+                            "n_times": 3}, moments={"orders": list(orders)})
     schedule = build_schedule(study.run, study.aging, study.run.track_samples)
     ctx, _, _ = runner._make_context(study, schedule)
     block = ctx.block_size
@@ -247,8 +272,8 @@ def test_moment_sums_follow_the_documented_lane_order(particles, batches):
             for slot, out_step in enumerate(schedule.out_steps):
                 d = tracks[:, steps_tracked.index(out_step)] - np.stack(
                     [x0[first:hi], y0[first:hi]], 1)
-                values = {0: d[:, 0], 3: d[:, 1] * d[:, 1],
-                          5: (d[:, 0] * d[:, 0] + d[:, 1] * d[:, 1]) ** 2}
+                values = _column_values(d, orders)
+                assert len(values) == moments.shape[2]
                 for b in range(moments.shape[0]):
                     lo, end = b * block, min((b + 1) * block, hi - first)
                     cuts = [lo]

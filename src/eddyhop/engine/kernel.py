@@ -64,7 +64,7 @@ BLOWUP_LIMIT = 1e150
 # Particles stepped together: long enough to vectorise the random-number loop and to spread
 # the per-step call overhead, short enough to keep the scratch in L1 (benchmarks/bench_kernel.py).
 TILE = 128
-MAX_PRODUCT_ORDER = 8
+MAX_PRODUCT_ORDER = 8  # at most 8: _add_powers sums up to eight powers per pass
 # Rows of the tile's cell-hopping state (float64, one column per tile particle): the counted
 # cell, the step it was entered, the cell where the current flight began, whether a flight is
 # on, and the vectorised test's mark "a hop is due this step".  Cell indices and steps are
@@ -77,13 +77,14 @@ HOP_ROWS = 7
 # c_i = (lane i + lane i+8) + (lane i+16 + lane i+24) for i < 8, and
 # ((c0 + c1) + (c2 + c3)) + ((c4 + c5) + (c6 + c7)), which is added to the block's column.
 # A fixed order, written out in the source, independent of the tiling, the chunking and the
-# machine's vector width (:func:`_vector_lanes` adds whole groups of 32 as four vectors of 8).
+# machine's vector width (:func:`_emit_lane_totals` adds groups of 32 as four vectors of 8).
 LANES = 32
-_VECTOR = 8  # doubles per vector of _vector_lanes (four independent add chains)
-# Rows of the moment scratch (``moment_rows``): Δx, Δy, two value rows, |Δx|, |Δy|, |ΔX|, their
-# running powers, the lanes.
-_DX, _DY, _V0, _V1, _AX, _AY, _AR, _PX, _PY, _PR, _LANES = range(11)
-MOMENT_ROWS = 11
+_VECTOR = 8  # doubles per lane vector (four independent add chains per sum)
+# Rows of the moment scratch (``moment_rows``, MOMENT_ROWS × (TILE + LANES): the padding lets
+# the lane sums load a last partial group whole): Δx, Δy, two value rows (pow), |Δx|, |Δy|,
+# |ΔX|, and the totals of one pass (:func:`_base_totals`, :func:`_power_totals`).
+_DX, _DY, _V0, _V1, _AX, _AY, _AR, _SUMS = range(8)
+MOMENT_ROWS = 8
 
 
 @intrinsic
@@ -94,7 +95,9 @@ def _borrowed(typingctx, array):
     around the call unless it can prove the pair redundant.  On the flow and noise parameter
     vectors, shared by all threads, those atomic updates cost several per particle-step and
     bounce one cache line between cores.  A NULL meminfo turns them into a null test.  Only
-    for arguments of the kernel: the caller keeps the array alive for the whole call.
+    for arrays that outlive every use of the view: the kernel's arguments (the caller keeps
+    them alive for the whole call) and its scratch passed to the event recorders inside the
+    tile loop (the loop keeps the owning variables alive).
     """
     def codegen(context, builder, signature, args):
         view = context.make_array(signature.args[0])(context, builder, value=args[0])
@@ -295,93 +298,256 @@ def _product_orders(orders):
     return products
 
 
-@intrinsic
-def _vector_lanes(typingctx, row, start, end, lanes):
-    """Lane sums (see ``LANES``) of ``row[start ..]`` over its whole groups of ``LANES``
-    entries below ``end``, stored in ``lanes[0 .. LANES - 1]``; returns where they stop.
+def _emit_lane_totals(context, builder, rows, start, end, values, count):
+    """LLVM code of ``count`` lane sums (see ``LANES``) over entries ``start .. end - 1``:
+    ``values(inputs)`` maps the input vectors (eight consecutive entries of each row of
+    ``rows``, data pointers) to ``count`` value vectors, each added to its own 32 lanes;
+    returns the ``count`` totals (scalars).
 
-    Written as LLVM vector code: numba compiles with LLVM's SLP vectoriser off and the loop
-    vectoriser may not reorder a floating-point sum, so eight scalar lanes would stay eight
-    scalar add chains.  Four vectors of eight lanes, each added element-wise (IEEE, no
-    reassociation), give the same numbers as the scalar definition on any vector width.
-    ``row`` and ``lanes``: C-contiguous float64 arrays, ``lanes`` of at least LANES entries.
+    Lane j adds the values of entries start + j, start + j + 32, … in ascending order from
+    +0.0 (four vectors of eight lanes per sum, added element-wise: IEEE, no reassociation).
+    In a last partial group the inputs past ``end`` are replaced by +0.0 before ``values`` is
+    applied; every value of zero inputs must be +0.0, which leaves every lane unchanged (a lane
+    that starts at +0.0 is never -0.0, and x + 0.0 = x for every other x, NaN and infinities
+    included).  Then c = (lanes 0-7 + lanes 8-15) + (lanes 16-23 + lanes 24-31) element-wise
+    and ((c0 + c1) + (c2 + c3)) + ((c4 + c5) + (c6 + c7)) by pairwise shuffles, four sums at a
+    time: the numbers of the scalar definition, on any vector width.  Values are computed with
+    plain IEEE operations (no contraction), as the scalar expressions they replace.
     """
-    contiguous = (isinstance(row, types.Array) and row.layout == "C" and row.ndim == 1
-                  and row.dtype == types.float64 and isinstance(lanes, types.Array)
-                  and lanes.layout == "C" and lanes.ndim == 1
-                  and lanes.dtype == types.float64)
-    if not contiguous:
+    i64 = ir.IntType(64)
+    i32 = ir.IntType(32)
+    vector = ir.VectorType(ir.DoubleType(), _VECTOR)
+    zero = ir.Constant(vector, [0.0] * _VECTOR)
+    width = ir.Constant(i64, LANES)
+    groups = LANES // _VECTOR
+    before = builder.block
+    head = builder.append_basic_block("lanes.head")
+    body = builder.append_basic_block("lanes.body")
+    tail = builder.append_basic_block("lanes.tail")
+    partial = builder.append_basic_block("lanes.partial")
+    done = builder.append_basic_block("lanes.done")
+    builder.branch(head)
+    builder.position_at_end(head)
+    k = builder.phi(i64)
+    k.add_incoming(start, before)
+    sums = []
+    for _ in range(count * groups):
+        phi = builder.phi(vector)
+        phi.add_incoming(zero, before)
+        sums.append(phi)
+    builder.cbranch(builder.icmp_signed("<=", builder.add(k, width), end), body, tail)
+
+    def load(data, a):
+        pointer = builder.gep(data, [builder.add(k, ir.Constant(i64, _VECTOR * a))])
+        return builder.load(builder.bitcast(pointer, vector.as_pointer()), align=8)
+
+    def accumulate(inputs_of):
+        added = []
+        for a in range(groups):
+            for c, value in enumerate(values(inputs_of(a))):
+                added.append((c * groups + a, builder.fadd(sums[c * groups + a], value)))
+        return [value for _, value in sorted(added, key=lambda pair: pair[0])]
+
+    builder.position_at_end(body)
+    added = accumulate(lambda a: [load(data, a) for data in rows])
+    for phi, value in zip(sums, added):
+        phi.add_incoming(value, body)
+    k.add_incoming(builder.add(k, width), body)
+    builder.branch(head)
+    # the last partial group (if any): inputs past ``end`` replaced by +0.0
+    builder.position_at_end(tail)
+    left = builder.sub(end, k)
+    builder.cbranch(builder.icmp_signed(">", left, ir.Constant(i64, 0)), partial, done)
+    builder.position_at_end(partial)
+    i64_vector = ir.VectorType(i64, _VECTOR)
+    left_splat = builder.insert_element(ir.Constant(i64_vector, None), left,
+                                        ir.Constant(i32, 0))
+    left_splat = builder.shuffle_vector(left_splat, ir.Constant(i64_vector, None),
+                                        ir.Constant(ir.VectorType(i32, _VECTOR),
+                                                    [0] * _VECTOR))
+
+    def masked_inputs(a):
+        offsets = ir.Constant(i64_vector, [_VECTOR * a + j for j in range(_VECTOR)])
+        inside = builder.icmp_signed("<", offsets, left_splat)
+        return [builder.select(inside, load(data, a), zero) for data in rows]
+
+    topped = accumulate(masked_inputs)
+    builder.branch(done)
+    builder.position_at_end(done)
+    lanes = []
+    for phi_sum, value in zip(sums, topped):
+        merged = builder.phi(vector)
+        merged.add_incoming(phi_sum, tail)
+        merged.add_incoming(value, partial)
+        lanes.append(merged)
+
+    def pick(value, indices):
+        return builder.shuffle_vector(value, value,
+                                      ir.Constant(ir.VectorType(i32, len(indices)), indices))
+
+    def pair(first, second, indices):
+        return builder.shuffle_vector(first, second,
+                                      ir.Constant(ir.VectorType(i32, len(indices)), indices))
+
+    folded = []
+    for c in range(count):
+        v = lanes[c * groups:(c + 1) * groups]
+        folded.append(builder.fadd(builder.fadd(v[0], v[1]), builder.fadd(v[2], v[3])))
+    folded += [zero] * (-count % 4)  # the tree runs on four sums at once
+    evens = list(range(0, 2 * _VECTOR, 2))
+    odds = list(range(1, 2 * _VECTOR, 2))
+    totals = []
+    for a in range(0, len(folded), 4):
+        # c0 + c1, c2 + c3, … of two sums per vector; then (c0 + c1) + (c2 + c3) and
+        # (c4 + c5) + (c6 + c7) of four sums per vector; then their sum, per sum
+        pairs = [builder.fadd(pair(x, y, evens), pair(x, y, odds))
+                 for x, y in (folded[a:a + 2], folded[a + 2:a + 4])]
+        quads = builder.fadd(pair(pairs[0], pairs[1], evens), pair(pairs[0], pairs[1], odds))
+        whole = builder.fadd(pick(quads, [0, 2, 4, 6]), pick(quads, [1, 3, 5, 7]))
+        totals += [builder.extract_element(whole, ir.Constant(i32, j)) for j in range(4)]
+    return totals[:count]
+
+
+def _is_row(value):
+    return (isinstance(value, types.Array) and value.layout == "C" and value.ndim == 1
+            and value.dtype == types.float64)
+
+
+def _row_data(context, builder, row_type, row):
+    return context.make_array(row_type)(context, builder, value=row).data
+
+
+@intrinsic
+def _lane_total(typingctx, row, start, end):
+    """Sum of ``row[start .. end - 1]`` in the order ``LANES`` defines, in vector registers
+    (:func:`_emit_lane_totals`).  ``row``: C-contiguous float64 with at least ``LANES - 1``
+    readable entries past ``end`` (a partial group is loaded whole, the entries past ``end``
+    replaced by +0.0)."""
+    if not _is_row(row):
         return None
 
     def codegen(context, builder, signature, args):
-        data = context.make_array(signature.args[0])(context, builder, value=args[0]).data
-        out = context.make_array(signature.args[3])(context, builder, value=args[3]).data
-        start_index = context.cast(builder, args[1], signature.args[1], types.int64)
-        end_index = context.cast(builder, args[2], signature.args[2], types.int64)
-        i64 = ir.IntType(64)
-        vector = ir.VectorType(ir.DoubleType(), _VECTOR)
-        zero = ir.Constant(vector, [0.0] * _VECTOR)
-        width = ir.Constant(i64, LANES)
-        before = builder.block
-        head = builder.append_basic_block("lanes.head")
-        body = builder.append_basic_block("lanes.body")
-        done = builder.append_basic_block("lanes.done")
-        builder.branch(head)
-        builder.position_at_end(head)
-        k = builder.phi(i64)
-        k.add_incoming(start_index, before)
-        sums = []
-        for _ in range(LANES // _VECTOR):
-            phi = builder.phi(vector)
-            phi.add_incoming(zero, before)
-            sums.append(phi)
-        builder.cbranch(builder.icmp_signed("<=", builder.add(k, width), end_index), body,
-                        done)
-        builder.position_at_end(body)
-        added = []
-        for a, phi in enumerate(sums):
-            pointer = builder.gep(data, [builder.add(k, ir.Constant(i64, _VECTOR * a))])
-            value = builder.load(builder.bitcast(pointer, vector.as_pointer()), align=8)
-            added.append(builder.fadd(phi, value))
-        for phi, value in zip(sums, added):
-            phi.add_incoming(value, body)
-        k.add_incoming(builder.add(k, width), body)
-        builder.branch(head)
-        builder.position_at_end(done)
-        for a, phi in enumerate(sums):
-            pointer = builder.gep(out, [ir.Constant(i64, _VECTOR * a)])
-            builder.store(phi, builder.bitcast(pointer, vector.as_pointer()), align=8)
-        return k
+        first = context.cast(builder, args[1], signature.args[1], types.int64)
+        stop = context.cast(builder, args[2], signature.args[2], types.int64)
+        data = _row_data(context, builder, signature.args[0], args[0])
+        [total] = _emit_lane_totals(context, builder, [data], first, stop,
+                                    lambda inputs: inputs, 1)
+        return total
 
-    return types.int64(row, start, end, lanes), codegen
+    return types.float64(row, start, end), codegen
 
 
-@jit(inline="always")
-def _lane_sum(row, s, e, lanes):
-    """Sum of row[s .. e - 1] in the order ``LANES`` defines (``lanes``: scratch)."""
-    k = _vector_lanes(row, s, e, lanes)
-    for j in range(e - k):  # the last partial group: the first e - k lanes
-        lanes[j] += row[k + j]
-    c0 = (lanes[0] + lanes[8]) + (lanes[16] + lanes[24])
-    c1 = (lanes[1] + lanes[9]) + (lanes[17] + lanes[25])
-    c2 = (lanes[2] + lanes[10]) + (lanes[18] + lanes[26])
-    c3 = (lanes[3] + lanes[11]) + (lanes[19] + lanes[27])
-    c4 = (lanes[4] + lanes[12]) + (lanes[20] + lanes[28])
-    c5 = (lanes[5] + lanes[13]) + (lanes[21] + lanes[29])
-    c6 = (lanes[6] + lanes[14]) + (lanes[22] + lanes[30])
-    c7 = (lanes[7] + lanes[15]) + (lanes[23] + lanes[31])
-    return ((c0 + c1) + (c2 + c3)) + ((c4 + c5) + (c6 + c7))
+def _store_totals(context, builder, out_type, out, totals):
+    data = _row_data(context, builder, out_type, out)
+    for c, total in enumerate(totals):
+        builder.store(total, builder.gep(data, [ir.Constant(ir.IntType(64), c)]))
+
+
+def _base_values_first(builder, inputs):
+    dx, dy = inputs
+    return [dx, dy, builder.fmul(dx, dx), builder.fmul(dy, dy), builder.fmul(dx, dy)]
+
+
+def _base_values_second(builder, inputs):
+    dx, dy = inputs
+    dx2 = builder.fmul(dx, dx)
+    dy2 = builder.fmul(dy, dy)
+    r2 = builder.fadd(dx2, dy2)
+    return [builder.fmul(r2, r2), builder.fmul(dx2, dx), builder.fmul(dy2, dy),
+            builder.fmul(dx2, dx2), builder.fmul(dy2, dy2)]
+
+
+@intrinsic
+def _base_totals(typingctx, dx, dy, start, end, part, out):
+    """Lane sums (``LANES`` order) over entries ``start .. end - 1`` of five of the
+    ``MOMENT_COLUMNS`` from the rows ``dx``, ``dy``, stored in ``out[0 .. 4]``: part 0 (a
+    literal) Δx, Δy, Δx·Δx, Δy·Δy, Δx·Δy; part 1 (Δx²+Δy²)², Δx²·Δx, Δy²·Δy, Δx²·Δx², Δy²·Δy²
+    (Δx² = Δx·Δx), the products of the scalar definitions.  Five sums per pass keep the
+    twenty lane vectors in registers.  Rows as for :func:`_lane_total`."""
+    if not (_is_row(dx) and _is_row(dy) and _is_row(out)):
+        return None
+    if not isinstance(part, types.IntegerLiteral):
+        return None
+    values = _base_values_first if part.literal_value == 0 else _base_values_second
+
+    def codegen(context, builder, signature, args):
+        first = context.cast(builder, args[2], signature.args[2], types.int64)
+        stop = context.cast(builder, args[3], signature.args[3], types.int64)
+        rows = [_row_data(context, builder, signature.args[a], args[a]) for a in (0, 1)]
+        totals = _emit_lane_totals(context, builder, rows, first, stop,
+                                   lambda inputs: values(builder, inputs), 5)
+        _store_totals(context, builder, signature.args[5], args[5], totals)
+        return context.get_dummy_value()
+
+    return types.none(dx, dy, start, end, part, out), codegen
+
+
+@intrinsic
+def _power_totals(typingctx, row, start, end, count, out):
+    """Lane sums (``LANES`` order) over entries ``start .. end - 1`` of row^1 … row^count
+    (``count`` a literal), stored in ``out[0 .. count - 1]``: the n-th power is the (n-1)-th
+    times the row, the running products of :func:`_abs_power`.  Rows as for
+    :func:`_lane_total`."""
+    if not (_is_row(row) and _is_row(out)):
+        return None
+    if not isinstance(count, types.IntegerLiteral):
+        return None
+    n = count.literal_value
+
+    def powers(builder, inputs):
+        [base] = inputs
+        result = [base]
+        for _ in range(n - 1):
+            result.append(builder.fmul(result[-1], base))
+        return result
+
+    def codegen(context, builder, signature, args):
+        first = context.cast(builder, args[1], signature.args[1], types.int64)
+        stop = context.cast(builder, args[2], signature.args[2], types.int64)
+        data = _row_data(context, builder, signature.args[0], args[0])
+        totals = _emit_lane_totals(context, builder, [data], first, stop,
+                                   lambda inputs: powers(builder, inputs), n)
+        _store_totals(context, builder, signature.args[4], args[4], totals)
+        return context.get_dummy_value()
+
+    return types.none(row, start, end, count, out), codegen
 
 
 @jit
-def _add_row(moments, slot, column, row, lo, m, block_size, lanes):
+def _add_row(moments, slot, column, row, lo, m, block_size):
     """Add ``row[g]`` of tile particles ``0 .. m-1`` (chunk particles ``lo ..``) to column
     ``column`` of their blocks' sums: one lane sum per block segment (see ``LANES``)."""
     block = lo // block_size
     s = 0
     e = min((block + 1) * block_size - lo, m)
     while s < m:
-        moments[block, slot, column] += _lane_sum(row, s, e, lanes)
+        moments[block, slot, column] += _lane_total(row, s, e)
+        block += 1
+        s = e
+        e = min(e + block_size, m)
+
+
+@jit
+def _add_powers(moments, slot, family, row, lo, m, block_size, products, most, totals):
+    """Add row^n (tile particles ``0 .. m-1``, chunk particles ``lo ..``) to the columns of
+    the integer orders n = ``products[q]`` of ``family`` (0: |Δx|, 1: |Δy|, 2: |ΔX|), one
+    :func:`_power_totals` pass per block segment (``most``: the highest n)."""
+    block = lo // block_size
+    s = 0
+    e = min((block + 1) * block_size - lo, m)
+    while s < m:
+        # powers up to the next even count: at most 32 lane vectors, all in registers
+        if most <= 2:
+            _power_totals(row, s, e, 2, totals)
+        elif most <= 4:
+            _power_totals(row, s, e, 4, totals)
+        elif most <= 6:
+            _power_totals(row, s, e, 6, totals)
+        else:
+            _power_totals(row, s, e, 8, totals)
+        for q in range(products.size):
+            if products[q] > 0:
+                moments[block, slot, N_BASE + 3 * q + family] += totals[products[q] - 1]
         block += 1
         s = e
         e = min(e + block_size, m)
@@ -392,54 +558,39 @@ def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, produ
     """Add the displacements of tile particles ``0 .. m-1`` (chunk particles ``lo ..``) to the
     sums ``moments[block, slot]`` (columns: module docstring).
 
-    Vectorised over the tile: each column's values are a row of ``rows`` (scratch of
-    ``MOMENT_ROWS`` rows of at least ``TILE`` entries), summed per block segment in lanes
-    (:func:`_add_row`).  |Δx|^n, |Δy|^n, |ΔX|^n for integer orders are running products
-    (the n-th is the (n-1)-th times the base, the products of :func:`_abs_power`).
+    Vectorised over the tile: Δx, Δy (and |Δx|, |Δy|, |ΔX| when orders are asked for) are rows
+    of ``rows`` (scratch of ``MOMENT_ROWS`` rows of ``TILE + LANES`` entries); the columns are
+    computed from them inside the lane sums, per block segment, several columns per pass
+    (:func:`_base_totals`, :func:`_power_totals`); orders that are not products use ``pow``
+    on a row (:func:`_add_row`).  |Δx|^n, |Δy|^n, |ΔX|^n for integer orders are running
+    products (the n-th is the (n-1)-th times the base, the products of :func:`_abs_power`).
     """
     dx = rows[_DX]
     dy = rows[_DY]
-    v0 = rows[_V0]
-    v1 = rows[_V1]
-    lanes = rows[_LANES]
+    totals = rows[_SUMS]
     for g in range(m):
         dx[g] = xs[g] - x0[lo + g]
         dy[g] = ys[g] - y0[lo + g]
-    _add_row(moments, slot, 0, dx, lo, m, block_size, lanes)
-    _add_row(moments, slot, 1, dy, lo, m, block_size, lanes)
-    for g in range(m):
-        v0[g] = dx[g] * dx[g]
-        v1[g] = dy[g] * dy[g]
-    _add_row(moments, slot, 2, v0, lo, m, block_size, lanes)
-    _add_row(moments, slot, 3, v1, lo, m, block_size, lanes)
-    for g in range(m):
-        dx2 = dx[g] * dx[g]
-        dy2 = dy[g] * dy[g]
-        r2 = dx2 + dy2
-        v0[g] = dx[g] * dy[g]
-        v1[g] = r2 * r2
-    _add_row(moments, slot, 4, v0, lo, m, block_size, lanes)
-    _add_row(moments, slot, 5, v1, lo, m, block_size, lanes)
-    for g in range(m):
-        v0[g] = (dx[g] * dx[g]) * dx[g]
-        v1[g] = (dy[g] * dy[g]) * dy[g]
-    _add_row(moments, slot, 6, v0, lo, m, block_size, lanes)
-    _add_row(moments, slot, 7, v1, lo, m, block_size, lanes)
-    for g in range(m):
-        dx2 = dx[g] * dx[g]
-        dy2 = dy[g] * dy[g]
-        v0[g] = dx2 * dx2
-        v1[g] = dy2 * dy2
-    _add_row(moments, slot, 8, v0, lo, m, block_size, lanes)
-    _add_row(moments, slot, 9, v1, lo, m, block_size, lanes)
+    block = lo // block_size
+    s = 0
+    e = min((block + 1) * block_size - lo, m)
+    while s < m:
+        _base_totals(dx, dy, s, e, 0, totals)
+        for c in range(5):
+            moments[block, slot, c] += totals[c]
+        _base_totals(dx, dy, s, e, 1, totals)
+        for c in range(5):
+            moments[block, slot, 5 + c] += totals[c]
+        block += 1
+        s = e
+        e = min(e + block_size, m)
     if orders.size == 0:
         return
     ax = rows[_AX]
     ay = rows[_AY]
     ar = rows[_AR]
-    px = rows[_PX]
-    py = rows[_PY]
-    pr = rows[_PR]
+    v0 = rows[_V0]
+    v1 = rows[_V1]
     for g in range(m):
         ax[g] = abs(dx[g])
         ay[g] = abs(dy[g])
@@ -451,27 +602,15 @@ def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, produ
             for g in range(m):
                 v0[g] = ax[g] ** orders[q]
                 v1[g] = ay[g] ** orders[q]
-            _add_row(moments, slot, N_BASE + 3 * q, v0, lo, m, block_size, lanes)
-            _add_row(moments, slot, N_BASE + 3 * q + 1, v1, lo, m, block_size, lanes)
+            _add_row(moments, slot, N_BASE + 3 * q, v0, lo, m, block_size)
+            _add_row(moments, slot, N_BASE + 3 * q + 1, v1, lo, m, block_size)
             for g in range(m):
                 v0[g] = ar[g] ** orders[q]
-            _add_row(moments, slot, N_BASE + 3 * q + 2, v0, lo, m, block_size, lanes)
-    for n in range(1, most + 1):
-        if n == 1:
-            for g in range(m):
-                px[g] = ax[g]
-                py[g] = ay[g]
-                pr[g] = ar[g]
-        else:
-            for g in range(m):
-                px[g] *= ax[g]
-                py[g] *= ay[g]
-                pr[g] *= ar[g]
-        for q in range(orders.size):
-            if products[q] == n:
-                _add_row(moments, slot, N_BASE + 3 * q, px, lo, m, block_size, lanes)
-                _add_row(moments, slot, N_BASE + 3 * q + 1, py, lo, m, block_size, lanes)
-                _add_row(moments, slot, N_BASE + 3 * q + 2, pr, lo, m, block_size, lanes)
+            _add_row(moments, slot, N_BASE + 3 * q + 2, v0, lo, m, block_size)
+    if most > 0:
+        _add_powers(moments, slot, 0, ax, lo, m, block_size, products, most, totals)
+        _add_powers(moments, slot, 1, ay, lo, m, block_size, products, most, totals)
+        _add_powers(moments, slot, 2, ar, lo, m, block_size, products, most, totals)
 
 
 @jit
@@ -583,7 +722,7 @@ def run_particles(
     words = np.empty((4, TILE), dtype=np.uint64)
     z = np.zeros((4, TILE))
     products = _product_orders(orders)
-    moment_rows = np.zeros((MOMENT_ROWS, TILE))
+    moment_rows = np.zeros((MOMENT_ROWS, TILE + LANES))
     walls = has_walls(fcode)
     n = x0.size
     lo = 0
@@ -643,10 +782,19 @@ def run_particles(
                                    fl_log_low, fl_inv_width, residence_hist, flight_hist,
                                    hop_count)
             if not failed:
-                _record_event(e, lo, m, block_size, xs, ys, x0, y0, ref,
-                              ev_out, ev_track, ev_ref, aged_ptr, aged_a, aged_l, orders,
-                              products, moment_rows, moments, aged, tracks, n_tracked_here)
-                _record_velocity(e, lo, m, block_size, xs, ys, step * dt, fcode, fp, ev_vref,
-                                 vc_ptr, vc_r, vc_l, vref, tile_u, tile_v, vcorr)
+                # every array borrowed (see _borrowed): the callees' reference counting
+                # of a dozen arrays per call and tile would otherwise be atomic updates
+                _record_event(e, lo, m, block_size, _borrowed(xs), _borrowed(ys),
+                              _borrowed(x0), _borrowed(y0), _borrowed(ref), _borrowed(ev_out),
+                              _borrowed(ev_track), _borrowed(ev_ref), _borrowed(aged_ptr),
+                              _borrowed(aged_a), _borrowed(aged_l), _borrowed(orders),
+                              _borrowed(products), _borrowed(moment_rows), _borrowed(moments),
+                              _borrowed(aged), _borrowed(tracks), n_tracked_here)
+                if ev_vref[e] >= 0 or vc_ptr[e] < vc_ptr[e + 1]:  # velocity work due
+                    _record_velocity(e, lo, m, block_size, _borrowed(xs), _borrowed(ys),
+                                     step * dt, fcode, fp, _borrowed(ev_vref),
+                                     _borrowed(vc_ptr), _borrowed(vc_r), _borrowed(vc_l),
+                                     _borrowed(vref), _borrowed(tile_u), _borrowed(tile_v),
+                                     _borrowed(vcorr))
         if failed:
             return

@@ -43,11 +43,13 @@ def _scheme_cost(study) -> float:
         cost *= max(1.0, advective / 0.1) if advective == advective else 10.0
     return cost
 # per particle, the work at events (measured on the 2-vCPU development machine): an output
-# time with the six default moment orders (28 columns) costs 11.6 ns per particle with the
-# vectorised lane sums, runner fold included (benchmarks/bench_time_to_answer.py, kernel
-# group), so 0.5 ns per column; 9 ns per aged (t_a, lag) pair (tests/test_cost.py runs, whole
-# simulate() CPU time minus the step figure above)
-NS_PER_OUTPUT_COLUMN = 0.5
+# time with the six default moment orders (28 columns) costs ≈ 5 ns per particle with blocks of
+# 256 particles and ≈ 9 ns with blocks of 31 (a 4000-particle study), runner fold included
+# (columns computed inside the lane sums; benchmarks/bench_time_to_answer.py, kernel group, and
+# the same study at 4000 particles), so 0.18-0.32 ns per column: 0.3, the small-block figure
+# (small studies are the ones whose outputs weigh); 9 ns per aged (t_a, lag) pair
+# (tests/test_cost.py runs, whole simulate() CPU time minus the step figure above)
+NS_PER_OUTPUT_COLUMN = 0.3
 NS_PER_AGED_PAIR = 9.0
 # per particle and (reference time, lag) pair of the velocity correlation: one vectorised flow
 # evaluation and six sums, ≈ 10 ns (benchmarks/bench_velocity.py: +2.2 ns per particle-step at
