@@ -41,9 +41,13 @@ class KernelCache(FunctionCache):
     """numba's per-function disk cache, loading hits without refreshing the whole CPU target."""
 
     def load_overload(self, sig, target_context):
-        _prepare_for_cached_code(target_context)
-        with self._guard_against_spurious_io_errors():
-            return self._load_overload(sig, target_context)
+        try:
+            _prepare_for_cached_code(target_context)
+            load, guard = self._load_overload, self._guard_against_spurious_io_errors
+        except (ImportError, AttributeError):  # a numba whose internals differ: its own path
+            return super().load_overload(sig, target_context)
+        with guard():
+            return load(sig, target_context)
 
 
 def use_light_loading(dispatcher) -> None:
@@ -51,5 +55,5 @@ def use_light_loading(dispatcher) -> None:
 
     Call where numba's ``config.CACHE_DIR`` is what the dispatcher was decorated with: the
     cache's locator reads it when made."""
-    if isinstance(getattr(dispatcher, "_cache", None), FunctionCache):
+    if type(getattr(dispatcher, "_cache", None)) is FunctionCache:
         dispatcher._cache = KernelCache(dispatcher.py_func)
