@@ -52,3 +52,19 @@ def test_log_ticks_read_plainly_on_a_narrow_axis():
     figure.draw_without_rendering()
     assert not [t.get_text() for t in ax.yaxis.get_minorticklabels() if t.get_text()]
     assert np.isfinite(ax.get_ylim()).all()
+
+
+def test_log_decades_are_plain_superscripts_not_math_text():
+    # a power of ten needs no math layout (each math label is parsed once per renderer); any
+    # other label keeps matplotlib's math text
+    from eddyhop.presentation.plots._style import DecadeLabels
+
+    _figure, ax = new_figure()
+    ax.set_xscale("log")
+    ax.set_xlim(1e-3, 1e3)
+    tidy_log_axes(ax)
+    formatter = ax.xaxis.get_major_formatter()
+    assert isinstance(formatter, DecadeLabels().__class__.__mro__[1])  # a LogFormatterMathtext
+    assert formatter.format_ticks([1e-3, 1.0, 10.0, 1e3]) == ["10⁻³", "10⁰", "10¹", "10³"]
+    assert "$" not in "".join(formatter.format_ticks([1e-2, 1e2]))
+    assert formatter(0.0).startswith("$")  # not a power of ten: math text as before

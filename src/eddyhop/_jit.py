@@ -93,8 +93,11 @@ class LazyDispatcher:
                     settings = dict(self._settings)
                     if _EXTRA_KEYS:  # an outside family is registered: in memory only
                         settings["cache"] = False
+                    from ._kernel_loading import use_light_loading
+
                     with _cache_dir_for_decoration():
                         dispatcher = numba.njit(**settings)(self.py_func)
+                        use_light_loading(dispatcher)  # cache hits skip numba's full start-up
                     _DISPATCHERS.append(dispatcher)
                     self._dispatcher = dispatcher
         return self._dispatcher

@@ -12,8 +12,14 @@ distributed client can be active before ``distributed`` is imported.  So:
   that answers "no dask array type" while ``dask.array`` is not imported and, from the moment
   anyone imports it, hands over to xarray's real record (the answers stay exact whatever
   happens later in the process: a user may still open a chunked dataset);
-* :func:`no_distributed_probe` blocks the import of ``distributed`` for the duration of one
-  write if, and only if, nothing imported it before — exactly the answer the probe would get.
+* the same function gives xarray's ``is_dask_collection`` (asked of every array that becomes
+  an index, ≈ 0.06 s to import ``dask`` for the answer) dask's own answer for an object with
+  no callable ``__dask_graph__`` — "not a collection" — without importing dask, while nothing
+  has imported it; any other object, or any object once dask is loaded, goes to dask;
+* :func:`no_distributed_probe` (around one netCDF write): while nothing has imported dask, it
+  gives xarray's writers a scheduler probe that answers "no dask scheduler is active" without
+  importing dask; once dask is loaded, it blocks the import of ``distributed`` for the write
+  if, and only if, nothing imported it before — exactly the answer the probe would get.
 
 Both rely on xarray internals (``xarray.namedarray.pycompat``); if those change they do
 nothing and xarray imports dask as before (``tests/test_startup_imports.py`` notices).
@@ -84,6 +90,31 @@ def spare_unused_dask() -> None:
     with _LOCK:
         if "dask" not in cache:
             cache["dask"] = _DaskRecordStandIn(cache, real_record)
+    _spare_collection_probe()
+
+
+def _spare_collection_probe() -> None:
+    """Answer xarray's ``is_dask_collection(x)`` for plain objects without importing dask."""
+    try:
+        from xarray.namedarray import utils
+    except ImportError:  # pragma: no cover - an xarray without namedarray
+        return
+    real = getattr(utils, "is_dask_collection", None)
+    if real is None or getattr(real, "spares_dask", False):
+        return
+
+    def is_dask_collection(x) -> bool:
+        # dask.base.is_dask_collection: a class, or an object without a callable
+        # __dask_graph__, is not a collection; that part needs no dask
+        if "dask" not in sys.modules and (
+                isinstance(x, type) or not callable(getattr(x, "__dask_graph__", None))):
+            return False
+        return real(x)
+
+    is_dask_collection.spares_dask = True
+    is_dask_collection.__wrapped__ = real
+    with _LOCK:
+        utils.is_dask_collection = is_dask_collection
 
 
 @contextlib.contextmanager
@@ -96,6 +127,11 @@ def no_distributed_probe():
     threads share the block; the last one out lifts it.
     """
     global _BLOCKED_WRITES
+    if "dask" not in sys.modules and _spare_scheduler_probe():
+        # no dask object can exist yet, so no dask scheduler is active: the stand-in says so
+        # without importing dask (nor, through it, distributed)
+        yield
+        return
     with _LOCK:
         blocking = ("distributed" not in sys.modules or (
             _BLOCKED_WRITES > 0 and sys.modules.get("distributed") is None)) and (
@@ -111,6 +147,41 @@ def no_distributed_probe():
                 _BLOCKED_WRITES -= 1
                 if _BLOCKED_WRITES == 0 and sys.modules.get("distributed", 0) is None:
                     del sys.modules["distributed"]
+
+
+def _spare_scheduler_probe() -> bool:
+    """Give xarray's writers a ``get_dask_scheduler`` that answers "no dask scheduler is active"
+    (``None``, as when dask is not installed) while nothing has imported dask.
+
+    The answer only chooses the lock and the auto-closing of a write that computes dask
+    chunks; without dask imported no array can be chunked, and the lock is then the threads'
+    lock whatever dask's configuration names (the same lock the real probe picks for its
+    "threaded" answer).  Once dask is imported the real probe answers.  Returns whether the
+    stand-in is in place (False for an xarray without these internals)."""
+    try:
+        from xarray.backends import locks, writers
+    except ImportError:  # pragma: no cover - an xarray without these modules
+        return False
+    real = getattr(locks, "get_dask_scheduler", None)
+    if real is None:  # pragma: no cover
+        return False
+    if getattr(real, "spares_dask", False):
+        return getattr(writers, "get_dask_scheduler", None) is real
+    real_writers = getattr(writers, "get_dask_scheduler", None)
+    if real_writers is not real:  # pragma: no cover - xarray rearranged: leave it alone
+        return False
+
+    def get_dask_scheduler(get=None, collection=None):
+        if "dask" not in sys.modules and get is None and collection is None:
+            return None
+        return real(get, collection)
+
+    get_dask_scheduler.spares_dask = True
+    get_dask_scheduler.__wrapped__ = real
+    with _LOCK:
+        locks.get_dask_scheduler = get_dask_scheduler
+        writers.get_dask_scheduler = get_dask_scheduler
+    return True
 
 
 def _scheduler_configured() -> bool:

@@ -26,6 +26,7 @@ The writer also enforces two CF rules that xarray does not: coordinate variables
 from __future__ import annotations
 
 import datetime as _dt
+import functools
 import hashlib
 import os
 import platform as _platform
@@ -65,7 +66,15 @@ def _distribution_version(name: str) -> str:
 
 def software_versions() -> dict:
     """``{attribute: version}`` of eddyhop, Python, the numerical dependencies, the netCDF-C
-    and HDF5 libraries under netCDF4, and the platform (all strings)."""
+    and HDF5 libraries under netCDF4, and the platform (all strings).
+
+    Looked up once per process (reading the installed distributions' metadata costs ~10 ms
+    each time, and a run or a plot stamps several files); the caller gets its own copy."""
+    return dict(_software_versions())
+
+
+@functools.lru_cache(maxsize=1)
+def _software_versions() -> dict:
     out = {"eddyhop_version": __version__,
            "python_version": _platform.python_version()}
     for attribute, name in DEPENDENCIES:

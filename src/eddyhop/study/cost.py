@@ -208,19 +208,23 @@ def estimate(study, points: int = 1, workers: int | None = None) -> Cost:
 
 
 def available_memory() -> int | None:
-    """Bytes of memory available to a new allocation now, or None if it cannot be read."""
-    try:
-        import psutil
+    """Bytes of memory available to a new allocation now, or None if it cannot be read.
 
-        return int(psutil.virtual_memory().available)
-    except Exception:  # psutil absent or unsupported: fall back
-        pass
+    Linux's own estimate (``MemAvailable`` in /proc/meminfo, the number psutil reports
+    there) is read directly, sparing every run the import of psutil (≈ 15 ms); psutil
+    answers elsewhere."""
     try:
         with open("/proc/meminfo", encoding="ascii") as handle:
             for line in handle:
                 if line.startswith("MemAvailable:"):
                     return int(line.split()[1]) * 1024
     except (OSError, ValueError, IndexError):
+        pass
+    try:
+        import psutil
+
+        return int(psutil.virtual_memory().available)
+    except Exception:  # psutil absent or unsupported
         pass
     return None
 
