@@ -70,7 +70,7 @@ K14 = -1.0 / 87178291200.0
 K16 = 1.0 / 20922789888000.0
 
 
-@jit
+@jit(inline="always")
 def _reduced(x):
     """(sin x, cos x) for |x| ≤ LIMIT by reduction and polynomials; no branch."""
     q = np.rint(x * TWO_OVER_PI)
