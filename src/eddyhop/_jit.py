@@ -125,7 +125,7 @@ def _compile_without_literals(dispatcher) -> None:
     """Make a call from compiled code compile (or reuse) the callee for the argument types
     with their constant values dropped.
 
-    Numba types a constant argument (``_add_row(..., 3, ...)``, ``sincos(x, True)``) as a
+    Numba types a constant argument (``_add_row(..., 3, ...)``) as a
     literal and first tries a specialisation of the callee for that value: every distinct
     constant then compiles the whole callee again (ten copies of one moment-sum helper, 3 s
     of a cold start).  The kernels never need a callee specialised on a plain constant —

@@ -2,7 +2,7 @@
 
 Pure numba, no I/O.  The *fine* path of a particle is the very path the ensemble kernel
 (``kernel.run_particles``) integrates: the same normals (Philox keyed by seed, global particle
-index and step), the same tile step (``integrators.advance_tile``), the same wall handling.  The
+index and step), the same tile step (``kernel._step_tile``), the same wall handling.  The
 *coarse* path takes steps of 2·dt driven by the same Brownian increments — the coupling of
 multilevel Monte Carlo (Giles 2008, "Multilevel Monte Carlo path simulation", Oper. Res. 56(3),
 607–617): a coarse increment is the sum of the fine increments it spans, so the coarse and
