@@ -98,6 +98,7 @@ class LazyDispatcher:
                     with _cache_dir_for_decoration():
                         dispatcher = numba.njit(**settings)(self.py_func)
                         use_light_loading(dispatcher)  # cache hits skip numba's full start-up
+                    _compile_without_literals(dispatcher)
                     _DISPATCHERS.append(dispatcher)
                     self._dispatcher = dispatcher
         return self._dispatcher
@@ -121,6 +122,30 @@ class LazyDispatcher:
     def __repr__(self):
         state = "compiled" if self._dispatcher is not None else "not yet made"
         return f"<eddyhop jit function {self.__module__}.{self.__qualname__} ({state})>"
+
+
+def _compile_without_literals(dispatcher) -> None:
+    """Make a call from compiled code compile (or reuse) the callee for the argument types
+    with their constant values dropped.
+
+    Numba types a constant argument (``_add_row(..., 3, ...)``) as a
+    literal and first tries a specialisation of the callee for that value: every distinct
+    constant then compiles the whole callee again (ten copies of one moment-sum helper, 3 s
+    of a cold start).  The kernels never need a callee specialised on a plain constant —
+    compile-time codes are ``flows.compiled.CompiledCode`` values, whose type is not a
+    literal, and ``inline="always"`` callees are inlined before typing — so each callee is
+    compiled once per non-literal signature.  LLVM still sees the constant when it inlines
+    the call.
+    """
+    from numba.core import types
+
+    resolve = dispatcher.get_call_template
+
+    def get_call_template(args, kws):
+        return resolve(tuple(types.unliteral(a) for a in args),
+                       {name: types.unliteral(value) for name, value in kws.items()})
+
+    dispatcher.get_call_template = get_call_template
 
 
 def _module_attribute(module: str, qualname: str):

@@ -44,8 +44,10 @@ from __future__ import annotations
 
 import math
 
+from numba.extending import overload
+
 from .._jit import jit
-from ..flows.compiled import fast_tile_velocity, velocity
+from ..flows.compiled import fast_tile_velocity, specialised_code, velocity
 from .noise import CONSTANT, diffusivity
 
 EULER_MARUYAMA = 0
@@ -166,6 +168,58 @@ def tile_velocity(fcode, fp, xs, ys, t, us, vs, m):
                 us[g], vs[g] = velocity(fcode, xs[g], ys[g], t, fp)
 
 
+def _scheme_tile_step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
+                      work):
+    raise NotImplementedError("compiled only")
+
+
+# Scheme selection at compile time: called with a constant scheme code (a CompiledCode, as the
+# kernels pass it) only that scheme's tile step is typed and compiled — typing the unused
+# steppers was a third of advance_tile's compile time.  A run-time code (a test calling
+# advance_tile from Python) gets every stepper and a branch.  Inlined (a one-call body), so
+# no call with array arguments is added per tile; the kernels' own selection
+# (``kernel._step_tile``) calls the scheme's stepper directly.
+@overload(_scheme_tile_step, inline="always", prefer_literal=True,
+          jit_options={"error_model": "numpy", "fastmath": False})
+def _overload_scheme_tile_step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m,
+                               x_new, y_new, work):
+    code = specialised_code(scheme)
+    if code == EULER_MARUYAMA or code == MILSTEIN:
+        def step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
+                 work):
+            tile_noise_step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m,
+                             x_new, y_new, work)
+    elif code == STRANG_RK2:
+        def step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
+                 work):
+            tile_strang_step(fcode, fp, nq, xs, ys, t, dt, z, m, x_new, y_new, work)
+    elif code == RK4:
+        def step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
+                 work):
+            tile_rk4_step(fcode, fp, xs, ys, t, dt, m, x_new, y_new, work)
+    elif code is not None:  # projected_rk45 or unknown: not stepped here (see advance)
+        def step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
+                 work):
+            for g in range(m):
+                x_new[g] = math.nan
+                y_new[g] = math.nan
+    else:
+        def step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
+                 work):
+            if scheme == EULER_MARUYAMA or scheme == MILSTEIN:
+                tile_noise_step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m,
+                                 x_new, y_new, work)
+            elif scheme == STRANG_RK2:
+                tile_strang_step(fcode, fp, nq, xs, ys, t, dt, z, m, x_new, y_new, work)
+            elif scheme == RK4:
+                tile_rk4_step(fcode, fp, xs, ys, t, dt, m, x_new, y_new, work)
+            else:
+                for g in range(m):
+                    x_new[g] = math.nan
+                    y_new[g] = math.nan
+    return step
+
+
 @jit
 def advance_tile(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
                  work):
@@ -173,54 +227,74 @@ def advance_tile(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_n
 
     ``z[slot, g]`` are the particles' N(0,1) draws (slots as in :func:`advance`'s z0..z3); the
     end points go to ``x_new``, ``y_new``; ``work`` is scratch of ``TILE_WORK_ROWS`` rows.
+    Not for ``projected_rk45`` (nan end points, as :func:`advance`).
     """
+    _scheme_tile_step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
+                      work)
+
+
+@jit
+def tile_noise_step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
+                     work):
+    """Euler–Maruyama or Milstein step of a tile (see :func:`advance_tile`)."""
     us = work[0]
     vs = work[1]
-    if scheme == EULER_MARUYAMA or scheme == MILSTEIN:
-        tile_velocity(fcode, fp, xs, ys, t, us, vs, m)
-        constant = ncode == CONSTANT
-        # constant κ: diffusivity() would return (κ, 0.0, 0.0) for every particle
-        sigma_constant = math.sqrt(2.0 * nq[0]) if constant else 0.0
-        for g in range(m):
-            x = xs[g]
-            y = ys[g]
-            if constant:
-                sigma = sigma_constant
-                dkx = 0.0
-                dky = 0.0
-            else:
-                kappa, dkx, dky = diffusivity(ncode, x, y, nq)
-                sigma = math.sqrt(2.0 * kappa)
-            dwx = sqrt_dt * z[0, g]
-            dwy = sqrt_dt * z[1, g]
-            if scheme == EULER_MARUYAMA:
-                x_new[g] = x + euler_maruyama_increment(us[g] + dkx, sigma, dt, dwx)
-                y_new[g] = y + euler_maruyama_increment(vs[g] + dky, sigma, dt, dwy)
-            else:
-                cross = 0.5 * dwx * dwy
-                x_new[g] = x + milstein_increment(us[g] + dkx, sigma, dkx, dt, dwx) + dky * cross
-                y_new[g] = y + milstein_increment(vs[g] + dky, sigma, dky, dt, dwy) + dkx * cross
-        return
+    tile_velocity(fcode, fp, xs, ys, t, us, vs, m)
+    constant = ncode == CONSTANT
+    # constant κ: diffusivity() would return (κ, 0.0, 0.0) for every particle
+    sigma_constant = math.sqrt(2.0 * nq[0]) if constant else 0.0
+    for g in range(m):
+        x = xs[g]
+        y = ys[g]
+        if constant:
+            sigma = sigma_constant
+            dkx = 0.0
+            dky = 0.0
+        else:
+            kappa, dkx, dky = diffusivity(ncode, x, y, nq)
+            sigma = math.sqrt(2.0 * kappa)
+        dwx = sqrt_dt * z[0, g]
+        dwy = sqrt_dt * z[1, g]
+        if scheme == EULER_MARUYAMA:
+            x_new[g] = x + euler_maruyama_increment(us[g] + dkx, sigma, dt, dwx)
+            y_new[g] = y + euler_maruyama_increment(vs[g] + dky, sigma, dt, dwy)
+        else:
+            cross = 0.5 * dwx * dwy
+            x_new[g] = x + milstein_increment(us[g] + dkx, sigma, dkx, dt, dwx) + dky * cross
+            y_new[g] = y + milstein_increment(vs[g] + dky, sigma, dky, dt, dwy) + dkx * cross
+
+
+@jit
+def tile_strang_step(fcode, fp, nq, xs, ys, t, dt, z, m, x_new, y_new, work):
+    """strang_rk2 step of a tile (see :func:`advance_tile`)."""
+    us = work[0]
+    vs = work[1]
     half = 0.5 * dt
     xa = work[2]
     ya = work[3]
-    if scheme == STRANG_RK2:
-        spread = math.sqrt(nq[0] * dt)
-        for g in range(m):
-            xa[g] = xs[g] + spread * z[0, g]
-            ya[g] = ys[g] + spread * z[1, g]
-        tile_velocity(fcode, fp, xa, ya, t, us, vs, m)
-        xm = work[4]
-        ym = work[5]
-        for g in range(m):
-            xm[g] = xa[g] + half * us[g]
-            ym[g] = ya[g] + half * vs[g]
-        tile_velocity(fcode, fp, xm, ym, t + half, us, vs, m)
-        for g in range(m):
-            x_new[g] = (xa[g] + dt * us[g]) + spread * z[2, g]
-            y_new[g] = (ya[g] + dt * vs[g]) + spread * z[3, g]
-        return
-    # RK4 (κ = 0): stages k1..k4 in rows (4, 5), (6, 7), (8, 9), (10, 11)
+    spread = math.sqrt(nq[0] * dt)
+    for g in range(m):
+        xa[g] = xs[g] + spread * z[0, g]
+        ya[g] = ys[g] + spread * z[1, g]
+    tile_velocity(fcode, fp, xa, ya, t, us, vs, m)
+    xm = work[4]
+    ym = work[5]
+    for g in range(m):
+        xm[g] = xa[g] + half * us[g]
+        ym[g] = ya[g] + half * vs[g]
+    tile_velocity(fcode, fp, xm, ym, t + half, us, vs, m)
+    for g in range(m):
+        x_new[g] = (xa[g] + dt * us[g]) + spread * z[2, g]
+        y_new[g] = (ya[g] + dt * vs[g]) + spread * z[3, g]
+
+
+@jit
+def tile_rk4_step(fcode, fp, xs, ys, t, dt, m, x_new, y_new, work):
+    """rk4 step of a tile (κ = 0; see :func:`advance_tile`): stages k1..k4 in rows (4, 5),
+    (6, 7), (8, 9), (10, 11) of ``work``."""
+    half = 0.5 * dt
+    xa = work[2]
+    ya = work[3]
     tile_velocity(fcode, fp, xs, ys, t, work[4], work[5], m)
     for g in range(m):
         xa[g] = xs[g] + half * work[4, g]

@@ -2,7 +2,7 @@
 
 Pure numba, no I/O.  The *fine* path of a particle is the very path the ensemble kernel
 (``kernel.run_particles``) integrates: the same normals (Philox keyed by seed, global particle
-index and step), the same tile step (``integrators.advance_tile``), the same wall handling.  The
+index and step), the same tile step (``kernel._step_tile``), the same wall handling.  The
 *coarse* path takes steps of 2·dt driven by the same Brownian increments — the coupling of
 multilevel Monte Carlo (Giles 2008, "Multilevel Monte Carlo path simulation", Oper. Res. 56(3),
 607–617): a coarse increment is the sum of the fine increments it spans, so the coarse and
@@ -33,8 +33,8 @@ import numpy as np
 
 from .._jit import jit
 from ..flows.compiled import confine, has_walls
-from .integrators import STRANG_RK2, TILE_WORK_ROWS, advance_tile
-from .kernel import BLOWUP_LIMIT, TILE, normal_pairs_per_step
+from .integrators import STRANG_RK2, TILE_WORK_ROWS
+from .kernel import BLOWUP_LIMIT, TILE, _step_tile, normal_pairs_per_step
 from .rng import fill_normals
 
 CHECK_COLUMNS = ("dx", "dy", "dx2", "dy2", "dxdy")
@@ -99,8 +99,8 @@ def run_step_check(fcode, fp, ncode, nq, scheme, dt, key0, key1, x0, y0, first_i
         for step in range(last):
             fill_normals(key0, key1, particle0, m, step, n_pairs, words, z)
             if with_fine:
-                advance_tile(scheme, fcode, fp, ncode, nq, xs, ys, step * dt, dt, sqrt_dt, z,
-                             m, x_new, y_new, work)
+                _step_tile(scheme, fcode, fp, ncode, nq, xs, ys, step * dt, dt, sqrt_dt, z, m,
+                           x_new, y_new, work)
                 if walls:
                     for g in range(m):
                         x_new[g], y_new[g] = confine(fcode, xs[g], ys[g], x_new[g], y_new[g],
@@ -123,8 +123,8 @@ def run_step_check(fcode, fp, ncode, nq, scheme, dt, key0, key1, x0, y0, first_i
                     zc[0, g] = z[0, g]
                     zc[1, g] = z[1, g]
             if odd:
-                advance_tile(scheme, fcode, fp, ncode, nq, xc, yc, (step - 1) * dt, coarse_dt,
-                             sqrt_coarse_dt, zc, m, xc_new, yc_new, work)
+                _step_tile(scheme, fcode, fp, ncode, nq, xc, yc, (step - 1) * dt, coarse_dt,
+                           sqrt_coarse_dt, zc, m, xc_new, yc_new, work)
                 if walls:
                     for g in range(m):
                         xc_new[g], yc_new[g] = confine(fcode, xc[g], yc[g], xc_new[g],
