@@ -10,6 +10,19 @@ import pytest
 os.environ.setdefault("MPLBACKEND", "Agg")
 
 
+def pytest_configure(config):
+    # The Ctrl-C tests check the package's own handling of SIGINT, in this process and in
+    # the commands they start.  A test run started in the background by a shell without job
+    # control inherits SIGINT *ignored* (and passes that on to every child), which would
+    # make those tests depend on how pytest was launched: restore Python's default handler.
+    import signal
+    import threading
+
+    if (threading.current_thread() is threading.main_thread()
+            and signal.getsignal(signal.SIGINT) is signal.SIG_IGN):
+        signal.signal(signal.SIGINT, signal.default_int_handler)
+
+
 def make_study(**sections):
     """A valid small study; keyword arguments override whole sections or single keys."""
     from eddyhop.study.spec import parse_study
