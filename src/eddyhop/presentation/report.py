@@ -25,7 +25,7 @@ from .. import __version__
 from ..analysis.verdicts import flag_meaning
 from ..errors import EddyhopError
 from ..results.io import atomic_write_text
-from .text import transition_words
+from .text import band_footnote, misses_centre, transition_words
 
 CAUTION = ("Research estimate from an idealised model flow. These numbers are not a validated "
            "engineering correlation and are not for the design of real equipment: for heat or "
@@ -367,6 +367,8 @@ def regimes_html(ds) -> str:
     if "regime_label" not in ds.variables or _is_sweep(ds):
         return ""
     rows = []
+    footnote = False
+    bounds = "regime_alpha_lower" in ds.variables and "regime_alpha_upper" in ds.variables
     for start in _starts(ds):
         part = _part(ds, start)
         labels = np.atleast_1d(part["regime_label"].values)
@@ -374,7 +376,11 @@ def regimes_html(ds) -> str:
             if not str(label):
                 continue
             se = part["regime_alpha_se"].values[i] if "regime_alpha_se" in part else None
-            rows.append((_e(_start_name(ds, start)), _e(label),
+            marked = bounds and misses_centre(
+                str(label), np.atleast_1d(part["regime_alpha_lower"].values)[i],
+                np.atleast_1d(part["regime_alpha_upper"].values)[i])
+            footnote = footnote or marked
+            rows.append((_e(_start_name(ds, start)), _e(label) + (" *" if marked else ""),
                          _number(part["regime_start"].values[i]),
                          _number(part["regime_end"].values[i]),
                          _with_error(part["regime_alpha"].values[i], se)))
@@ -385,7 +391,8 @@ def regimes_html(ds) -> str:
     return ("<h3>Regimes</h3>" + _table(("start region", "regime", f"from t{units}",
                                          f"to t{units}", "mean α (± SE)"), rows, 2)
             + (f"<p class='meta'>Classes by the local exponent α: {_e(note)}.</p>"
-               if note else ""))
+               if note else "")
+            + (f"<p class='meta'>{_e(band_footnote(''))}.</p>" if footnote else ""))
 
 
 def crossovers_html(ds) -> str:

@@ -153,6 +153,29 @@ def _regimes(part):
     return [(i, lab) for i, lab in enumerate(labels) if lab]
 
 
+# Classes named after one exponent (analysis.regimes: a segment gets such a label when its
+# interval meets only that exponent's band, not when it contains the exponent).
+_BAND_CENTRES = {"diffusive": 1, "ballistic": 2}
+
+
+def misses_centre(label: str, lower, upper) -> bool:
+    """Whether a ``diffusive`` (``ballistic``) regime's interval excludes 1 (2) — a slow
+    approach to the limit or a delayed linear growth gives α̂ = 1.2 with a narrow interval."""
+    centre = _BAND_CENTRES.get(str(label))
+    if centre is None or not (_finite(lower) and _finite(upper)):
+        return False
+    return not float(lower) <= centre <= float(upper)
+
+
+def band_footnote(tolerances: str) -> str:
+    """The note for regimes marked by :func:`misses_centre` (``tolerances``: the
+    ``regime_label`` attribute of that name, quoted when present)."""
+    rule = tolerances.split(";")[0].strip().removeprefix("bands:").strip()
+    return ("* the interval excludes 1 (diffusive) or 2 (ballistic): a class is given by the "
+            "band its interval meets" + (f" ({rule})" if rule else "")
+            + ", not by containing the exponent")
+
+
 def _regime_lines(part):
     regimes = _regimes(part)
     if not regimes:
@@ -169,6 +192,7 @@ def _regime_lines(part):
         else "1"
     shown = "" if tunits in ("", "1") else f" {tunits}"
     width = max(len(label) for _, label in regimes)
+    marked = False
     for i, label in regimes:
         first = float(np.atleast_1d(part["regime_start"].values)[i])
         last = float(np.atleast_1d(part["regime_end"].values)[i])
@@ -178,11 +202,16 @@ def _regime_lines(part):
             low = np.atleast_1d(part["regime_alpha_lower"].values)[i]
             high = np.atleast_1d(part["regime_alpha_upper"].values)[i]
             text += f"{_alpha(alpha)} [{_alpha(low)}, {_alpha(high)}]"
+            if misses_centre(label, low, high):
+                text += " *"
+                marked = True
         else:
             se = np.atleast_1d(part["regime_alpha_se"].values)[i] \
                 if "regime_alpha_se" in part.variables else np.nan
             text += _alpha(alpha) + (f" ± {_g(se, 2)}" if _finite(se) else "")
         out.append(text)
+    if marked:
+        out.append("    " + band_footnote(str(part["regime_label"].attrs.get("tolerances", ""))))
     return out
 
 
