@@ -69,14 +69,18 @@ def _legend(figure, handles):
 
 
 def _guide(ax, t, anchor_t, anchor_y, exponent, text, left=True):
-    """Dashed reference power law y ∝ t^exponent through (anchor_t, anchor_y)."""
+    """Dashed reference power law y ∝ t^exponent through (anchor_t, anchor_y).
+
+    ``left``: label left of the line's middle (the early guide, which rises above the
+    curves); otherwise under the line's left end, running right (the late guide, drawn under
+    every curve: the rising line moves away from the text)."""
     y = anchor_y * (t / anchor_t) ** exponent
     (line,) = ax.plot(t, y, color=GUIDE, lw=1.0, ls=(0, (4, 3)), zorder=1)
     line.set_gid(f"guide_slope_{exponent:g}")
-    middle = len(t) // 2
-    ax.annotate(text, (t[middle], y[middle]), textcoords="offset points",
-                xytext=(-6, 0) if left else (0, -12), fontsize=8, color=GUIDE,
-                ha="right" if left else "center")
+    at = len(t) // 2 if left else 0
+    ax.annotate(text, (t[at], y[at]), textcoords="offset points",
+                xytext=(-6, 0) if left else (2, -4), fontsize=8, color=GUIDE,
+                ha="right" if left else "left", va="center" if left else "top")
     return line
 
 
@@ -116,8 +120,10 @@ def msd_figure(ds, *, variable: str = "msd", start=None, guides: bool = True,
         early = tt[: max(3, len(tt) // 4)]
         late = tt[-max(3, len(tt) // 4):]
         _guide(ax, early, tt[0], yy[0], 2.0, "∝ t²  ballistic", left=True)
-        # drawn a factor 3 below the data so that it never hides the curve
-        _guide(ax, late, tt[-1], yy[-1] / 3.0, 1.0, "∝ t  diffusive", left=False)
+        # a factor 3 below the lowest curve's last point, so that neither the line nor its
+        # label (under the line) meets a curve that steepens late
+        lowest = min(y_[-1] for _, y_ in drawn)
+        _guide(ax, late, tt[-1], lowest / 3.0, 1.0, "∝ t  diffusive", left=False)
     ax.set_xscale("log")
     ax.set_yscale("log")
     tidy_log_axes(ax)
