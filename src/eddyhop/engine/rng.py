@@ -143,11 +143,13 @@ def philox4x32(c0, c1, c2, c3, k0, k1):
     return c0, c1, c2, c3
 
 
-@jit
 def split_seed(seed):
-    """The 64-bit seed as the two 32-bit key words."""
-    s = np.uint64(seed)
-    return s & _MASK, (s >> _SHIFT) & _MASK
+    """The 64-bit seed (taken modulo 2**64) as the two 32-bit key words (Python ints).
+
+    Plain Python: the runner calls it once per run, and a compiled version cost a dispatcher
+    compile on a cold start and a cache load on every run."""
+    s = int(seed) % 2**64
+    return s & 0xFFFFFFFF, s >> 32
 
 
 @jit
@@ -173,12 +175,6 @@ def _candidate(word):
 
 
 @jit
-def _uniform(word):
-    """Uniform in (0, 1) from the top 53 bits of a word."""
-    return (float(np.int64(word >> _UNIFORM_SHIFT)) + 0.5) * _INV_2_53
-
-
-@jit
 def _rejection_normal(k0, k1, particle, step, slot, word):
     """Finish a normal whose first word was not accepted at once (wedge or tail).
 
@@ -199,15 +195,20 @@ def _rejection_normal(k0, k1, particle, step, slot, word):
             while attempt <= MAX_ATTEMPTS:
                 extra_a, extra_b = _words(k0, k1, particle, step, 4 * attempt + slot)
                 attempt += 1
-                tail = -math.log(_uniform(extra_a)) / _R
-                if -2.0 * math.log(_uniform(extra_b)) > tail * tail:
+                # uniforms in (0, 1) from the top 53 bits (written out: a called helper
+                # costs a compile)
+                tail = -math.log((float(np.int64(extra_a >> _UNIFORM_SHIFT)) + 0.5)
+                                 * _INV_2_53) / _R
+                if -2.0 * math.log((float(np.int64(extra_b >> _UNIFORM_SHIFT)) + 0.5)
+                                   * _INV_2_53) > tail * tail:
                     return sign * (_R + tail)
             return sign * _R
         # Wedge: a uniform height in [f(x_i), f(x_{i+1})] under f(x) accepts; otherwise
         # start again from an unused word.
         extra_a, extra_b = _words(k0, k1, particle, step, 4 * attempt + slot)
         attempt += 1
-        height = _ZF[layer] + _uniform(extra_b) * (_ZF[layer + 1] - _ZF[layer])
+        uniform = (float(np.int64(extra_b >> _UNIFORM_SHIFT)) + 0.5) * _INV_2_53  # in (0, 1)
+        height = _ZF[layer] + uniform * (_ZF[layer + 1] - _ZF[layer])
         if height < math.exp(-0.5 * value * value):
             return value
         word = extra_a
@@ -341,8 +342,8 @@ def fill_normals(k0, k1, first_particle, count, step, n_pairs, words, z):
                 value = float(np.int64(word >> _UNIFORM_SHIFT)) * _ZW[layer]
                 if word & _SIGN_BIT:
                     value = -value
-                # _uniform(extra_b) and _candidate(extra_a) written out: each inlined or
-                # called helper here costs compile time
+                # the uniform of extra_b and _candidate(extra_a) written out: each inlined
+                # or called helper costs compile time
                 uniform = (float(np.int64(extra_b >> _UNIFORM_SHIFT)) + 0.5) * _INV_2_53
                 height = _ZF[layer] + uniform * (_ZF[layer + 1] - _ZF[layer])
                 wedge = height < math.exp(-0.5 * value * value)
@@ -359,8 +360,7 @@ def fill_normals(k0, k1, first_particle, count, step, n_pairs, words, z):
 
 
 @jit
-def _fill_normals(seed, particles, steps, out):
-    k0, k1 = split_seed(seed)
+def _fill_normals(k0, k1, particles, steps, out):
     for i in range(particles.size):
         for j in range(steps.size):
             z0, z1, z2, z3 = normals4(k0, k1, particles[i], steps[j])
@@ -378,7 +378,7 @@ def normal_draws(seed: int, particles, steps) -> np.ndarray:
     particles = np.asarray(particles, dtype=np.int64)
     steps = np.asarray(steps, dtype=np.int64)
     out = np.empty((particles.size, steps.size, 4))
-    _fill_normals(seed, particles, steps, out)
+    _fill_normals(*split_seed(seed), particles, steps, out)
     return out
 
 
