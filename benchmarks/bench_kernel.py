@@ -15,9 +15,11 @@ Euler–Maruyama step of the cellular flow ψ = (U/k) sin kx sin ky, U = k = 1, 
   the machine's scaling from the runner's.
 * per-step cost of every integrator relative to Euler–Maruyama (kernel, one thread).
 * the Euler–Maruyama step split into its parts (CPU time, same N, steps and tiles as the
-  kernel): ``normals`` (``rng.fill_normals``, one Philox block → 2 normals per particle-step),
-  ``flow`` (``integrators.tile_velocity`` of the cellular flow) and ``rest`` (the raw kernel
-  minus both: the update, the blow-up test, the step loop, the output times), and the distance
+  kernel): ``normals`` (``rng.fill_normals``, one Philox block → 2 normals per particle-step;
+  itself split into its three passes: the Philox words, the ziggurat's common case with the
+  refusal masks, the ≈ 1.5 % refused draws), ``flow`` (``integrators.tile_velocity`` of the
+  cellular flow) and ``rest`` (the raw kernel minus both: the update, the blow-up test, the
+  step loop, the output times), and the distance
   of the whole to the ≈ 5 ns per particle-step instruction-issue limit the issue quotes.
 """
 
@@ -84,11 +86,13 @@ ISSUE_LIMIT_NS = 5.0  # instruction-issue limit per particle-step quoted by issu
 def step_parts(study):
     """Callables that repeat the kernel's random-number and flow work of an Euler–Maruyama
     ``study`` alone, over the same particles, steps and tiles of ``kernel.TILE``:
-    ``{"normals": ..., "flow": ...}`` (each compiled on first use; call once before timing)."""
+    ``{"normals": ..., "normals: Philox": ..., "normals: Philox + common case": ...,
+    "flow": ...}`` (each compiled on first use; call once before timing).  The two partial
+    normals callables run the first one and two passes of ``rng.fill_normals`` alone."""
     import numba
 
     from eddyhop.engine.integrators import tile_velocity
-    from eddyhop.engine.rng import fill_normals, split_seed
+    from eddyhop.engine.rng import _candidates, _fill_words, fill_normals, split_seed
     from eddyhop.flows.compiled import CompiledCode
 
     @numba.njit
@@ -97,6 +101,28 @@ def step_parts(study):
             m = min(TILE, n - lo)
             for step in range(steps):
                 fill_normals(k0, k1, lo, m, step, 1, words, z)
+
+    @numba.njit
+    def philox(k0, k1, n, steps, words):
+        for lo in range(0, n, TILE):
+            m = min(TILE, n - lo)
+            for step in range(steps):
+                _fill_words(np.uint64(k0), np.uint64(k1), lo, m, np.uint64(step), np.uint64(0),
+                            0, words)
+
+    @numba.njit
+    def common_case(k0, k1, n, steps, words, z):
+        refused = np.uint64(0)
+        for lo in range(0, n, TILE):
+            m = min(TILE, n - lo)
+            for step in range(steps):
+                _fill_words(np.uint64(k0), np.uint64(k1), lo, m, np.uint64(step), np.uint64(0),
+                            0, words)
+                for first in range(0, m, 64):
+                    last = min(first + 64, m)
+                    refused |= _candidates(words, 0, first, last, z)
+                    refused |= _candidates(words, 1, first, last, z)
+        return refused
 
     @numba.njit
     def flow(fcode, fp, x0, y0, steps, dt, xs, ys, us, vs):
@@ -124,8 +150,20 @@ def step_parts(study):
     scratch = [np.empty(TILE) for _ in range(4)]
     return {
         "normals": lambda: normals(k0, k1, n, steps, words, z),
+        "normals: Philox": lambda: philox(k0, k1, n, steps, words),
+        "normals: Philox + common case": lambda: common_case(k0, k1, n, steps, words, z),
         "flow": lambda: flow(fcode, fp, x0, y0, steps, study.run.dt, *scratch),
     }
+
+
+def normals_passes(times, work):
+    """CPU ns per particle-step of the three passes of ``rng.fill_normals``: (Philox words,
+    common case with the refusal masks, refused draws), from the partial callables of
+    :func:`step_parts` (differences of CPU times measured in the same run)."""
+    normals = times["normals"][1] / work * 1e9
+    philox = times["normals: Philox"][1] / work * 1e9
+    common = times["normals: Philox + common case"][1] / work * 1e9
+    return philox, common - philox, normals - common
 
 
 def parts_table(times, work, kernel_name="raw kernel, 1 thread") -> str:
@@ -134,7 +172,11 @@ def parts_table(times, work, kernel_name="raw kernel, 1 thread") -> str:
     total = times[kernel_name][1] / work * 1e9
     normals = times["normals"][1] / work * 1e9
     flow = times["flow"][1] / work * 1e9
+    philox, common, refused = normals_passes(times, work)
     rows = [["normals (rng.fill_normals)", normals, normals / total],
+            ["  pass 1: Philox4x32-10 words", philox, philox / total],
+            ["  pass 2: ziggurat common case, refusal masks", common, common / total],
+            ["  pass 3: the ≈ 1.5 % refused draws", refused, refused / total],
             ["flow (integrators.tile_velocity, cellular)", flow, flow / total],
             ["rest (update, tests, step loop, outputs)", total - normals - flow,
              (total - normals - flow) / total],

@@ -321,7 +321,7 @@ def outputs_and_hopping(particles: int, steps: int, repeats: int) -> None:
     import dataclasses
 
     hop = dataclasses.replace(few, hopping=dataclasses.replace(few.hopping, enabled=True))
-    from bench_kernel import ISSUE_LIMIT_NS, step_parts
+    from bench_kernel import ISSUE_LIMIT_NS, normals_passes, step_parts
 
     parts = step_parts(few)  # the step's normals and flow alone, same particles and tiles
     run_ensemble(few, progress=False)
@@ -334,12 +334,15 @@ def outputs_and_hopping(particles: int, steps: int, repeats: int) -> None:
     step_ns = 1e9 * best["few"][1] / (particles * steps)
     normals_ns = 1e9 * best["normals"][1] / (particles * steps)
     flow_ns = 1e9 * best["flow"][1] / (particles * steps)
+    philox_ns, common_ns, refused_ns = normals_passes(best, particles * steps)
     per_output = 1e9 * (best["many"][1] - best["few"][1]) / (particles * (steps - 4))
     row("kernel, Euler–Maruyama, cellular flow, one thread (CPU time)",
         f"{step_ns:.1f} ns per particle-step (N = {particles}, {steps} steps, incl. runner): "
-        f"normals {normals_ns:.1f}, flow {flow_ns:.1f}, rest {step_ns - normals_ns - flow_ns:.1f}; "
-        f"the instruction-issue limit is ~{ISSUE_LIMIT_NS:g} ns: "
-        f"{step_ns / ISSUE_LIMIT_NS:.1f}× from it",
+        f"normals {normals_ns:.1f} (Philox {philox_ns:.2f}, common case {common_ns:.2f}, "
+        f"refused draws {refused_ns:.2f}), flow {flow_ns:.1f}, "
+        f"rest {step_ns - normals_ns - flow_ns:.1f}; the instruction-issue limit is "
+        f"~{ISSUE_LIMIT_NS:g} ns: {step_ns / ISSUE_LIMIT_NS:.1f}× from it, "
+        f"{step_ns - ISSUE_LIMIT_NS:.1f} ns above it",
         "≤ 8 ns", step_ns <= 8.0)
     row("each output time (six default moment orders)",
         f"{per_output:.1f} ns per particle = {per_output / step_ns:.2f} steps (blocks of "

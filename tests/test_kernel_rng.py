@@ -144,9 +144,10 @@ def test_every_rejection_path_of_the_tile_equals_one_at_a_time():
     """The tile path finishes the refused words after its vectorised passes, in its own
     order; bit for bit it must give ``normals4``'s values on every path of the rejection
     step: wedge accepted, wedge refused with the next word accepted at once, wedge refused
-    twice, and the base layer's tail.  1.3×10⁵ draws (4037 particles, a ragged last group,
-    8 steps, 4 slots); the paths are counted from the words themselves and must each occur
-    (a fixed seed: the counts are deterministic)."""
+    twice, and the base layer's tail (the tile's branch-free first retry settles the first
+    two and hands the last two to ``rng._rejection_normal``).  1.3×10⁵ draws (4037
+    particles, a ragged last group, 8 steps, 4 slots); the paths are counted from the words
+    themselves and must each occur (a fixed seed: the counts are deterministic)."""
     seed = 424242
     k0, k1 = split_seed(seed)
     count = 4037
@@ -180,3 +181,12 @@ def test_every_rejection_path_of_the_tile_equals_one_at_a_time():
             else:
                 paths["refused twice"] += 1
     assert min(paths.values()) > 0, paths
+
+
+def test_split_seed_gives_the_key_words_of_the_stream_definition():
+    """Key = the 64-bit seed split into its low and high 32-bit words (rng module docstring);
+    plain Python now (no compile on a cold start), it keeps the values the compiled one gave."""
+    assert split_seed(0) == (0, 0)
+    assert split_seed(0x0123456789ABCDEF) == (0x89ABCDEF, 0x01234567)
+    assert split_seed(2**63 - 1) == (0xFFFFFFFF, 0x7FFFFFFF)
+    assert split_seed(-1) == (0xFFFFFFFF, 0xFFFFFFFF)  # as np.uint64(-1) wrapped

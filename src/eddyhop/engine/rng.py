@@ -143,11 +143,13 @@ def philox4x32(c0, c1, c2, c3, k0, k1):
     return c0, c1, c2, c3
 
 
-@jit
 def split_seed(seed):
-    """The 64-bit seed as the two 32-bit key words."""
-    s = np.uint64(seed)
-    return s & _MASK, (s >> _SHIFT) & _MASK
+    """The 64-bit seed (taken modulo 2**64) as the two 32-bit key words (Python ints).
+
+    Plain Python: the runner calls it once per run, and a compiled version cost a dispatcher
+    compile on a cold start and a cache load on every run."""
+    s = int(seed) % 2**64
+    return s & 0xFFFFFFFF, s >> 32
 
 
 @jit
@@ -173,12 +175,6 @@ def _candidate(word):
 
 
 @jit
-def _uniform(word):
-    """Uniform in (0, 1) from the top 53 bits of a word."""
-    return (float(np.int64(word >> _UNIFORM_SHIFT)) + 0.5) * _INV_2_53
-
-
-@jit
 def _rejection_normal(k0, k1, particle, step, slot, word):
     """Finish a normal whose first word was not accepted at once (wedge or tail).
 
@@ -199,15 +195,20 @@ def _rejection_normal(k0, k1, particle, step, slot, word):
             while attempt <= MAX_ATTEMPTS:
                 extra_a, extra_b = _words(k0, k1, particle, step, 4 * attempt + slot)
                 attempt += 1
-                tail = -math.log(_uniform(extra_a)) / _R
-                if -2.0 * math.log(_uniform(extra_b)) > tail * tail:
+                # uniforms in (0, 1) from the top 53 bits (written out: a called helper
+                # costs a compile)
+                tail = -math.log((float(np.int64(extra_a >> _UNIFORM_SHIFT)) + 0.5)
+                                 * _INV_2_53) / _R
+                if -2.0 * math.log((float(np.int64(extra_b >> _UNIFORM_SHIFT)) + 0.5)
+                                   * _INV_2_53) > tail * tail:
                     return sign * (_R + tail)
             return sign * _R
         # Wedge: a uniform height in [f(x_i), f(x_{i+1})] under f(x) accepts; otherwise
         # start again from an unused word.
         extra_a, extra_b = _words(k0, k1, particle, step, 4 * attempt + slot)
         attempt += 1
-        height = _ZF[layer] + _uniform(extra_b) * (_ZF[layer + 1] - _ZF[layer])
+        uniform = (float(np.int64(extra_b >> _UNIFORM_SHIFT)) + 0.5) * _INV_2_53  # in (0, 1)
+        height = _ZF[layer] + uniform * (_ZF[layer + 1] - _ZF[layer])
         if height < math.exp(-0.5 * value * value):
             return value
         word = extra_a
@@ -278,9 +279,11 @@ def fill_normals(k0, k1, first_particle, count, step, n_pairs, words, z):
     2. per slot and group of 64 lanes, the ziggurat's common case into ``z`` and a bit mask
        of the ~1.5 % of draws that need the wedge or tail test (:func:`_candidates`,
        vectorised, an OR reduction);
-    3. per pair of slots and 128 lanes, the marked lanes, finished one at a time by
-       :func:`_rejection_normal` in one loop over the four masks (one hard-to-predict loop
-       exit, not one per mask: that alone saved ≈ 0.4 ns per particle-step).
+    3. per pair of slots and 128 lanes, the marked lanes in one loop over the four masks
+       (one hard-to-predict loop exit, not one per mask: that alone saved ≈ 0.4 ns per
+       particle-step), each finished by a branch-free first retry (the extra block, the
+       wedge test and the next word chosen by selects) and, for the ≈ 3 % of them that
+       retry leaves, by :func:`_rejection_normal`.
 
     Each finished draw is a pure function of (key, particle, step, slot), so the order of
     the passes changes no number (``tests/test_kernel_rng.py`` checks every path of the
@@ -321,13 +324,43 @@ def fill_normals(k0, k1, first_particle, count, step, n_pairs, words, z):
                     row = slot + 1
                     g = middle + np.int64(trailing_zeros(b1))
                     b1 &= b1 - np.uint64(1)
-                z[row, g] = _rejection_normal(key0, key1, first_particle + g, step, row,
-                                              words[row, g])
+                word = words[row, g]
+                # The first retry of the refused word without branches — the arithmetic of
+                # the first pass of _rejection_normal's loop: the extra block of tag
+                # 4 + slot, the wedge test of the word and, should the wedge refuse, the
+                # common case of the block's first word, the outcome chosen by selects — so
+                # that the refused draws of a tile overlap in the CPU instead of each
+                # waiting on its own mispredicted branches.  The ≈ 3 % it leaves unsettled
+                # (the base layer's tail, a word refused twice) go to _rejection_normal,
+                # which repeats this attempt and goes on: the same number either way.
+                q = np.uint64(first_particle + g)
+                r0, r1, r2, r3 = philox4x32(low, high | (np.uint64(4 + row) << _TAG_SHIFT),
+                                            q & _MASK, q >> _SHIFT, key0, key1)
+                extra_a = (r0 << _SHIFT) | r1
+                extra_b = (r2 << _SHIFT) | r3
+                layer = np.int64(word & _LAYER_BITS)
+                value = float(np.int64(word >> _UNIFORM_SHIFT)) * _ZW[layer]
+                if word & _SIGN_BIT:
+                    value = -value
+                # the uniform of extra_b and _candidate(extra_a) written out: each inlined
+                # or called helper costs compile time
+                uniform = (float(np.int64(extra_b >> _UNIFORM_SHIFT)) + 0.5) * _INV_2_53
+                height = _ZF[layer] + uniform * (_ZF[layer + 1] - _ZF[layer])
+                wedge = height < math.exp(-0.5 * value * value)
+                next_layer = np.int64(extra_a & _LAYER_BITS)
+                next_uniform = extra_a >> _UNIFORM_SHIFT
+                following = float(np.int64(next_uniform)) * _ZW[next_layer]
+                if extra_a & _SIGN_BIT:
+                    following = -following
+                if not wedge:
+                    value = following
+                if (layer == 0) | ((not wedge) & (next_uniform >= _ZK[next_layer])):
+                    value = _rejection_normal(key0, key1, first_particle + g, step, row, word)
+                z[row, g] = value
 
 
 @jit
-def _fill_normals(seed, particles, steps, out):
-    k0, k1 = split_seed(seed)
+def _fill_normals(k0, k1, particles, steps, out):
     for i in range(particles.size):
         for j in range(steps.size):
             z0, z1, z2, z3 = normals4(k0, k1, particles[i], steps[j])
@@ -345,7 +378,7 @@ def normal_draws(seed: int, particles, steps) -> np.ndarray:
     particles = np.asarray(particles, dtype=np.int64)
     steps = np.asarray(steps, dtype=np.int64)
     out = np.empty((particles.size, steps.size, 4))
-    _fill_normals(seed, particles, steps, out)
+    _fill_normals(*split_seed(seed), particles, steps, out)
     return out
 
 
