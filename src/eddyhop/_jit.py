@@ -75,9 +75,10 @@ class LazyDispatcher:
     function and needs no numba.
     """
 
-    def __init__(self, function, settings: dict):
+    def __init__(self, function, settings: dict, before_first_use=None):
         self.py_func = function
         self._settings = settings
+        self._before_first_use = before_first_use
         self._dispatcher = None
         functools.update_wrapper(self, function)
 
@@ -89,6 +90,9 @@ class LazyDispatcher:
             with _MAKING:
                 if self._dispatcher is None:
                     import numba
+
+                    if self._before_first_use is not None:
+                        self._before_first_use()  # e.g. make the intrinsics it calls
 
                     settings = dict(self._settings)
                     if _EXTRA_KEYS:  # an outside family is registered: in memory only
@@ -111,7 +115,7 @@ class LazyDispatcher:
 
     def __getattr__(self, name):
         # only for names not set on the wrapper itself: those of the dispatcher
-        if name.startswith("__") or name in ("_settings", "_dispatcher"):
+        if name.startswith("__") or name in ("_settings", "_dispatcher", "_before_first_use"):
             raise AttributeError(name)
         return getattr(self.get_dispatcher(), name)
 
@@ -157,16 +161,18 @@ def _module_attribute(module: str, qualname: str):
     return target
 
 
-def jit(function=None, **options):
+def jit(function=None, *, before_first_use=None, **options):
     """``numba.njit`` with the package's fixed options (cache, numpy error model, nogil).
 
     Returns a :class:`LazyDispatcher`: numba is imported and the dispatcher made on first use.
+    ``before_first_use``: a callable run once just before that (it may import numba), e.g. to
+    make the numba intrinsics the function's body names as globals.
     """
     settings = {"cache": True, "error_model": "numpy", "nogil": True, "fastmath": False}
     settings.update(options)
 
     def decorate(func):
-        return LazyDispatcher(func, settings)
+        return LazyDispatcher(func, settings, before_first_use)
 
     return decorate if function is None else decorate(function)
 

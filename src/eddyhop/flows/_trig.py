@@ -70,54 +70,128 @@ K14 = -1.0 / 87178291200.0
 K16 = 1.0 / 20922789888000.0
 
 
-@jit(inline="always")
-def _reduced(x):
-    """(sin x, cos x) for |x| ≤ LIMIT by reduction and polynomials; no branch."""
-    q = np.rint(x * TWO_OVER_PI)
+def _emit_reduced(builder, x):
+    """LLVM IR of (sin x, cos x) for |x| ≤ LIMIT: the operations of the method above, in
+    the order written here, each a separate IEEE operation (no fast-math flags, so LLVM may
+    neither contract a product and a sum into an FMA nor reassociate).  Returns (s, c)."""
+    from llvmlite import ir
+
+    double = ir.DoubleType()
+    module = builder.module
+
+    def const(value):
+        return ir.Constant(double, value)
+
+    def unary(name, value):
+        return builder.call(module.declare_intrinsic(name, [double]), [value])
+
+    add, sub, mul = builder.fadd, builder.fsub, builder.fmul
+    q = unary("llvm.rint", mul(x, const(TWO_OVER_PI)))
     # r = x − q π/2 as r + r_low: x − q C1 and q C2 are exact; the subtraction of q C2 keeps
     # its rounding error (two-sum) and q C3 goes into the low part
-    head = x - q * C1
-    middle = -(q * C2)
-    r = head + middle
-    back = r - head
-    r_low = ((head - (r - back)) + (middle - back)) - q * C3
+    head = sub(x, mul(q, const(C1)))
+    middle = builder.fsub(const(-0.0), mul(q, const(C2)))  # negation, −0 kept
+    r = add(head, middle)
+    back = sub(r, head)
+    r_low = sub(add(sub(head, sub(r, back)), sub(middle, back)), mul(q, const(C3)))
     # renormalise (|q C3| can exceed an ulp of r): afterwards |r_low| ≤ ulp(r)/2
-    r_high = r + r_low
-    r_low = r_low - (r_high - r)
+    r_high = add(r, r_low)
+    r_low = sub(r_low, sub(r_high, r))
     r = r_high
-    z = r * r
-    # sin(r + r_low) ≈ sin r + r_low (1 − z/2), cos(r + r_low) ≈ cos r − r r_low
-    s = r + (r_low * (1.0 - 0.5 * z) + (r * z) * (S3 + z * (S5 + z * (S7 + z * (S9 + z * (
-        S11 + z * (S13 + z * (S15 + z * S17))))))))
-    half_z = 0.5 * z
-    w = 1.0 - half_z
-    c = w + ((((1.0 - w) - half_z) - r * r_low) + (z * z) * (K4 + z * (K6 + z * (K8 + z * (
-        K10 + z * (K12 + z * (K14 + z * K16)))))))
+    z = mul(r, r)
+    # sin(r + r_low) ≈ sin r + r_low (1 − z/2), cos(r + r_low) ≈ cos r − r r_low;
+    # Horner from the innermost coefficient outwards
+    poly = mul(z, const(S17))
+    for coefficient in (S15, S13, S11, S9, S7, S5):
+        poly = mul(z, add(const(coefficient), poly))
+    poly = add(const(S3), poly)
+    half_z = mul(const(0.5), z)
+    s = add(r, add(mul(r_low, sub(const(1.0), half_z)), mul(mul(r, z), poly)))
+    w = sub(const(1.0), half_z)
+    poly = mul(z, const(K16))
+    for coefficient in (K14, K12, K10, K8, K6):
+        poly = mul(z, add(const(coefficient), poly))
+    poly = add(const(K4), poly)
+    c = add(w, add(sub(sub(sub(const(1.0), w), half_z), mul(r, r_low)), mul(mul(z, z), poly)))
     # quadrant n = q mod 4 from floating-point q (exact for |q| < 2**52); selects, not sums,
     # so that the swapped value is exactly c or s
-    n = q - 4.0 * math.floor(0.25 * q)
-    swap = n == 1.0 or n == 3.0
-    sin_r = c if swap else s
-    cos_r = s if swap else c
-    sin_sign = -1.0 if n >= 2.0 else 1.0  # n = 2, 3
-    cos_sign = -1.0 if n == 1.0 or n == 2.0 else 1.0
+    n = sub(q, mul(const(4.0), unary("llvm.floor", mul(const(0.25), q))))
+    is_one = builder.fcmp_ordered("==", n, const(1.0))
+    is_two = builder.fcmp_ordered("==", n, const(2.0))
+    is_three = builder.fcmp_ordered("==", n, const(3.0))
+    swap = builder.or_(is_one, is_three)
+    sin_r = builder.select(swap, c, s)
+    cos_r = builder.select(swap, s, c)
+    sin_sign = builder.select(builder.fcmp_ordered(">=", n, const(2.0)), const(-1.0),
+                              const(1.0))  # n = 2, 3
+    cos_sign = builder.select(builder.or_(is_one, is_two), const(-1.0), const(1.0))
     # sin(±0) = ±0 (the sums above turn −0 into +0)
-    return (x if x == 0.0 else sin_sign * sin_r), cos_sign * cos_r
+    sin_x = builder.select(builder.fcmp_ordered("==", x, const(0.0)), x, mul(sin_sign, sin_r))
+    return sin_x, mul(cos_sign, cos_r)
 
 
-@jit(inline="always")
+def _sincos_intrinsic(fast: bool):
+    """numba intrinsic ``(x) -> (sin x, cos x)`` of :func:`_emit_reduced`; ``fast``: nan
+    (selected) where |x| > LIMIT or x is not finite, else no range test at all."""
+    from numba import types
+    from numba.extending import intrinsic
+
+    def typer(typingctx, x):
+        if not isinstance(x, (types.Float, types.Integer, types.Boolean)):
+            return None
+        pair = types.UniTuple(types.float64, 2)
+
+        def codegen(context, builder, signature, args):
+            from llvmlite import ir
+
+            (value,) = args
+            s, c = _emit_reduced(builder, value)
+            if fast:
+                double = ir.DoubleType()
+                magnitude = builder.call(
+                    builder.module.declare_intrinsic("llvm.fabs", [double]), [value])
+                inside = builder.fcmp_ordered("<=", magnitude, ir.Constant(double, LIMIT))
+                nan = ir.Constant(double, float("nan"))
+                s = builder.select(inside, s, nan)
+                c = builder.select(inside, c, nan)
+            return context.make_tuple(builder, pair, (s, c))
+
+        # the argument is converted to float64 by the call (the signature's type)
+        return pair(types.float64), codegen
+
+    typer.__name__ = "_sincos_fast" if fast else "_sincos_reduced"
+    return intrinsic(typer)
+
+
+# The two intrinsics are made (numba imported) when ``sincos`` is first compiled, not at import:
+# ``eddyhop validate`` imports the flow modules without numba.
+_sincos_reduced = None
+_sincos_fast = None
+
+
+def _make_intrinsics() -> None:
+    global _sincos_reduced, _sincos_fast
+    if _sincos_reduced is None:
+        from numba.core.registry import cpu_target
+
+        _sincos_fast = _sincos_intrinsic(True)
+        _sincos_reduced = _sincos_intrinsic(False)
+        # this may run while numba compiles a caller: its typing context loaded the registered
+        # globals when that compilation began and must learn the two new ones
+        cpu_target.typing_context.refresh()
+
+
+@jit(inline="always", before_first_use=_make_intrinsics)
 def sincos(x, fast=False):
     """(sin x, cos x); see the module docstring for the method, accuracy and range.
 
     ``fast=True`` (for vectorised loops): nan instead of the library fallback when
     ``|x| > LIMIT`` or x is not finite; the caller re-evaluates those points with the default.
     """
-    s, c = _reduced(x)
-    inside = abs(x) <= LIMIT
     if fast:
-        s = s if inside else np.nan
-        c = c if inside else np.nan
-    elif not inside:
+        return _sincos_fast(x)
+    s, c = _sincos_reduced(x)
+    if not abs(x) <= LIMIT:
         s = math.sin(x)
         c = math.cos(x)
     return s, c
