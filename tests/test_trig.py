@@ -18,9 +18,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from eddyhop.engine.integrators import tile_velocity
-from eddyhop.flows import get_family
-from eddyhop.flows import _trig
-from eddyhop.flows._trig import LIMIT, sincos
+from eddyhop.flows import _trig, get_family
+from eddyhop.flows._trig import LIMIT, sincos, sincos2
 from eddyhop.flows.compiled import evaluate_velocity
 from tests.test_kernel_tiles import FLOWS as TILE_FLOWS
 
@@ -76,6 +75,14 @@ def _numba_body_array(x):
     return s, c
 
 
+@numba.njit
+def _sincos2_array(a, b, fast):
+    out = np.empty((4, a.size))
+    for i in range(a.size):
+        out[0, i], out[1, i], out[2, i], out[3, i] = sincos2(a[i], b[i], fast)
+    return out
+
+
 def _ulp_error(value, reference):
     """|value − reference| in units of the spacing of doubles at |reference| (exact zeros
     count as an error of any difference)."""
@@ -123,10 +130,28 @@ def test_intrinsic_is_bit_identical_to_the_numba_body(label):
     x = np.concatenate([x, edges, np.nextafter(edges, np.inf), np.nextafter(edges, -np.inf),
                         [0.0, -0.0, 5e-324, -5e-324, LIMIT, -LIMIT]])
     reference_s, reference_c = _numba_body_array(x)
+    partner = x[::-1].copy()  # sincos2: the two arguments come from different places
     for fast in (False, True):
         s, c = _sincos_array(x, fast)
         np.testing.assert_array_equal(_bits(s), _bits(reference_s))
         np.testing.assert_array_equal(_bits(c), _bits(reference_c))
+        pair = _sincos2_array(x, partner, fast)
+        np.testing.assert_array_equal(_bits(pair[0]), _bits(reference_s))
+        np.testing.assert_array_equal(_bits(pair[1]), _bits(reference_c))
+        np.testing.assert_array_equal(_bits(pair[2]), _bits(reference_s[::-1]))
+        np.testing.assert_array_equal(_bits(pair[3]), _bits(reference_c[::-1]))
+
+
+def test_sincos2_outside_the_range_matches_sincos():
+    """Beyond LIMIT and for non-finite arguments ``sincos2`` gives ``sincos``'s values (the
+    library fallback, or nan in the fast form), each argument on its own."""
+    a = np.array([1.0, 3e6, np.nan, -1e300, 0.5, np.inf])
+    b = np.array([2e7, -2.0, 0.25, np.nan, -np.inf, 7.0])
+    for fast in (False, True):
+        pair = _sincos2_array(a, b, fast)
+        for row, (values, part) in enumerate(((a, 0), (a, 1), (b, 0), (b, 1))):
+            expected = _sincos_array(values, fast)[part]
+            np.testing.assert_array_equal(_bits(pair[row]), _bits(expected))
 
 
 def test_multiples_of_quarter_pi_and_their_neighbours():

@@ -42,8 +42,6 @@ from __future__ import annotations
 
 import math
 
-import numpy as np
-
 from .._jit import jit
 
 LIMIT = 1048576.0  # 2**20: |q| = |rint(x·2/π)| ≤ 667 544 < 2**20, so q·C1 and q·C2 are exact
@@ -70,27 +68,50 @@ K14 = -1.0 / 87178291200.0
 K16 = 1.0 / 20922789888000.0
 
 
-def _emit_reduced(builder, x):
-    """LLVM IR of (sin x, cos x) for |x| ≤ LIMIT: the operations of the method above, in
-    the order written here, each a separate IEEE operation (no fast-math flags, so LLVM may
-    neither contract a product and a sum into an FMA nor reassociate).  Returns (s, c)."""
+def _emit_reduced(builder, arguments):
+    """LLVM IR of (sin x, cos x) for each x of ``arguments`` (|x| ≤ LIMIT): the operations of
+    the method above, in the order written here, each a separate IEEE operation (no fast-math
+    flags, so LLVM may neither contract a product and a sum into an FMA nor reassociate).
+
+    Every operation is emitted for all the arguments before the next one: their dependency
+    chains (the polynomials are long serial chains) come interleaved, so the processor overlaps
+    them instead of waiting on one.  Returns a list of (s, c) pairs."""
     from llvmlite import ir
 
     double = ir.DoubleType()
     module = builder.module
 
     def const(value):
-        return ir.Constant(double, value)
+        return [ir.Constant(double, value)] * len(arguments)
 
-    def unary(name, value):
-        return builder.call(module.declare_intrinsic(name, [double]), [value])
+    def each(operation, *operands):
+        return [operation(*values) for values in zip(*operands)]
 
-    add, sub, mul = builder.fadd, builder.fsub, builder.fmul
+    def add(a, b):
+        return each(builder.fadd, a, b)
+
+    def sub(a, b):
+        return each(builder.fsub, a, b)
+
+    def mul(a, b):
+        return each(builder.fmul, a, b)
+
+    def unary(name, a):
+        function = module.declare_intrinsic(name, [double])
+        return [builder.call(function, [value]) for value in a]
+
+    def compare(operator, a, b):
+        return each(lambda u, v: builder.fcmp_ordered(operator, u, v), a, b)
+
+    def select(condition, a, b):
+        return each(builder.select, condition, a, b)
+
+    x = list(arguments)
     q = unary("llvm.rint", mul(x, const(TWO_OVER_PI)))
     # r = x − q π/2 as r + r_low: x − q C1 and q C2 are exact; the subtraction of q C2 keeps
     # its rounding error (two-sum) and q C3 goes into the low part
     head = sub(x, mul(q, const(C1)))
-    middle = builder.fsub(const(-0.0), mul(q, const(C2)))  # negation, −0 kept
+    middle = sub(const(-0.0), mul(q, const(C2)))  # negation, −0 kept
     r = add(head, middle)
     back = sub(r, head)
     r_low = sub(add(sub(head, sub(r, back)), sub(middle, back)), mul(q, const(C3)))
@@ -100,84 +121,98 @@ def _emit_reduced(builder, x):
     r = r_high
     z = mul(r, r)
     # sin(r + r_low) ≈ sin r + r_low (1 − z/2), cos(r + r_low) ≈ cos r − r r_low;
-    # Horner from the innermost coefficient outwards
-    poly = mul(z, const(S17))
-    for coefficient in (S15, S13, S11, S9, S7, S5):
-        poly = mul(z, add(const(coefficient), poly))
-    poly = add(const(S3), poly)
+    # Horner from the innermost coefficient outwards, the two polynomials interleaved
     half_z = mul(const(0.5), z)
-    s = add(r, add(mul(r_low, sub(const(1.0), half_z)), mul(mul(r, z), poly)))
+    sin_poly = mul(z, const(S17))
+    cos_poly = mul(z, const(K16))
+    for sin_coefficient, cos_coefficient in zip((S15, S13, S11, S9, S7, S5),
+                                                (K14, K12, K10, K8, K6, None)):
+        sin_poly = mul(z, add(const(sin_coefficient), sin_poly))
+        if cos_coefficient is not None:
+            cos_poly = mul(z, add(const(cos_coefficient), cos_poly))
+    sin_poly = add(const(S3), sin_poly)
+    cos_poly = add(const(K4), cos_poly)
+    s = add(r, add(mul(r_low, sub(const(1.0), half_z)), mul(mul(r, z), sin_poly)))
     w = sub(const(1.0), half_z)
-    poly = mul(z, const(K16))
-    for coefficient in (K14, K12, K10, K8, K6):
-        poly = mul(z, add(const(coefficient), poly))
-    poly = add(const(K4), poly)
-    c = add(w, add(sub(sub(sub(const(1.0), w), half_z), mul(r, r_low)), mul(mul(z, z), poly)))
+    c = add(w, add(sub(sub(sub(const(1.0), w), half_z), mul(r, r_low)), mul(mul(z, z), cos_poly)))
     # quadrant n = q mod 4 from floating-point q (exact for |q| < 2**52); selects, not sums,
     # so that the swapped value is exactly c or s
     n = sub(q, mul(const(4.0), unary("llvm.floor", mul(const(0.25), q))))
-    is_one = builder.fcmp_ordered("==", n, const(1.0))
-    is_two = builder.fcmp_ordered("==", n, const(2.0))
-    is_three = builder.fcmp_ordered("==", n, const(3.0))
-    swap = builder.or_(is_one, is_three)
-    sin_r = builder.select(swap, c, s)
-    cos_r = builder.select(swap, s, c)
-    sin_sign = builder.select(builder.fcmp_ordered(">=", n, const(2.0)), const(-1.0),
-                              const(1.0))  # n = 2, 3
-    cos_sign = builder.select(builder.or_(is_one, is_two), const(-1.0), const(1.0))
+    is_one = compare("==", n, const(1.0))
+    is_two = compare("==", n, const(2.0))
+    is_three = compare("==", n, const(3.0))
+    swap = each(builder.or_, is_one, is_three)
+    sin_r = select(swap, c, s)
+    cos_r = select(swap, s, c)
+    sin_sign = select(compare(">=", n, const(2.0)), const(-1.0), const(1.0))  # n = 2, 3
+    cos_sign = select(each(builder.or_, is_one, is_two), const(-1.0), const(1.0))
     # sin(±0) = ±0 (the sums above turn −0 into +0)
-    sin_x = builder.select(builder.fcmp_ordered("==", x, const(0.0)), x, mul(sin_sign, sin_r))
-    return sin_x, mul(cos_sign, cos_r)
+    sin_x = select(compare("==", x, const(0.0)), x, mul(sin_sign, sin_r))
+    return list(zip(sin_x, mul(cos_sign, cos_r)))
 
 
-def _sincos_intrinsic(fast: bool):
-    """numba intrinsic ``(x) -> (sin x, cos x)`` of :func:`_emit_reduced`; ``fast``: nan
-    (selected) where |x| > LIMIT or x is not finite, else no range test at all."""
+def _sincos_intrinsic(fast: bool, count: int = 1):
+    """numba intrinsic ``(x) -> (sin x, cos x)`` (``count`` 1) or ``(a, b) -> (sin a, cos a,
+    sin b, cos b)`` (``count`` 2) of :func:`_emit_reduced`;
+    ``fast``: nan (selected) where |x| > LIMIT or x is not finite, else no range test at all."""
     from numba import types
     from numba.extending import intrinsic
 
-    def typer(typingctx, x):
-        if not isinstance(x, (types.Float, types.Integer, types.Boolean)):
+    def check(arguments):
+        if not all(isinstance(a, (types.Float, types.Integer, types.Boolean))
+                   for a in arguments):
             return None
-        pair = types.UniTuple(types.float64, 2)
+        result = types.UniTuple(types.float64, 2 * count)
 
         def codegen(context, builder, signature, args):
             from llvmlite import ir
 
-            (value,) = args
-            s, c = _emit_reduced(builder, value)
-            if fast:
-                double = ir.DoubleType()
-                magnitude = builder.call(
-                    builder.module.declare_intrinsic("llvm.fabs", [double]), [value])
-                inside = builder.fcmp_ordered("<=", magnitude, ir.Constant(double, LIMIT))
-                nan = ir.Constant(double, float("nan"))
-                s = builder.select(inside, s, nan)
-                c = builder.select(inside, c, nan)
-            return context.make_tuple(builder, pair, (s, c))
+            values = []
+            for x, (s, c) in zip(args, _emit_reduced(builder, args)):
+                if fast:
+                    double = ir.DoubleType()
+                    magnitude = builder.call(
+                        builder.module.declare_intrinsic("llvm.fabs", [double]), [x])
+                    inside = builder.fcmp_ordered("<=", magnitude, ir.Constant(double, LIMIT))
+                    nan = ir.Constant(double, float("nan"))
+                    s = builder.select(inside, s, nan)
+                    c = builder.select(inside, c, nan)
+                values += [s, c]
+            return context.make_tuple(builder, result, values)
 
-        # the argument is converted to float64 by the call (the signature's type)
-        return pair(types.float64), codegen
+        # the arguments are converted to float64 by the call (the signature's types)
+        return result(*([types.float64] * count)), codegen
 
-    typer.__name__ = "_sincos_fast" if fast else "_sincos_reduced"
+    if count == 1:
+        def typer(typingctx, x):
+            return check((x,))
+    else:
+        def typer(typingctx, a, b):
+            return check((a, b))
+
+    typer.__name__ = f"_sincos{count}_{'fast' if fast else 'reduced'}"
     return intrinsic(typer)
 
 
-# The two intrinsics are made (numba imported) when ``sincos`` is first compiled, not at import:
-# ``eddyhop validate`` imports the flow modules without numba.
+# The intrinsics are made (numba imported) when ``sincos`` or ``sincos2`` is first compiled,
+# not at import: ``eddyhop validate`` imports the flow modules without numba.
 _sincos_reduced = None
 _sincos_fast = None
+_sincos2_reduced = None
+_sincos2_fast = None
 
 
 def _make_intrinsics() -> None:
-    global _sincos_reduced, _sincos_fast
+    global _sincos_reduced, _sincos_fast, _sincos2_reduced, _sincos2_fast
     if _sincos_reduced is None:
         from numba.core.registry import cpu_target
 
         _sincos_fast = _sincos_intrinsic(True)
+        _sincos2_fast = _sincos_intrinsic(True, 2)
+        _sincos2_reduced = _sincos_intrinsic(False, 2)
         _sincos_reduced = _sincos_intrinsic(False)
         # this may run while numba compiles a caller: its typing context loaded the registered
-        # globals when that compilation began and must learn the two new ones
+        # globals when that compilation began and must learn the new ones
         cpu_target.typing_context.refresh()
 
 
@@ -195,3 +230,20 @@ def sincos(x, fast=False):
         s = math.sin(x)
         c = math.cos(x)
     return s, c
+
+
+@jit(inline="always", before_first_use=_make_intrinsics)
+def sincos2(a, b, fast=False):
+    """(sin a, cos a, sin b, cos b): the values of ``sincos(a, fast)`` and ``sincos(b, fast)``,
+    bit for bit, computed with the two evaluations interleaved (faster in a tile loop: the
+    processor overlaps their long dependency chains)."""
+    if fast:
+        return _sincos2_fast(a, b)
+    sa, ca, sb, cb = _sincos2_reduced(a, b)
+    if not abs(a) <= LIMIT:
+        sa = math.sin(a)
+        ca = math.cos(a)
+    if not abs(b) <= LIMIT:
+        sb = math.sin(b)
+        cb = math.cos(b)
+    return sa, ca, sb, cb
