@@ -138,8 +138,12 @@ def _overload_step_tile(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z,
     elif code is not None:
         def step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
                  work):
-            _scheme_tile_step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m,
-                              x_new, y_new, work)
+            # borrowed views (see _borrowed): the tile loop keeps the arrays alive, and the
+            # stepper's calls (and the rows of ``work`` it slices) then update no reference
+            # counts per tile-step
+            _scheme_tile_step(scheme, fcode, fp, ncode, nq, _borrowed(xs), _borrowed(ys), t,
+                              dt, sqrt_dt, _borrowed(z), m, _borrowed(x_new), _borrowed(y_new),
+                              _borrowed(work))
     else:  # a run-time scheme code: both steppers
         def step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
                  work):

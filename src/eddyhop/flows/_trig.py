@@ -36,6 +36,16 @@ the kernel's tile loop calls ``sincos(x, True)`` ("fast"): the same polynomial, 
 (selected, not branched) instead of the fallback, and re-evaluates the few points that came
 back nan with the default ``sincos(x)`` (``integrators.tile_velocity``).  In range both give
 identical bits.
+
+Implementation: the polynomial is not a numba function body.  ``_emit_reduced`` writes its
+LLVM IR (numba intrinsics): numba then types and lowers each ``sincos`` call in microseconds
+wherever it is inlined, where a body of ~60 operations was re-typed at every inlining level
+(≈ 8 s of a cold start).  Each IR operation is one IEEE double operation with no fast-math
+flag, so LLVM can neither contract a product and a sum into an FMA nor reassociate: the
+numbers are those of the method as written, bit for bit (``tests/test_trig.py`` compares
+with the same method written as a numba body).  ``sincos2(a, b)`` gives
+``sincos(a) + sincos(b)`` with the two evaluations interleaved operation by operation: the
+processor overlaps their dependency chains (the polynomials are long serial chains).
 """
 
 from __future__ import annotations
