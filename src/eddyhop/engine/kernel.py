@@ -46,11 +46,16 @@ from numba.extending import intrinsic, overload
 from .._jit import jit
 from ..flows.compiled import confine, has_walls, specialised_code
 from .integrators import (
+    EULER_MARUYAMA,
+    MILSTEIN,
     PROJECTED_RK45,
     RK4,
     STRANG_RK2,
     TILE_WORK_ROWS,
-    _scheme_tile_step,
+    advance_tile,
+    tile_noise_step,
+    tile_rk4_step,
+    tile_strang_step,
     tile_velocity,
 )
 from .rng import fill_normals
@@ -118,11 +123,13 @@ def _start_tile(scheme, fcode, fp, xs, ys, dt, m, work):
 # Scheme selection at compile time: a kernel specialised on its scheme code (a CompiledCode)
 # types and compiles only that scheme's tile step — the adaptive projected_rk45 stepper is
 # the largest, and a stochastic study never compiles it; a strang_rk2 study compiles
-# neither the Euler–Maruyama/Milstein nor the rk4 tile step.  The four schemes of
-# ``integrators`` are chosen by its own compile-time selection (``_scheme_tile_step``, one
-# place for both); this adds the projected stepper.  Both are inlined, so one call per tile
+# neither the Euler–Maruyama/Milstein nor the rk4 tile step.  Inlined, so one call per tile
 # is left (to the scheme's stepper; every extra call level with array arguments costs
-# reference-count updates per tile).
+# reference-count updates per tile), and that call gets borrowed views (see _borrowed: the
+# tile loop keeps the arrays alive), so the stepper and the rows of ``work`` it slices update
+# no reference counts.  The four branches repeat ``integrators._scheme_tile_step`` on
+# purpose: inlining that selection here instead compiles one more overload body and cost
+# 0.2–0.4 s of the demo's cold start (measured A B A B).
 _SELECT = {"inline": "always", "prefer_literal": True,
            "jit_options": {"error_model": "numpy", "fastmath": False}}
 
@@ -135,23 +142,35 @@ def _overload_step_tile(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z,
         def step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
                  work):
             advance_tile_projected(fcode, fp, nq, xs, ys, t, dt, m, x_new, y_new, work)
+    elif code == EULER_MARUYAMA or code == MILSTEIN:
+        def step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
+                 work):
+            tile_noise_step(scheme, fcode, fp, ncode, nq, _borrowed(xs), _borrowed(ys), t, dt,
+                            sqrt_dt, _borrowed(z), m, _borrowed(x_new), _borrowed(y_new),
+                            _borrowed(work))
+    elif code == STRANG_RK2:
+        def step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
+                 work):
+            tile_strang_step(fcode, fp, nq, _borrowed(xs), _borrowed(ys), t, dt, _borrowed(z),
+                             m, _borrowed(x_new), _borrowed(y_new), _borrowed(work))
+    elif code == RK4:
+        def step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
+                 work):
+            tile_rk4_step(fcode, fp, _borrowed(xs), _borrowed(ys), t, dt, m, _borrowed(x_new),
+                          _borrowed(y_new), _borrowed(work))
     elif code is not None:
         def step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
                  work):
-            # borrowed views (see _borrowed): the tile loop keeps the arrays alive, and the
-            # stepper's calls (and the rows of ``work`` it slices) then update no reference
-            # counts per tile-step
-            _scheme_tile_step(scheme, fcode, fp, ncode, nq, _borrowed(xs), _borrowed(ys), t,
-                              dt, sqrt_dt, _borrowed(z), m, _borrowed(x_new), _borrowed(y_new),
-                              _borrowed(work))
+            advance_tile(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new,
+                         y_new, work)
     else:  # a run-time scheme code: both steppers
         def step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
                  work):
             if scheme == PROJECTED_RK45:  # adaptive substeps kept on ψ's level set
                 advance_tile_projected(fcode, fp, nq, xs, ys, t, dt, m, x_new, y_new, work)
             else:
-                _scheme_tile_step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m,
-                                  x_new, y_new, work)
+                advance_tile(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m,
+                             x_new, y_new, work)
     return step
 
 
