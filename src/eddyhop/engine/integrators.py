@@ -143,7 +143,7 @@ def advance(scheme, fcode, fp, ncode, nq, x, y, t, dt, sqrt_dt, z0, z1, z2, z3):
 
 
 # ---- tiles: the same rules for many particles at once ----------------------------------------
-@jit
+@jit(loop_interleave=2)
 def tile_velocity(fcode, fp, xs, ys, t, us, vs, m):
     """(us[g], vs[g]) = velocity at (xs[g], ys[g], t) for g < m, family ``fcode``.
 
