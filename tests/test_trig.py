@@ -18,8 +18,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from eddyhop.engine.integrators import tile_velocity
-from eddyhop.flows import get_family
-from eddyhop.flows._trig import LIMIT, sincos
+from eddyhop.flows import _trig, get_family
+from eddyhop.flows._trig import LIMIT, sincos, sincos2
 from eddyhop.flows.compiled import evaluate_velocity
 from tests.test_kernel_tiles import FLOWS as TILE_FLOWS
 
@@ -33,6 +33,54 @@ def _sincos_array(x, fast):
     for i in range(x.size):
         s[i], c[i] = sincos(x[i], fast)
     return s, c
+
+
+@numba.njit
+def _numba_body_sincos(x):
+    """The method of ``_trig`` written as a numba function body (how ``sincos`` was compiled
+    before it emitted its LLVM IR directly): the reference the intrinsic must match bit for
+    bit.  Same operations, same order, selects for the quadrant."""
+    t = _trig
+    q = np.rint(x * t.TWO_OVER_PI)
+    head = x - q * t.C1
+    middle = -(q * t.C2)
+    r = head + middle
+    back = r - head
+    r_low = ((head - (r - back)) + (middle - back)) - q * t.C3
+    r_high = r + r_low
+    r_low = r_low - (r_high - r)
+    r = r_high
+    z = r * r
+    s = r + (r_low * (1.0 - 0.5 * z) + (r * z) * (t.S3 + z * (t.S5 + z * (t.S7 + z * (
+        t.S9 + z * (t.S11 + z * (t.S13 + z * (t.S15 + z * t.S17))))))))
+    half_z = 0.5 * z
+    w = 1.0 - half_z
+    c = w + ((((1.0 - w) - half_z) - r * r_low) + (z * z) * (t.K4 + z * (t.K6 + z * (
+        t.K8 + z * (t.K10 + z * (t.K12 + z * (t.K14 + z * t.K16)))))))
+    n = q - 4.0 * math.floor(0.25 * q)
+    swap = n == 1.0 or n == 3.0
+    sin_r = c if swap else s
+    cos_r = s if swap else c
+    sin_sign = -1.0 if n >= 2.0 else 1.0
+    cos_sign = -1.0 if n == 1.0 or n == 2.0 else 1.0
+    return (x if x == 0.0 else sin_sign * sin_r), cos_sign * cos_r
+
+
+@numba.njit
+def _numba_body_array(x):
+    s = np.empty(x.size)
+    c = np.empty(x.size)
+    for i in range(x.size):
+        s[i], c[i] = _numba_body_sincos(x[i])
+    return s, c
+
+
+@numba.njit
+def _sincos2_array(a, b, fast):
+    out = np.empty((4, a.size))
+    for i in range(a.size):
+        out[0, i], out[1, i], out[2, i], out[3, i] = sincos2(a[i], b[i], fast)
+    return out
 
 
 def _ulp_error(value, reference):
@@ -65,6 +113,45 @@ def _random_arguments():
 @pytest.mark.parametrize("label", ["cell scale", "whole range", "log-uniform magnitude"])
 def test_random_arguments_agree_with_numpy(label):
     _assert_close_to_numpy(_random_arguments()[label])
+
+
+def _bits(values):
+    return np.asarray(values, dtype=np.float64).view(np.uint64)
+
+
+@pytest.mark.parametrize("label", ["cell scale", "whole range", "log-uniform magnitude"])
+def test_intrinsic_is_bit_identical_to_the_numba_body(label):
+    """``sincos`` emits its IR directly (``_trig._emit_reduced``); the numbers must be those of
+    the same method written as a numba body, bit for bit, in both forms, over 2×10⁵ arguments
+    per range plus the quadrant boundaries (a single differing bit fails)."""
+    x = _random_arguments()[label]
+    k = np.arange(-4096, 4097)
+    edges = k * (math.pi / 4.0)
+    x = np.concatenate([x, edges, np.nextafter(edges, np.inf), np.nextafter(edges, -np.inf),
+                        [0.0, -0.0, 5e-324, -5e-324, LIMIT, -LIMIT]])
+    reference_s, reference_c = _numba_body_array(x)
+    partner = x[::-1].copy()  # sincos2: the two arguments come from different places
+    for fast in (False, True):
+        s, c = _sincos_array(x, fast)
+        np.testing.assert_array_equal(_bits(s), _bits(reference_s))
+        np.testing.assert_array_equal(_bits(c), _bits(reference_c))
+        pair = _sincos2_array(x, partner, fast)
+        np.testing.assert_array_equal(_bits(pair[0]), _bits(reference_s))
+        np.testing.assert_array_equal(_bits(pair[1]), _bits(reference_c))
+        np.testing.assert_array_equal(_bits(pair[2]), _bits(reference_s[::-1]))
+        np.testing.assert_array_equal(_bits(pair[3]), _bits(reference_c[::-1]))
+
+
+def test_sincos2_outside_the_range_matches_sincos():
+    """Beyond LIMIT and for non-finite arguments ``sincos2`` gives ``sincos``'s values (the
+    library fallback, or nan in the fast form), each argument on its own."""
+    a = np.array([1.0, 3e6, np.nan, -1e300, 0.5, np.inf])
+    b = np.array([2e7, -2.0, 0.25, np.nan, -np.inf, 7.0])
+    for fast in (False, True):
+        pair = _sincos2_array(a, b, fast)
+        for row, (values, part) in enumerate(((a, 0), (a, 1), (b, 0), (b, 1))):
+            expected = _sincos_array(values, fast)[part]
+            np.testing.assert_array_equal(_bits(pair[row]), _bits(expected))
 
 
 def test_multiples_of_quarter_pi_and_their_neighbours():

@@ -75,9 +75,11 @@ class LazyDispatcher:
     function and needs no numba.
     """
 
-    def __init__(self, function, settings: dict):
+    def __init__(self, function, settings: dict, before_first_use=None, loop_interleave=None):
         self.py_func = function
         self._settings = settings
+        self._before_first_use = before_first_use
+        self._loop_interleave = loop_interleave
         self._dispatcher = None
         functools.update_wrapper(self, function)
 
@@ -90,6 +92,9 @@ class LazyDispatcher:
                 if self._dispatcher is None:
                     import numba
 
+                    if self._before_first_use is not None:
+                        self._before_first_use()  # e.g. make the intrinsics it calls
+
                     settings = dict(self._settings)
                     if _EXTRA_KEYS:  # an outside family is registered: in memory only
                         settings["cache"] = False
@@ -99,6 +104,8 @@ class LazyDispatcher:
                         dispatcher = numba.njit(**settings)(self.py_func)
                         use_light_loading(dispatcher)  # cache hits skip numba's full start-up
                     _compile_without_literals(dispatcher)
+                    if self._loop_interleave:
+                        _compile_with_loop_interleave(dispatcher, self._loop_interleave)
                     _DISPATCHERS.append(dispatcher)
                     self._dispatcher = dispatcher
         return self._dispatcher
@@ -111,7 +118,8 @@ class LazyDispatcher:
 
     def __getattr__(self, name):
         # only for names not set on the wrapper itself: those of the dispatcher
-        if name.startswith("__") or name in ("_settings", "_dispatcher"):
+        if name.startswith("__") or name in ("_settings", "_dispatcher", "_before_first_use",
+                                             "_loop_interleave"):
             raise AttributeError(name)
         return getattr(self.get_dispatcher(), name)
 
@@ -148,6 +156,33 @@ def _compile_without_literals(dispatcher) -> None:
     dispatcher.get_call_template = get_call_template
 
 
+def _compile_with_loop_interleave(dispatcher, count: int) -> None:
+    """Compile ``dispatcher``'s code with LLVM's loop vectoriser interleaving ``count`` vector
+    bodies per iteration (``-force-vector-interleave``), then restore the default (0: LLVM
+    chooses).
+
+    For a loop whose body is a long dependency chain (the tile loop's sin/cos polynomials)
+    the vectoriser's own choice, one vector body, leaves the processor waiting on the chain;
+    two interleaved bodies give it independent work.  Each lane computes the same operations
+    as before, so the numbers do not change.  The option is global to LLVM, so it is set
+    only around this dispatcher's compilation (numba compiles under one global lock; the
+    callees compiled meanwhile get it too, harmlessly) and the library is optimised then:
+    numba finalises a function's machine code at the end of its own compilation.
+    """
+    import llvmlite.binding as llvm
+
+    compile_default = dispatcher.compile
+
+    def compile_interleaved(sig):
+        llvm.set_option("", f"-force-vector-interleave={int(count)}")
+        try:
+            return compile_default(sig)
+        finally:
+            llvm.set_option("", "-force-vector-interleave=0")
+
+    dispatcher.compile = compile_interleaved
+
+
 def _module_attribute(module: str, qualname: str):
     import importlib
 
@@ -157,16 +192,19 @@ def _module_attribute(module: str, qualname: str):
     return target
 
 
-def jit(function=None, **options):
+def jit(function=None, *, before_first_use=None, loop_interleave=None, **options):
     """``numba.njit`` with the package's fixed options (cache, numpy error model, nogil).
 
     Returns a :class:`LazyDispatcher`: numba is imported and the dispatcher made on first use.
+    ``before_first_use``: a callable run once just before that (it may import numba), e.g. to
+    make the numba intrinsics the function's body names as globals.  ``loop_interleave``: see
+    :func:`_compile_with_loop_interleave` (same numbers, different instruction schedule).
     """
     settings = {"cache": True, "error_model": "numpy", "nogil": True, "fastmath": False}
     settings.update(options)
 
     def decorate(func):
-        return LazyDispatcher(func, settings)
+        return LazyDispatcher(func, settings, before_first_use, loop_interleave)
 
     return decorate if function is None else decorate(function)
 

@@ -125,7 +125,11 @@ def _start_tile(scheme, fcode, fp, xs, ys, dt, m, work):
 # the largest, and a stochastic study never compiles it; a strang_rk2 study compiles
 # neither the Euler–Maruyama/Milstein nor the rk4 tile step.  Inlined, so one call per tile
 # is left (to the scheme's stepper; every extra call level with array arguments costs
-# reference-count updates per tile).
+# reference-count updates per tile), and that call gets borrowed views (see _borrowed: the
+# tile loop keeps the arrays alive), so the stepper and the rows of ``work`` it slices update
+# no reference counts.  The four branches repeat ``integrators._scheme_tile_step`` on
+# purpose: inlining that selection here instead compiles one more overload body and cost
+# 0.2–0.4 s of the demo's cold start (measured A B A B).
 _SELECT = {"inline": "always", "prefer_literal": True,
            "jit_options": {"error_model": "numpy", "fastmath": False}}
 
@@ -141,16 +145,19 @@ def _overload_step_tile(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z,
     elif code == EULER_MARUYAMA or code == MILSTEIN:
         def step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
                  work):
-            tile_noise_step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m,
-                            x_new, y_new, work)
+            tile_noise_step(scheme, fcode, fp, ncode, nq, _borrowed(xs), _borrowed(ys), t, dt,
+                            sqrt_dt, _borrowed(z), m, _borrowed(x_new), _borrowed(y_new),
+                            _borrowed(work))
     elif code == STRANG_RK2:
         def step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
                  work):
-            tile_strang_step(fcode, fp, nq, xs, ys, t, dt, z, m, x_new, y_new, work)
+            tile_strang_step(fcode, fp, nq, _borrowed(xs), _borrowed(ys), t, dt, _borrowed(z),
+                             m, _borrowed(x_new), _borrowed(y_new), _borrowed(work))
     elif code == RK4:
         def step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
                  work):
-            tile_rk4_step(fcode, fp, xs, ys, t, dt, m, x_new, y_new, work)
+            tile_rk4_step(fcode, fp, _borrowed(xs), _borrowed(ys), t, dt, m, _borrowed(x_new),
+                          _borrowed(y_new), _borrowed(work))
     elif code is not None:
         def step(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new, y_new,
                  work):

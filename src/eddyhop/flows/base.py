@@ -7,9 +7,10 @@ Conventions shared by all families (state them again in each family's docstring)
   of the cellular pattern has side ``π/k``; the spatial period is ``2π/k``.
 * Compiled functions take scalars ``(x, y, t, p)`` where ``p`` is the float64 parameter vector
   returned by :meth:`FlowFamily.pack`; this vector is the only thing kernels know of a flow.
-* sin/cos of positions come from ``_trig.sincos``; a closed-form family's ``velocity`` takes
-  a last argument ``fast=False`` that it passes on to ``sincos`` (the kernel's tile loop
-  calls it with ``True``; see ``integrators.tile_velocity``).
+* sin/cos of positions come from ``_trig.sincos`` (or ``_trig.sincos2`` for two arguments at
+  once: the same bits, faster in tile loops); a closed-form family's ``velocity`` takes a last
+  argument ``fast=False`` that it passes on to them (the kernel's tile loop calls it with
+  ``True``; see ``integrators.tile_velocity``).
 """
 
 from __future__ import annotations

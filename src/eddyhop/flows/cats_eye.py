@@ -14,7 +14,7 @@ from __future__ import annotations
 import numpy as np
 
 from .._jit import jit
-from ._trig import sincos
+from ._trig import sincos, sincos2
 from .base import VELOCITY, WAVENUMBER, FlowFamily, Parameter
 from .cellular import cell_lattice_points
 
@@ -30,8 +30,7 @@ def psi(x, y, t, p):
 @jit(inline="always")
 def velocity(x, y, t, p, fast=False):
     k = p[1]
-    sx, cx = sincos(k * x, fast)
-    sy, cy = sincos(k * y, fast)
+    sx, cx, sy, cy = sincos2(k * x, k * y, fast)
     return p[0] * (sx * cy - p[2] * cx * sy), -p[0] * (cx * sy - p[2] * sx * cy)
 
 

@@ -12,7 +12,7 @@ import math
 import numpy as np
 
 from .._jit import jit
-from ._trig import sincos
+from ._trig import sincos, sincos2
 from .base import FlowFamily
 
 
@@ -26,8 +26,7 @@ def psi(x, y, t, p):
 @jit(inline="always")
 def velocity(x, y, t, p, fast=False):
     """(u, v); ``fast`` is passed to ``_trig.sincos`` (nan beyond its range, for tile loops)."""
-    sx, cx = sincos(p[1] * x, fast)
-    sy, cy = sincos(p[1] * y, fast)
+    sx, cx, sy, cy = sincos2(p[1] * x, p[1] * y, fast)
     return p[0] * sx * cy, -p[0] * cx * sy
 
 

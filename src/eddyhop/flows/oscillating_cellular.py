@@ -10,7 +10,7 @@ from __future__ import annotations
 import math
 
 from .._jit import jit
-from ._trig import sincos
+from ._trig import sincos, sincos2
 from .base import VELOCITY, WAVENUMBER, FlowFamily, Parameter
 from .cellular import cell_lattice_points
 
@@ -29,8 +29,7 @@ def velocity(x, y, t, p, fast=False):
     # the time factor is the same for every particle: always the full sincos (the compiler
     # takes it out of a tile loop), so that large ωt does not send every point to the fallback
     phase = k * (x + p[2] * sincos(p[3] * t)[0])
-    sx, cx = sincos(phase, fast)
-    sy, cy = sincos(k * y, fast)
+    sx, cx, sy, cy = sincos2(phase, k * y, fast)
     return p[0] * sx * cy, -p[0] * cx * sy
 
 
