@@ -424,6 +424,24 @@ def run_plans(plans, pool: ChunkPool, *, window: int | None = None):
                 state.plan.close()
 
 
+def _runs(targets):
+    """(first, end, target) of each run of equal entries of the non-decreasing ``targets``
+    (the batch, or check batch, of each block of a chunk)."""
+    if targets.size == 0:
+        return []
+    cuts = [0, *(np.flatnonzero(targets[1:] != targets[:-1]) + 1).tolist(), targets.size]
+    return [(a, b, int(targets[a])) for a, b in itertools.pairwise(cuts)]
+
+
+def _add_in_order(sums, target, rows):
+    """``sums[target] += rows[0]``, then ``+= rows[1]`` … in place: the additions of a loop
+    over the blocks, in block order (bit-identical whatever the chunking), on one view of
+    the batch's sums per run of blocks."""
+    total = sums[target]
+    for row in rows:
+        total += row
+
+
 def _check_finite_sums(moments, schedule, dt, label, lo, hi):
     """Positions can stay below the kernel's runaway limit while their powers (Δx⁴, |Δx|^q)
     overflow float64; such a run must fail loudly rather than write NaN moments."""
@@ -639,18 +657,22 @@ class EnsemblePlan:
                          np.zeros((n_batches, *vcorr.shape[1:]))]
         sums = r["sums"]
         first_block = lo // block
-        for b in range(moments.shape[0]):
-            target = batch_of_block[first_block + b]
-            sums[0][target] += moments[b]
-            sums[1][target] += aged[b]
+        count = moments.shape[0]
+        for a, b, target in _runs(batch_of_block[first_block:first_block + count]):
+            _add_in_order(sums[0], target, moments[a:b])
+            if aged.size:
+                _add_in_order(sums[1], target, aged[a:b])
             if vcorr.size:
-                sums[4][target] += vcorr[b]
-            if first_block + b < check_of_block.size:  # the subsample's fine path
-                check_fine[check_of_block[first_block + b]] += \
-                    moments[b][:, _CHECK_IN_MOMENTS]
-            sums[2] += residence[b]
-            sums[3] += flights[b]
-            r["hops"] += chunk_hops[b]
+                _add_in_order(sums[4], target, vcorr[a:b])
+        in_check = max(0, min(count, check_of_block.size - first_block))
+        if in_check:  # the subsample's fine path: the chunk's first blocks
+            fine = moments[:in_check][:, :, _CHECK_IN_MOMENTS]
+            for a, b, target in _runs(check_of_block[first_block:first_block + in_check]):
+                _add_in_order(check_fine, target, fine[a:b])
+        # counts (whole numbers far below 2**53 held in floats): exact in any order
+        sums[2] += residence.sum(axis=0)
+        sums[3] += flights.sum(axis=0)
+        r["hops"] += chunk_hops.sum()
         if chunk_tracks.shape[0]:
             r["tracks"].append(chunk_tracks)
         if self.bar is not None:
