@@ -29,7 +29,8 @@ import threading
 
 from numba.core import codegen, compiler, event, types
 from numba.core.typing import signature
-from numba.extending import _Intrinsic
+from numba.core.typing.templates import make_intrinsic_template
+from numba.extending import _Intrinsic, typeof_impl
 
 from .._jit import jit
 
@@ -52,34 +53,12 @@ class LinkedLibrary(codegen.JITCodeLibrary):
         raise RuntimeError(f"{self.name} is compiled only into its callers")
 
 
-def _link_after_optimisation(caller, library) -> None:
-    """Link ``library`` into the code library ``caller`` after LLVM has optimised the
-    caller's own module (and its other callees), not before: its already optimised body is
-    then not optimised again in every caller, and never inlined into one."""
-    library._ensure_finalized()
-    late = caller.__dict__.get("_linked_after_optimisation")
-    if late is None:
-        late = caller._linked_after_optimisation = []
-        optimise = caller._optimize_final_module
-
-        def optimise_then_link():
-            optimise()
-            for lib in late:
-                caller._reload_init.update(lib._reload_init)
-                caller._final_module.link_in(lib._get_module_for_linking(), preserve=True)
-
-        caller._optimize_final_module = optimise_then_link
-    if library not in late:
-        late.append(library)
-
-
 class Callee(_Intrinsic):
     """A function compiled into its callers (see the module docstring); call it from
     compiled code, or from Python through an ordinary dispatcher."""
 
-    def __init__(self, function, cold: bool = False):
+    def __init__(self, function):
         self.py_func = function
-        self.cold = cold
         self._python_dispatcher = None
         self._compiled = {}  # plain argument types -> CompileResult
         parameters = list(inspect.signature(function).parameters)
@@ -95,20 +74,15 @@ class Callee(_Intrinsic):
         typer.__module__ = function.__module__
         super().__init__(function.__name__, typer)
         self.__wrapped__ = function
-        self._register()  # numba types a call of this object with ``typer``
+        self._function_type = None  # made when numba first types a call (_typeof_callee)
 
     def _typed(self, args):
         plain = tuple(types.unliteral(a) for a in args)
         cres = self.compile(plain)
         library, fndesc, compiled = cres.library, cres.fndesc, cres.signature
 
-        cold = self.cold
-
         def codegen(context, builder, sig, values):
-            if cold:
-                _link_after_optimisation(context.active_code_library, library)
-            else:
-                context.add_linking_libs([library])
+            context.add_linking_libs([library])
             return context.call_internal(builder, fndesc, compiled, values)
 
         return signature(compiled.return_type, *plain), codegen
@@ -150,13 +124,17 @@ class Callee(_Intrinsic):
         return f"<eddyhop callee {self.__module__}.{self.__qualname__}>"
 
 
-def callee(function=None, *, cold: bool = False):
-    """Decorate a helper of the kernels: compiled only into its callers' machine code.
+@typeof_impl.register(Callee)
+def _typeof_callee(value, context):
+    # the call template is made on first use, not at import: importing the kernels stays as
+    # cheap as before for a run that loads them from the cache
+    if value._function_type is None:
+        template = make_intrinsic_template(value, value._defn, value._name,
+                                           prefer_literal=False, kwargs={})
+        value._function_type = types.Function(template)
+    return value._function_type
 
-    ``cold=True`` for code off the step loop (event recording, hop bookkeeping): its
-    optimised body is linked into each caller after the caller's own optimisation, so it is
-    not optimised again per caller and is always a call (see :func:`_link_after_optimisation`).
-    """
-    if function is None:
-        return lambda f: Callee(f, cold=cold)
-    return Callee(function, cold=cold)
+
+def callee(function):
+    """Decorate a helper of the kernels: compiled only into its callers' machine code."""
+    return Callee(function)

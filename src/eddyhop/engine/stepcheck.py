@@ -33,6 +33,7 @@ import numpy as np
 
 from .._jit import jit
 from ..flows.compiled import confine, has_walls
+from .callee import callee
 from .integrators import STRANG_RK2, TILE_WORK_ROWS
 from .kernel import BLOWUP_LIMIT, TILE, _step_tile, normal_pairs_per_step
 from .rng import fill_normals
@@ -41,7 +42,7 @@ CHECK_COLUMNS = ("dx", "dy", "dx2", "dy2", "dxdy")
 _INV_SQRT2 = 1.0 / math.sqrt(2.0)
 
 
-@jit
+@callee
 def _add(sums, slot, dx, dy):
     sums[slot, 0] += dx
     sums[slot, 1] += dy
@@ -50,7 +51,7 @@ def _add(sums, slot, dx, dy):
     sums[slot, 4] += dx * dy
 
 
-@jit
+@jit(no_cfunc_wrapper=True)  # called only from Python (as kernel.run_particles)
 def run_step_check(fcode, fp, ncode, nq, scheme, dt, key0, key1, x0, y0, first_index,
                    stream_offset, out_steps, with_fine, fine, coarse, status):
     """Integrate particles ``first_index + i`` from (x0[i], y0[i]) at 2·dt (and at dt too when
