@@ -55,15 +55,6 @@ def test_kernel_helpers_are_callees():
     for helper in (kernel._record_event, kernel._add_moments, kernel._add_powers,
                    kernel._add_row, kernel._record_velocity, kernel._check_hop,
                    kernel._mark_hops, kernel._start_hops, kernel._tile_length,
-                   kernel._log_bin, kernel.normal_pairs_per_step, stepcheck._add):
+                   kernel._log_bin, kernel._product_orders, kernel.normal_pairs_per_step,
+                   stepcheck._add):
         assert isinstance(helper, Callee), helper
-
-
-def test_product_orders_marks_integer_orders_up_to_the_product_limit():
-    from eddyhop.engine.kernel import MAX_PRODUCT_ORDER, product_orders
-
-    orders = np.array([0.5, 1.0, 2.0, 2.5, 6.0, float(MAX_PRODUCT_ORDER), 9.0])
-    got = product_orders(orders)
-    assert got.dtype == np.int64
-    assert got.tolist() == [0, 1, 2, 0, 6, MAX_PRODUCT_ORDER, 0]
-    assert product_orders(np.zeros(0)).size == 0

@@ -91,7 +91,6 @@ _VECTOR = 8  # doubles per lane vector (four independent add chains per sum)
 # |ΔX|, and the totals of one pass (:func:`_base_totals`, :func:`_power_totals`).
 _DX, _DY, _V0, _V1, _AX, _AY, _AR, _SUMS = range(8)
 MOMENT_ROWS = 8
-_WORK_ROWS = max(TILE_WORK_ROWS, PROJECTED_WORK_ROWS)  # rows of the steppers' tile scratch
 
 
 @intrinsic
@@ -310,15 +309,15 @@ def _check_hop(hop, g, x, y, step, dt, cell, margin, gap_steps, block,
         hop[_ENTERED, g] = step
 
 
-def product_orders(orders: np.ndarray) -> np.ndarray:
-    """For each moment order, the integer n if |Δ|^order is computed as a product of n
-    factors (an integer order 1 … ``MAX_PRODUCT_ORDER``), else 0 (``pow``); int64.
-
-    Plain NumPy, computed by the runner once per study and handed to the kernel: in compiled
-    code it was one more function (and a float-to-int overload) compiled on a cold start."""
-    orders = np.asarray(orders, dtype=np.float64)
-    integer = (orders == np.floor(orders)) & (orders >= 1.0) & (orders <= MAX_PRODUCT_ORDER)
-    return np.where(integer, orders, 0.0).astype(np.int64)
+@callee
+def _product_orders(orders):
+    """For each order, the integer n if it is computed as a product of n factors, else 0."""
+    products = np.zeros(orders.size, dtype=np.int64)
+    for q in range(orders.size):
+        order = orders[q]
+        if order == math.floor(order) and 1.0 <= order <= MAX_PRODUCT_ORDER:
+            products[q] = np.int64(order)  # as int(), without compiling numba's int overload
+    return products
 
 
 def _emit_lane_totals(context, builder, rows, start, end, values, count):
@@ -706,12 +705,11 @@ def _record_velocity(e, lo, m, block_size, xs, ys, t, fcode, fp, ev_vref, vc_ptr
             vcorr[block, r, lag, 5] += v
 
 
-# called only from Python: no C-callable wrapper for first-class-function use (less to compile)
-@jit(no_cfunc_wrapper=True)
+@jit
 def run_particles(
     fcode, fp, ncode, nq, scheme, dt, key0, key1,
     x0, y0, first_index, stream_offset, block_size,
-    events, ev_out, ev_track, ev_ref, aged_ptr, aged_a, aged_l, orders, products,
+    events, ev_out, ev_track, ev_ref, aged_ptr, aged_a, aged_l, orders,
     moments, aged, tracks, n_tracked_here,
     hop_on, cell, margin, gap_steps, res_log_low, res_inv_width, fl_log_low, fl_inv_width,
     residence_hist, flight_hist, hop_count,
@@ -719,8 +717,7 @@ def run_particles(
 ):
     """Integrate particles ``first_index + i`` from (x0[i], y0[i]); see the module docstring.
 
-    ``stream_offset`` separates the random streams of different start regions; ``products``
-    is :func:`product_orders` of ``orders``.  ``status`` is
+    ``stream_offset`` separates the random streams of different start regions.  ``status`` is
     set to (global particle, step) of the lowest-numbered particle whose position became
     non-finite or ran away (at its first such step), else left at -1.
 
@@ -738,7 +735,7 @@ def run_particles(
     ys = np.empty(TILE)
     x_new = np.empty(TILE)
     y_new = np.empty(TILE)
-    work = np.empty((_WORK_ROWS, TILE))
+    work = np.empty((max(TILE_WORK_ROWS, PROJECTED_WORK_ROWS), TILE))
     ref = np.empty((TILE, max(aged.shape[1], 1), 2))
     vref = np.empty((max(vcorr.shape[1], 1), 2, TILE))
     tile_u = np.empty(TILE)
@@ -746,6 +743,7 @@ def run_particles(
     hop = np.zeros((HOP_ROWS, TILE))
     words = np.empty((4, TILE), dtype=np.uint64)
     z = np.zeros((4, TILE))
+    products = _product_orders(orders)
     moment_rows = np.zeros((MOMENT_ROWS, TILE + LANES))
     walls = has_walls(fcode)
     n = x0.size

@@ -21,7 +21,7 @@ from ..errors import BlowUpError
 from ..flows.compiled import CompiledCode
 from ..starts import area_fraction, sample_starts
 from .integrators import SCHEME_CODES
-from .kernel import AGED_COLUMNS, MOMENT_COLUMNS, N_BASE, product_orders, run_particles
+from .kernel import AGED_COLUMNS, MOMENT_COLUMNS, N_BASE, run_particles
 from .noise import pack_noise
 from .rng import split_seed
 from .schedule import MIN_CHECK_BATCH, Schedule, build_schedule
@@ -103,7 +103,6 @@ class _Context:
     key: tuple
     schedule: Schedule
     orders: np.ndarray
-    products: np.ndarray  # kernel.product_orders(orders)
     block_size: int
     tracked: int
     hop_on: bool
@@ -142,7 +141,7 @@ def _run_chunk(ctx: _Context, stream_offset: int, first: int, x0, y0):
         CompiledCode(ctx.scheme), ctx.dt, ctx.key[0], ctx.key[1],
         x0, y0, first, stream_offset, ctx.block_size,
         s.events, s.ev_out, s.ev_track, s.ev_ref, s.aged_ptr, s.aged_a, s.aged_l, ctx.orders,
-        ctx.products, moments, aged, tracks, n_tracked_here,
+        moments, aged, tracks, n_tracked_here,
         ctx.hop_on, ctx.cell, ctx.margin, ctx.gap_steps, res_low, res_inv, fl_low, fl_inv,
         residence, flights, hops, status, s.ev_vref, s.vc_ptr, s.vc_r, s.vc_l, vcorr,
     )
@@ -236,7 +235,6 @@ def _make_context(study, schedule: Schedule) -> tuple[_Context, np.ndarray, np.n
         fcode=family.code, fp=family.pack(params), ncode=ncode, nq=nq,
         scheme=SCHEME_CODES[run.integrator], dt=run.dt, key=(key[0], key[1]),
         schedule=schedule, orders=np.asarray(study.moments.orders, dtype=np.float64),
-        products=product_orders(study.moments.orders),
         block_size=block_size_for(run.particles, run.batches), tracked=run.tracked,
         hop_on=study.hopping.enabled, cell=cell, margin=study.hopping.margin,
         gap_steps=_gap_steps(gap, run.dt), residence_edges=residence_edges,

@@ -51,7 +51,7 @@ def _add(sums, slot, dx, dy):
     sums[slot, 4] += dx * dy
 
 
-@jit(no_cfunc_wrapper=True)  # called only from Python (as kernel.run_particles)
+@jit
 def run_step_check(fcode, fp, ncode, nq, scheme, dt, key0, key1, x0, y0, first_index,
                    stream_offset, out_steps, with_fine, fine, coarse, status):
     """Integrate particles ``first_index + i`` from (x0[i], y0[i]) at 2·dt (and at dt too when
