@@ -15,7 +15,8 @@ libraries.  Every second of CPU time is charged to the innermost function being 
 * LLVM fn — LLVM's per-function passes on the function's own module,
 * LLVM module — LLVM's module passes on the final module, with every linked callee's module
   linked in again (``CPUCodeLibrary.finalize``),
-* machine code — emitting the object code,
+* machine code — emitting the object code (an ``engine.callee`` function has none of its
+  own; its module is optimised when a caller links it, and charged to that caller),
 * other — numba's remaining passes (IR building, rewrites, inlining, analysis) and the time
   outside any pass (saving to the cache, dispatcher bookkeeping).
 
