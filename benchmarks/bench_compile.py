@@ -6,11 +6,12 @@ Kernels are specialised per study (family, scheme and noise model are compile-ti
 ``flows.compiled.CompiledCode``), so a cold run compiles only what its study uses and each
 family has its own cold start.  For every family study below, a fresh subprocess with an empty
 ``EDDYHOP_CACHE_DIR`` imports the package and runs the study up to its first finished chunk
-(the first progress tick; the start samplers, the step check and the ensemble kernel are
-compiled on the way); then ``--repeats`` more subprocesses do the same with that cache and must
-load machine code (numba cache hits, no compile).  Figures are the subprocess's CPU time
-(user + sys of its main thread, ``time.process_time``) and wall time; the load average is
-printed because the machine may be shared.
+(the first progress tick; the start samplers and the ensemble kernel are compiled on the way,
+the step check's kernel after it, when its tasks run); then ``--repeats`` more subprocesses do
+the same with that cache and must load machine code (numba cache hits, no compile).  Figures
+are the subprocess's CPU time (user + sys of its main thread, ``time.process_time``) and wall
+time; the load average is printed because the machine may be shared.  Where the compile time
+goes, per function and stage: ``benchmarks/profile_compile.py``.
 """
 
 from __future__ import annotations

@@ -45,6 +45,7 @@ from numba.extending import intrinsic, overload
 
 from .._jit import jit
 from ..flows.compiled import confine, has_walls, specialised_code
+from .callee import callee
 from .integrators import (
     EULER_MARUYAMA,
     MILSTEIN,
@@ -187,7 +188,7 @@ def _overload_start_tile(scheme, fcode, fp, xs, ys, dt, m, work):
     return start
 
 
-@jit
+@callee
 def normal_pairs_per_step(scheme):
     """Philox blocks (pairs of normals) a scheme consumes per step."""
     if scheme == RK4 or scheme == PROJECTED_RK45:
@@ -197,11 +198,11 @@ def normal_pairs_per_step(scheme):
     return 1
 
 
-@jit
+@callee
 def _log_bin(value, log_low, inv_width, n_bins):
     if value <= 0.0:
         return 0
-    index = int((math.log(value) - log_low) * inv_width)
+    index = np.int64((math.log(value) - log_low) * inv_width)  # as int(): truncation
     if index < 0:
         return 0
     if index >= n_bins:
@@ -220,7 +221,7 @@ def _abs_power(value, order):
     return value**order
 
 
-@jit
+@callee
 def _tile_length(lo, n, block_size):
     """Particles of the tile starting at chunk particle ``lo`` (a block or segment start).
 
@@ -252,7 +253,7 @@ def _hop_due(fx, fy, nx, ny, cx, cy, margin):
     ) & ((min(fy - ny, ny + 1.0 - fy) > margin) | (ny == cy))
 
 
-@jit
+@callee
 def _start_hops(hop, g, x, y, cell):
     cx = np.floor(x / cell)
     cy = np.floor(y / cell)
@@ -265,7 +266,7 @@ def _start_hops(hop, g, x, y, cell):
     hop[_HOP_DUE, g] = 0.0
 
 
-@jit
+@callee
 def _mark_hops(hop, xs, ys, m, cell, margin):
     """Mark (row ``_HOP_DUE``) the tile particles for which :func:`_check_hop` will count a
     hop; True when any is marked.  One vectorised pass over the tile: the common step, with
@@ -280,7 +281,7 @@ def _mark_hops(hop, xs, ys, m, cell, margin):
     return any_due
 
 
-@jit
+@callee
 def _check_hop(hop, g, x, y, step, dt, cell, margin, gap_steps, block,
                res_log_low, res_inv_width, fl_log_low, fl_inv_width,
                residence_hist, flight_hist, hop_count):
@@ -315,14 +316,14 @@ def _check_hop(hop, g, x, y, step, dt, cell, margin, gap_steps, block,
         hop[_ENTERED, g] = step
 
 
-@jit
+@callee
 def _product_orders(orders):
     """For each order, the integer n if it is computed as a product of n factors, else 0."""
     products = np.zeros(orders.size, dtype=np.int64)
     for q in range(orders.size):
         order = orders[q]
         if order == math.floor(order) and 1.0 <= order <= MAX_PRODUCT_ORDER:
-            products[q] = int(order)
+            products[q] = np.int64(order)  # as int(), without compiling numba's int overload
     return products
 
 
@@ -541,7 +542,7 @@ def _power_totals(typingctx, row, start, end, count, out):
     return types.none(row, start, end, count, out), codegen
 
 
-@jit
+@callee
 def _add_row(moments, slot, column, row, lo, m, block_size):
     """Add ``row[g]`` of tile particles ``0 .. m-1`` (chunk particles ``lo ..``) to column
     ``column`` of their blocks' sums: one lane sum per block segment (see ``LANES``)."""
@@ -555,7 +556,7 @@ def _add_row(moments, slot, column, row, lo, m, block_size):
         e = min(e + block_size, m)
 
 
-@jit
+@callee
 def _add_powers(moments, slot, family, row, lo, m, block_size, products, most, totals):
     """Add row^n (tile particles ``0 .. m-1``, chunk particles ``lo ..``) to the columns of
     the integer orders n = ``products[q]`` of ``family`` (0: |Δx|, 1: |Δy|, 2: |ΔX|), one
@@ -581,7 +582,7 @@ def _add_powers(moments, slot, family, row, lo, m, block_size, products, most, t
         e = min(e + block_size, m)
 
 
-@jit
+@callee
 def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, products, rows):
     """Add the displacements of tile particles ``0 .. m-1`` (chunk particles ``lo ..``) to the
     sums ``moments[block, slot]`` (columns: module docstring).
@@ -641,7 +642,7 @@ def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, produ
         _add_powers(moments, slot, 2, ar, lo, m, block_size, products, most, totals)
 
 
-@jit
+@callee
 def _record_event(e, lo, m, block_size, xs, ys, x0, y0, ref,
                   ev_out, ev_track, ev_ref, aged_ptr, aged_a, aged_l, orders, products,
                   moment_rows, moments, aged, tracks, n_tracked_here):
@@ -677,7 +678,7 @@ def _record_event(e, lo, m, block_size, xs, ys, x0, y0, ref,
             aged[block, a, lag, 3] += ar2 * ar2
 
 
-@jit
+@callee
 def _record_velocity(e, lo, m, block_size, xs, ys, t, fcode, fp, ev_vref, vc_ptr, vc_r, vc_l,
                      vref, us, vs, vcorr):
     """Velocity-correlation work of event ``e`` for tile particles ``lo .. lo + m - 1``.

@@ -33,6 +33,7 @@ import numpy as np
 
 from .._jit import jit
 from ..flows.compiled import confine, has_walls
+from .callee import callee
 from .integrators import STRANG_RK2, TILE_WORK_ROWS
 from .kernel import BLOWUP_LIMIT, TILE, _step_tile, normal_pairs_per_step
 from .rng import fill_normals
@@ -41,7 +42,7 @@ CHECK_COLUMNS = ("dx", "dy", "dx2", "dy2", "dxdy")
 _INV_SQRT2 = 1.0 / math.sqrt(2.0)
 
 
-@jit
+@callee
 def _add(sums, slot, dx, dy):
     sums[slot, 0] += dx
     sums[slot, 1] += dy
