@@ -47,8 +47,13 @@ def entry(argv=None):
     import signal
     import sys
 
+    from .._jit import rare_full_collections
+
     try:
-        result = main.main(args=argv, prog_name="eddyhop", standalone_mode=False)
+        # a command is one short process: its start-up imports (numba, xarray, pandas) build
+        # ≈ 10⁶ long-lived objects, and every full collection meanwhile walks them all
+        with rare_full_collections():
+            result = main.main(args=argv, prog_name="eddyhop", standalone_mode=False)
         code = result if isinstance(result, int) else 0
     except (KeyboardInterrupt, click.exceptions.Abort):
         click.echo("interrupted", err=True)
