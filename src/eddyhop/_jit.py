@@ -197,13 +197,14 @@ def rare_full_collections():
     """Postpone Python's full garbage collections while the body runs (nesting allowed).
 
     Numba's compiler builds large graphs of IR and type objects that die in reference cycles
-    after a few young-generation collections; a full collection meanwhile walks every object
-    of the process — numba's, NumPy's, pandas' and xarray's, ≈ 10⁶ after imports — to find
-    little: ten full collections cost ≈ 0.85 s of CPU in a cold ``eddyhop demo`` (gc
-    callbacks, measured).  Young generations are still collected as usual, so the garbage
-    of a compile is freed as before; what survives into the oldest generation waits for the
-    next full collection (peak memory of a cold `eddyhop demo` 334 → 363 MB).  The collector is never
-    disabled, and the previous thresholds come back when the outermost body ends.
+    after a few young-generation collections; a full collection meanwhile walks every
+    tracked object of the process (numba's, pandas', xarray's: ≈ 10⁵ after the imports, more
+    with every compiled function) to find little: ten full collections cost ≈ 0.85 s of CPU
+    in a cold ``eddyhop demo`` (gc callbacks, measured).  Young generations are still
+    collected as usual, so most of a compile's garbage is freed as before; what survives into
+    the oldest generation waits for the next full collection (peak memory of a cold
+    ``eddyhop demo``: 334 → 363 MB).  The collector is never disabled, and the previous
+    thresholds come back when the outermost body ends.
     """
     import gc
 
