@@ -51,7 +51,7 @@ def entry(argv=None):
 
     try:
         # a command is one short process: its start-up imports (numba, xarray, pandas) build
-        # ≈ 10⁶ long-lived objects, and every full collection meanwhile walks them all
+        # ≈ 10⁵ long-lived objects, and every full collection meanwhile walks them all
         with rare_full_collections():
             result = main.main(args=argv, prog_name="eddyhop", standalone_mode=False)
         code = result if isinstance(result, int) else 0
