@@ -104,7 +104,7 @@ class LazyDispatcher:
                         dispatcher = numba.njit(**settings)(self.py_func)
                         use_light_loading(dispatcher)  # cache hits skip numba's full start-up
                     _compile_without_literals(dispatcher)
-                    if _LLVM_INLINED:
+                    if _LLVM_INLINING_KERNELS:
                         _install_llvm_inlining()
                     if self._loop_interleave:
                         _compile_with_loop_interleave(dispatcher, self._loop_interleave)
@@ -194,9 +194,11 @@ def _module_attribute(module: str, qualname: str):
     return target
 
 
-# Mangled-name prefixes of the functions that LLVM must inline into every compiled caller
-# (``jit(inline_in_llvm=True)``; see :func:`_install_llvm_inlining`).
+# Mangled-name prefixes of the functions that LLVM inlines into the kernels that ask for it
+# (``jit(inline_in_llvm=True)`` and ``jit(llvm_inlines=True)``; see
+# :func:`_install_llvm_inlining`), and the qualified names of those kernels.
 _LLVM_INLINED: set[str] = set()
+_LLVM_INLINING_KERNELS: set[str] = set()
 
 
 def _mangled_prefix(function) -> str:
@@ -207,34 +209,37 @@ def _mangled_prefix(function) -> str:
 
 
 def _install_llvm_inlining() -> None:
-    """Mark the ``inline_in_llvm`` functions ``alwaysinline`` wherever they are linked into a
-    caller's module, before numba optimises that module (once per process).
+    """Before numba optimises the module of a ``llvm_inlines`` kernel (its callees' modules
+    linked in), mark the linked copies of the ``inline_in_llvm`` functions ``alwaysinline``
+    (installed once per process).
 
     A numba function called from another is compiled on its own and its optimised IR linked
     into the caller, where LLVM's inliner judges the tile loops too long to inline: each call
-    then passes every array as seven words on the stack and tests the reference counts of
-    each array argument (≈ 45 ns per call of a tile stepper, ≈ 0.5 ns per particle-step for
-    the calls of one step).  Inlined, the argument structures dissolve, numba's reference-
-    count pruning removes the pairs, and LLVM sees the whole step.  Inlining moves no
-    floating-point operation across another (no fast-math, no contraction): the numbers are
-    the same.  Only linked copies (``linkonce_odr``) are marked; the function's own
-    dispatcher, called from Python, is unchanged.  Numba typing, lowering and the callee's
-    own optimisation are not repeated: the inlining happens in LLVM's module passes.
+    then passes every array as seven words on the stack and tests the reference count of
+    each array argument (≈ 45 ns per call of a tile stepper; the calls of one step cost
+    ≈ 0.5 ns per particle-step).  Inlined, the argument structures dissolve, numba's
+    reference-count pruning removes the pairs, and LLVM sees the whole step.  Inlining moves
+    no floating-point operation across another (no fast-math, no contraction): the numbers
+    are the same.  Only the kernel's module is concerned — the functions' own dispatchers
+    and intermediate callers compile as before (inlining there too cost a cold start ≈ 1 s
+    of LLVM work on machine code that never runs) — and numba does no typing or lowering
+    again: the inlining happens in LLVM's module passes.
     """
     from llvmlite import binding as llvm
     from numba.core import codegen
 
-    library_class = codegen.CPUCodeLibrary
+    library_class = codegen.JITCodeLibrary
     if getattr(library_class, "_eddyhop_llvm_inlining", False):
         return
     optimize_final_module = library_class._optimize_final_module
 
     def _optimize_final_module(self):
-        prefixes = tuple(_LLVM_INLINED)
-        for function in self._final_module.functions:
-            if (function.linkage == llvm.Linkage.linkonce_odr and not function.is_declaration
-                    and function.name.startswith(prefixes)):
-                function.add_function_attribute("alwaysinline")
+        if self.name in _LLVM_INLINING_KERNELS:
+            prefixes = tuple(_LLVM_INLINED)
+            for function in self._final_module.functions:
+                if (function.linkage == llvm.Linkage.linkonce_odr
+                        and not function.is_declaration and function.name.startswith(prefixes)):
+                    function.add_function_attribute("alwaysinline")
         optimize_final_module(self)
 
     library_class._optimize_final_module = _optimize_final_module
@@ -242,16 +247,16 @@ def _install_llvm_inlining() -> None:
 
 
 def jit(function=None, *, before_first_use=None, loop_interleave=None, inline_in_llvm=False,
-        **options):
+        llvm_inlines=False, **options):
     """``numba.njit`` with the package's fixed options (cache, numpy error model, nogil).
 
     Returns a :class:`LazyDispatcher`: numba is imported and the dispatcher made on first use.
     ``before_first_use``: a callable run once just before that (it may import numba), e.g. to
     make the numba intrinsics the function's body names as globals.  ``loop_interleave``: see
     :func:`_compile_with_loop_interleave` (same numbers, different instruction schedule).
-    ``inline_in_llvm``: LLVM inlines the function into every compiled caller (see
-    :func:`_install_llvm_inlining`; numba's own ``inline="always"`` re-types the body in each
-    caller, which costs compile time).
+    ``inline_in_llvm``: LLVM inlines the function into the ``llvm_inlines`` kernels that
+    call it, directly or not (see :func:`_install_llvm_inlining`; numba's own
+    ``inline="always"`` re-types the body in each caller, which costs compile time).
     """
     settings = {"cache": True, "error_model": "numpy", "nogil": True, "fastmath": False}
     settings.update(options)
@@ -259,6 +264,8 @@ def jit(function=None, *, before_first_use=None, loop_interleave=None, inline_in
     def decorate(func):
         if inline_in_llvm:
             _LLVM_INLINED.add(_mangled_prefix(func))
+        if llvm_inlines:
+            _LLVM_INLINING_KERNELS.add(func.__qualname__)
         return LazyDispatcher(func, settings, before_first_use, loop_interleave)
 
     return decorate if function is None else decorate(function)

@@ -712,7 +712,10 @@ def _record_velocity(e, lo, m, block_size, xs, ys, t, fcode, fp, ev_vref, vc_ptr
             vcorr[block, r, lag, 5] += v
 
 
-@jit
+# llvm_inlines: the study's tile stepper and the random-number passes (``inline_in_llvm``
+# functions) are inlined into the step loop by LLVM — no call with a dozen array arguments
+# per tile and step (see ``_jit._install_llvm_inlining``); same numbers.
+@jit(llvm_inlines=True)
 def run_particles(
     fcode, fp, ncode, nq, scheme, dt, key0, key1,
     x0, y0, first_index, stream_offset, block_size,
