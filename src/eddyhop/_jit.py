@@ -194,18 +194,20 @@ def _module_attribute(module: str, qualname: str):
     return target
 
 
-# Mangled-name prefixes of the functions that LLVM inlines into the kernels that ask for it
-# (``jit(inline_in_llvm=True)`` and ``jit(llvm_inlines=True)``; see
-# :func:`_install_llvm_inlining`), and the qualified names of those kernels.
+# Functions (``module.qualname``) that LLVM inlines into the kernels that ask for it
+# (``jit(inline_in_llvm=True)``), and those kernels (``jit(llvm_inlines=True)``); see
+# :func:`_install_llvm_inlining`.
 _LLVM_INLINED: set[str] = set()
 _LLVM_INLINING_KERNELS: set[str] = set()
 
 
-def _mangled_prefix(function) -> str:
-    """The start of numba's mangled symbol of a module-level function (the part before its
-    ABI tags): ``_ZN7eddyhop6engine3rng12fill_normalsB``."""
-    parts = function.__module__.split(".") + function.__qualname__.split(".")
-    return "_ZN" + "".join(f"{len(part)}{part}" for part in parts) + "B"
+@functools.cache
+def _mangled_prefix(dotted_name: str) -> str:
+    """The start of numba's mangled symbol of the function ``module.qualname`` (the part
+    before its ABI tags): ``_ZN7eddyhop6engine3rng12fill_normalsB``."""
+    from numba.core.itanium_mangler import mangle_identifier
+
+    return "_Z" + mangle_identifier(dotted_name)[:-1] + "B"
 
 
 def _install_llvm_inlining() -> None:
@@ -234,12 +236,19 @@ def _install_llvm_inlining() -> None:
     optimize_final_module = library_class._optimize_final_module
 
     def _optimize_final_module(self):
-        if self.name in _LLVM_INLINING_KERNELS:
-            prefixes = tuple(_LLVM_INLINED)
-            for function in self._final_module.functions:
-                if (function.linkage == llvm.Linkage.linkonce_odr
-                        and not function.is_declaration and function.name.startswith(prefixes)):
-                    function.add_function_attribute("alwaysinline")
+        # the library is named after the function's qualname; its own (external) definition
+        # tells the module apart from another function of that qualname
+        if any(name.endswith("." + self.name) for name in _LLVM_INLINING_KERNELS):
+            kernels = tuple(_mangled_prefix(name) for name in _LLVM_INLINING_KERNELS)
+            inlined = tuple(_mangled_prefix(name) for name in _LLVM_INLINED)
+            functions = list(self._final_module.functions)
+            if any(f.linkage == llvm.Linkage.external and not f.is_declaration
+                   and f.name.startswith(kernels) for f in functions):
+                for function in functions:
+                    if (function.linkage == llvm.Linkage.linkonce_odr
+                            and not function.is_declaration
+                            and function.name.startswith(inlined)):
+                        function.add_function_attribute("alwaysinline")
         optimize_final_module(self)
 
     library_class._optimize_final_module = _optimize_final_module
@@ -263,9 +272,9 @@ def jit(function=None, *, before_first_use=None, loop_interleave=None, inline_in
 
     def decorate(func):
         if inline_in_llvm:
-            _LLVM_INLINED.add(_mangled_prefix(func))
+            _LLVM_INLINED.add(f"{func.__module__}.{func.__qualname__}")
         if llvm_inlines:
-            _LLVM_INLINING_KERNELS.add(func.__qualname__)
+            _LLVM_INLINING_KERNELS.add(f"{func.__module__}.{func.__qualname__}")
         return LazyDispatcher(func, settings, before_first_use, loop_interleave)
 
     return decorate if function is None else decorate(function)
