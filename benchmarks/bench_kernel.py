@@ -88,22 +88,21 @@ def step_parts(study):
     ``study`` alone, over the same particles, steps and tiles of ``kernel.TILE``:
     ``{"normals": ..., "normals: Philox": ..., "normals: Philox + common case": ...,
     "flow": ...}`` (each compiled on first use; call once before timing).  The two partial
-    normals callables run the first one and two passes of ``rng.fill_normals`` alone.
-    Compiled as the kernel is (``_jit.jit(llvm_inlines=True)``): the random-number passes
-    are inlined, so the parts carry no call overhead that the kernel does not pay."""
-    from eddyhop._jit import jit
+    normals callables run the first one and two passes of ``rng.fill_normals`` alone."""
+    import numba
+
     from eddyhop.engine.integrators import tile_velocity
     from eddyhop.engine.rng import _candidates, _fill_words, fill_normals, split_seed
     from eddyhop.flows.compiled import CompiledCode
 
-    @jit(llvm_inlines=True, cache=False)
+    @numba.njit
     def normals(k0, k1, n, steps, words, z):
         for lo in range(0, n, TILE):
             m = min(TILE, n - lo)
             for step in range(steps):
                 fill_normals(k0, k1, lo, m, step, 1, words, z)
 
-    @jit(llvm_inlines=True, cache=False)
+    @numba.njit
     def philox(k0, k1, n, steps, words):
         for lo in range(0, n, TILE):
             m = min(TILE, n - lo)
@@ -111,7 +110,7 @@ def step_parts(study):
                 _fill_words(np.uint64(k0), np.uint64(k1), lo, m, np.uint64(step), np.uint64(0),
                             0, words)
 
-    @jit(llvm_inlines=True, cache=False)
+    @numba.njit
     def common_case(k0, k1, n, steps, words, z):
         refused = np.uint64(0)
         for lo in range(0, n, TILE):
@@ -125,7 +124,7 @@ def step_parts(study):
                     refused |= _candidates(words, 1, first, last, z)
         return refused
 
-    @jit(llvm_inlines=True, cache=False)
+    @numba.njit
     def flow(fcode, fp, x0, y0, steps, dt, xs, ys, us, vs):
         n = x0.size
         for lo in range(0, n, TILE):

@@ -143,10 +143,10 @@ def advance(scheme, fcode, fp, ncode, nq, x, y, t, dt, sqrt_dt, z0, z1, z2, z3):
 
 
 # ---- tiles: the same rules for many particles at once ----------------------------------------
-# Not ``inline_in_llvm``: inlined into the kernel as well as the steppers and the random-
-# number passes it gained nothing measurable (Euler–Maruyama, cellular, raw kernel 8.74
-# against 8.62 ns) and cost ≈ 0.25 s more of the kernel's LLVM time on the demo's cold start
-# (one copy per call site: two for strang_rk2, one in the velocity recording).
+# Not ``inline_in_llvm``: inlined into the kernel besides the steppers and the random-number
+# passes it gained nothing measurable (Euler–Maruyama, cellular, raw kernel 8.74 against
+# 8.62 ns) and cost ≈ 0.25 s more of the kernel's LLVM time on the demo's cold start (one
+# copy per call site: two for strang_rk2, one in the velocity recording).
 @jit(loop_interleave=2)
 def tile_velocity(fcode, fp, xs, ys, t, us, vs, m):
     """(us[g], vs[g]) = velocity at (xs[g], ys[g], t) for g < m, family ``fcode``.

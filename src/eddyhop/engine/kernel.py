@@ -712,9 +712,9 @@ def _record_velocity(e, lo, m, block_size, xs, ys, t, fcode, fp, ev_vref, vc_ptr
             vcorr[block, r, lag, 5] += v
 
 
-# llvm_inlines: the study's tile stepper and the random-number passes (``inline_in_llvm``
-# functions) are inlined into the step loop by LLVM — no call with a dozen array arguments
-# per tile and step (see ``_jit._install_llvm_inlining``); same numbers.
+# llvm_inlines: the study's tile stepper (``inline_in_llvm``) is inlined into the step loop
+# by LLVM — no call with a dozen array arguments per tile and step (see
+# ``_jit._install_llvm_inlining``); same numbers.
 @jit(llvm_inlines=True)
 def run_particles(
     fcode, fp, ncode, nq, scheme, dt, key0, key1,

@@ -236,7 +236,7 @@ def normals4(k0, k1, particle, step):
     return z0, z1, z2, z3
 
 
-@jit(inline_in_llvm=True)
+@jit
 def _fill_words(key0, key1, first_particle, count, low, c1, slot, words):
     """Rows ``slot``, ``slot + 1`` of ``words``: the two 64-bit words of the Philox blocks
     with counter word ``c1`` of the tile's particles.  Philox only — the table lookups of
@@ -251,7 +251,7 @@ def _fill_words(key0, key1, first_particle, count, low, c1, slot, words):
         words[slot + 1, g] = word_b
 
 
-@jit(inline_in_llvm=True)
+@jit
 def _candidates(words, slot, start, stop, z):
     """Common-case values of the words ``start .. stop - 1`` (at most 64) of row ``slot``
     into ``z`` and the bit mask (bit ``g - start``) of the lanes whose word the common case
@@ -268,7 +268,11 @@ def _candidates(words, slot, start, stop, z):
     return rejected
 
 
-@jit(inline_in_llvm=True)
+# Not ``inline_in_llvm``: inlined into the kernel, the random-number passes saved another
+# ≈ 0.25 ns per particle-step but made every output time ≈ 0.5–1.4 ns per particle dearer
+# (the kernel re-enters its step loop after each event; the cost comes with _fill_words
+# inlined), which broke the output-time goal (measured A B, raw kernel).
+@jit
 def fill_normals(k0, k1, first_particle, count, step, n_pairs, words, z):
     """Normals of particles ``first_particle .. + count - 1`` at ``step`` into ``z[slot, g]``.
 
