@@ -1,5 +1,5 @@
 """``_jit.jit(inline_in_llvm=True)`` functions are inlined by LLVM into ``llvm_inlines`` kernels
-(the kernel's tile stepper and random-number passes, ``_jit._install_llvm_inlining``): no call
+(the kernel's tile stepper, ``_jit._install_llvm_inlining``): no call
 is left in the kernel, a plain caller keeps its call, and the numbers are the same."""
 
 from __future__ import annotations
