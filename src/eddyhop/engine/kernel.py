@@ -712,7 +712,10 @@ def _record_velocity(e, lo, m, block_size, xs, ys, t, fcode, fp, ev_vref, vc_ptr
             vcorr[block, r, lag, 5] += v
 
 
-@jit
+# llvm_inlines: the study's tile stepper (``inline_in_llvm``) is inlined into the step loop
+# by LLVM — no call with a dozen array arguments per tile and step (see
+# ``_jit._install_llvm_inlining``); same numbers.
+@jit(llvm_inlines=True)
 def run_particles(
     fcode, fp, ncode, nq, scheme, dt, key0, key1,
     x0, y0, first_index, stream_offset, block_size,
@@ -769,7 +772,9 @@ def run_particles(
         step = np.int64(0)  # not the constant 0: callees compile for int64 only
         for e in range(events.size):
             while step < events[e]:
-                fill_normals(key0, key1, particle0, m, step, n_pairs, words, z)
+                # borrowed views (see _borrowed): no atomic reference-count updates per step
+                fill_normals(key0, key1, particle0, m, step, n_pairs, _borrowed(words),
+                             _borrowed(z))
                 t = step * dt
                 _step_tile(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new,
                            y_new, work)
@@ -777,14 +782,18 @@ def run_particles(
                     for g in range(m):
                         x_new[g], y_new[g] = confine(fcode, xs[g], ys[g], x_new[g], y_new[g],
                                                      fp)
-                # the end points become the positions (swap the buffers, no copy)
-                xs, x_new = x_new, xs
-                ys, y_new = y_new, ys
                 step += 1
+                # The end points become the positions, copied in the same vectorised pass as
+                # the blow-up test (the per-particle loop below runs only when a particle ran
+                # away or a cell hop is due).  Not a swap of the buffers: reassigning array
+                # variables costs four atomic reference-count updates per tile and step.
                 runaway = False
-                for g in range(m):  # a vectorised test first; the per-particle loop below
-                    # runs only when a particle ran away or a cell hop is due
-                    runaway |= not ((abs(xs[g]) < BLOWUP_LIMIT) & (abs(ys[g]) < BLOWUP_LIMIT))
+                for g in range(m):
+                    x = x_new[g]
+                    y = y_new[g]
+                    xs[g] = x
+                    ys[g] = y
+                    runaway |= not ((abs(x) < BLOWUP_LIMIT) & (abs(y) < BLOWUP_LIMIT))
                 if not runaway:
                     if hop_on and not failed and _mark_hops(hop, xs, ys, m, cell, margin):
                         for g in range(m):  # only the marked particles: same counts as a

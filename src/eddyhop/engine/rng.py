@@ -268,6 +268,11 @@ def _candidates(words, slot, start, stop, z):
     return rejected
 
 
+# Not ``inline_in_llvm``: inlined into the kernel, the random-number passes saved another
+# ≈ 0.25 ns per particle-step but made every output time 0.4–2.8 ns per particle dearer,
+# depending on which of them were inlined (the kernel re-enters its step loop after each
+# event; the cost comes with _fill_words), which broke the output-time goal (measured A B,
+# raw kernel; docs/performance.md).
 @jit
 def fill_normals(k0, k1, first_particle, count, step, n_pairs, words, z):
     """Normals of particles ``first_particle .. + count - 1`` at ``step`` into ``z[slot, g]``.
