@@ -232,25 +232,31 @@ def _tile_length(lo, n, block_size):
     ``k·block_size // pieces`` from its start, one tile each.  Positions never depend on the
     tiling, only the segments of the moment sums do.
     """
+    # conditional expressions, not min(): typing the builtin's generic overload costs compile
+    # time (here and in the other helpers of the kernel)
+    left = n - lo
     if block_size <= TILE:
-        return min((TILE // block_size) * block_size, n - lo)
+        whole = (TILE // block_size) * block_size
+        return whole if whole < left else left
     pieces = -(-block_size // TILE)
     start = (lo // block_size) * block_size
     for k in range(1, pieces + 1):
         end = start + (k * block_size) // pieces
         if end > lo:
-            return min(end, n) - lo
-    return min(TILE, n - lo)
+            return (end if end < n else n) - lo
+    return TILE if TILE < left else left
 
 
 @jit(inline="always")
 def _hop_due(fx, fy, nx, ny, cx, cy, margin):
     """Whether a tracer at (fx, fy) cells, in cell (nx, ny) = floor, counts a hop from its
     counted cell (cx, cy): it changed cell and is ``margin`` deep in the new one along every
-    axis it crossed.  Non-short-circuit operators, so that the tile loop vectorises."""
+    axis it crossed.  Non-short-circuit operators, so that the tile loop vectorises; the depth
+    test min(a, b) > margin written as (a > margin) & (b > margin) (the same for the finite
+    positions tested here), without the ``min`` builtin."""
     return ((nx != cx) | (ny != cy)) & (
-        (min(fx - nx, nx + 1.0 - fx) > margin) | (nx == cx)
-    ) & ((min(fy - ny, ny + 1.0 - fy) > margin) | (ny == cy))
+        ((fx - nx > margin) & (nx + 1.0 - fx > margin)) | (nx == cx)
+    ) & (((fy - ny > margin) & (ny + 1.0 - fy > margin)) | (ny == cy))
 
 
 @callee
@@ -316,15 +322,45 @@ def _check_hop(hop, g, x, y, step, dt, cell, margin, gap_steps, block,
         hop[_ENTERED, g] = step
 
 
-@callee
-def _product_orders(orders):
-    """For each order, the integer n if it is computed as a product of n factors, else 0."""
+def product_orders(orders) -> np.ndarray:
+    """For each moment order (float64 array), the integer n if its power is computed as a
+    product of n factors (:func:`_abs_power`), else 0 (``pow``); int64, the kernel's
+    ``products`` argument."""
+    orders = np.asarray(orders, dtype=np.float64)
     products = np.zeros(orders.size, dtype=np.int64)
-    for q in range(orders.size):
-        order = orders[q]
+    for q, order in enumerate(orders):
         if order == math.floor(order) and 1.0 <= order <= MAX_PRODUCT_ORDER:
-            products[q] = np.int64(order)  # as int(), without compiling numba's int overload
+            products[q] = int(order)
     return products
+
+
+def tile_scratch(aging_refs: int, hops: bool, velocity_refs: int) -> dict:
+    """The per-call scratch of :func:`run_particles`, by argument name: fresh NumPy arrays
+    of O(``TILE``) size, for one call at a time (threads running chunks at once each need
+    their own).
+
+    Allocated by the caller, so that the kernel compiles no array allocation of its own (six
+    ``np.empty``/``np.zeros`` variants were ≈ 0.4 s of a cold start).  ``hop`` is None
+    unless ``hops`` (cell-hop bookkeeping), ``vref`` and ``tile_uv`` are None unless
+    ``velocity_refs`` > 0 (velocity-correlation references): the kernel's branches on them
+    are pruned at compile time (see :func:`run_particles`).  The arrays the kernel reads
+    before it writes them are zero (``z`` rows a scheme does not draw, the lane sums'
+    padding of ``moment_rows``); the others are only written before they are read.
+    """
+    return {
+        "xs": np.empty(TILE),
+        "ys": np.empty(TILE),
+        "x_new": np.empty(TILE),
+        "y_new": np.empty(TILE),
+        "work": np.empty((max(TILE_WORK_ROWS, PROJECTED_WORK_ROWS), TILE)),
+        "ref": np.empty((TILE, max(aging_refs, 1), 2)),
+        "words": np.empty((4, TILE), dtype=np.uint64),
+        "z": np.zeros((4, TILE)),
+        "moment_rows": np.zeros((MOMENT_ROWS, TILE + LANES)),
+        "hop": np.zeros((HOP_ROWS, TILE)) if hops else None,
+        "vref": np.empty((velocity_refs, 2, TILE)) if velocity_refs > 0 else None,
+        "tile_uv": np.empty((2, TILE)) if velocity_refs > 0 else None,
+    }
 
 
 def _emit_lane_totals(context, builder, rows, start, end, values, count):
@@ -548,12 +584,13 @@ def _add_row(moments, slot, column, row, lo, m, block_size):
     ``column`` of their blocks' sums: one lane sum per block segment (see ``LANES``)."""
     block = lo // block_size
     s = 0
-    e = min((block + 1) * block_size - lo, m)
+    e = (block + 1) * block_size - lo
+    e = e if e < m else m
     while s < m:
         moments[block, slot, column] += _lane_total(row, s, e)
         block += 1
         s = e
-        e = min(e + block_size, m)
+        e = e + block_size if e + block_size < m else m
 
 
 @callee
@@ -563,7 +600,8 @@ def _add_powers(moments, slot, family, row, lo, m, block_size, products, most, t
     :func:`_power_totals` pass per block segment (``most``: the highest n)."""
     block = lo // block_size
     s = 0
-    e = min((block + 1) * block_size - lo, m)
+    e = (block + 1) * block_size - lo
+    e = e if e < m else m
     while s < m:
         # powers up to the next even count: at most 32 lane vectors, all in registers
         if most <= 2:
@@ -579,7 +617,7 @@ def _add_powers(moments, slot, family, row, lo, m, block_size, products, most, t
                 moments[block, slot, N_BASE + 3 * q + family] += totals[products[q] - 1]
         block += 1
         s = e
-        e = min(e + block_size, m)
+        e = e + block_size if e + block_size < m else m
 
 
 @callee
@@ -602,7 +640,8 @@ def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, produ
         dy[g] = ys[g] - y0[lo + g]
     block = lo // block_size
     s = 0
-    e = min((block + 1) * block_size - lo, m)
+    e = (block + 1) * block_size - lo
+    e = e if e < m else m
     while s < m:
         _base_totals(dx, dy, s, e, 0, totals)
         for c in range(5):
@@ -612,7 +651,7 @@ def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, produ
             moments[block, slot, 5 + c] += totals[c]
         block += 1
         s = e
-        e = min(e + block_size, m)
+        e = e + block_size if e + block_size < m else m
     if orders.size == 0:
         return
     ax = rows[_AX]
@@ -626,7 +665,7 @@ def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, produ
         ar[g] = math.sqrt(dx[g] * dx[g] + dy[g] * dy[g])
     most = 0
     for q in range(orders.size):
-        most = max(most, products[q])
+        most = products[q] if products[q] > most else most
         if products[q] == 0:  # pow for the other orders
             for g in range(m):
                 v0[g] = ax[g] ** orders[q]
@@ -654,7 +693,8 @@ def _record_event(e, lo, m, block_size, xs, ys, x0, y0, ref,
                      moment_rows)
     tslot = ev_track[e]
     if tslot >= 0:
-        for g in range(min(m, n_tracked_here - lo)):
+        tracked = n_tracked_here - lo
+        for g in range(m if m < tracked else tracked):
             tracks[lo + g, tslot, 0] = xs[g]
             tracks[lo + g, tslot, 1] = ys[g]
     a_ref = ev_ref[e]
@@ -716,42 +756,34 @@ def _record_velocity(e, lo, m, block_size, xs, ys, t, fcode, fp, ev_vref, vc_ptr
 def run_particles(
     fcode, fp, ncode, nq, scheme, dt, key0, key1,
     x0, y0, first_index, stream_offset, block_size,
-    events, ev_out, ev_track, ev_ref, aged_ptr, aged_a, aged_l, orders,
+    events, ev_out, ev_track, ev_ref, aged_ptr, aged_a, aged_l, orders, products,
     moments, aged, tracks, n_tracked_here,
-    hop_on, cell, margin, gap_steps, res_log_low, res_inv_width, fl_log_low, fl_inv_width,
+    hop, cell, margin, gap_steps, res_log_low, res_inv_width, fl_log_low, fl_inv_width,
     residence_hist, flight_hist, hop_count,
-    status, ev_vref, vc_ptr, vc_r, vc_l, vcorr,
+    status, ev_vref, vc_ptr, vc_r, vc_l, vcorr, vref, tile_uv,
+    xs, ys, x_new, y_new, work, ref, words, z, moment_rows,
 ):
     """Integrate particles ``first_index + i`` from (x0[i], y0[i]); see the module docstring.
 
     ``stream_offset`` separates the random streams of different start regions.  ``status`` is
     set to (global particle, step) of the lowest-numbered particle whose position became
-    non-finite or ran away (at its first such step), else left at -1.
+    non-finite or ran away (at its first such step), else left at -1.  ``products``:
+    :func:`product_orders` of ``orders``.  ``hop`` … ``moment_rows`` (and ``vref``,
+    ``tile_uv``): scratch from :func:`tile_scratch`, one set per concurrent call.
 
     Specialised per study: ``fcode``, ``scheme`` and ``ncode`` are compile-time constants
     (``flows.compiled.CompiledCode``), so each combination is its own compiled (and cached)
     kernel that contains only that family's flow, that scheme and that noise model
-    (``flows/compiled.py``).
+    (``flows/compiled.py``).  The optional work is specialised by type too: ``hop`` (the
+    cell-hop state) is None when ``[hopping]`` is off, ``vref`` and ``tile_uv`` are None when
+    no velocity correlation is scheduled; numba prunes the branches ``if hop is not None``
+    and ``if vref is not None`` before typing (dead-branch pruning on None arguments), so
+    such a kernel never types, lowers or optimises that work.
     """
     sqrt_dt = math.sqrt(dt)
     n_pairs = normal_pairs_per_step(scheme)
     fp = _borrowed(fp)
     nq = _borrowed(nq)
-    # per-tile scratch, allocated once per call
-    xs = np.empty(TILE)
-    ys = np.empty(TILE)
-    x_new = np.empty(TILE)
-    y_new = np.empty(TILE)
-    work = np.empty((max(TILE_WORK_ROWS, PROJECTED_WORK_ROWS), TILE))
-    ref = np.empty((TILE, max(aged.shape[1], 1), 2))
-    vref = np.empty((max(vcorr.shape[1], 1), 2, TILE))
-    tile_u = np.empty(TILE)
-    tile_v = np.empty(TILE)
-    hop = np.zeros((HOP_ROWS, TILE))
-    words = np.empty((4, TILE), dtype=np.uint64)
-    z = np.zeros((4, TILE))
-    products = _product_orders(orders)
-    moment_rows = np.zeros((MOMENT_ROWS, TILE + LANES))
     walls = has_walls(fcode)
     n = x0.size
     lo = 0
@@ -762,7 +794,7 @@ def run_particles(
         for g in range(m):
             xs[g] = x0[lo + g]
             ys[g] = y0[lo + g]
-            if hop_on:
+            if hop is not None:
                 _start_hops(hop, g, xs[g], ys[g], cell)
         _start_tile(scheme, fcode, fp, xs, ys, dt, m, work)
         failed = False
@@ -786,7 +818,8 @@ def run_particles(
                     # runs only when a particle ran away or a cell hop is due
                     runaway |= not ((abs(xs[g]) < BLOWUP_LIMIT) & (abs(ys[g]) < BLOWUP_LIMIT))
                 if not runaway:
-                    if hop_on and not failed and _mark_hops(hop, xs, ys, m, cell, margin):
+                    if hop is not None and not failed and _mark_hops(hop, xs, ys, m, cell,
+                                                                     margin):
                         for g in range(m):  # only the marked particles: same counts as a
                             # call of _check_hop for every particle (it tests the same)
                             if hop[_HOP_DUE, g] != 0.0:
@@ -805,7 +838,7 @@ def run_particles(
                         xs[g] = x0[lo + g]
                         ys[g] = y0[lo + g]
                         failed = True
-                    elif hop_on and not failed:
+                    elif hop is not None and not failed:
                         _check_hop(hop, g, xs[g], ys[g], step, dt, cell, margin, gap_steps,
                                    (lo + g) // block_size, res_log_low, res_inv_width,
                                    fl_log_low, fl_inv_width, residence_hist, flight_hist,
@@ -819,11 +852,11 @@ def run_particles(
                               _borrowed(aged_a), _borrowed(aged_l), _borrowed(orders),
                               _borrowed(products), _borrowed(moment_rows), _borrowed(moments),
                               _borrowed(aged), _borrowed(tracks), n_tracked_here)
-                if ev_vref[e] >= 0 or vc_ptr[e] < vc_ptr[e + 1]:  # velocity work due
+                if vref is not None and (ev_vref[e] >= 0 or vc_ptr[e] < vc_ptr[e + 1]):
                     _record_velocity(e, lo, m, block_size, _borrowed(xs), _borrowed(ys),
                                      step * dt, fcode, fp, _borrowed(ev_vref),
                                      _borrowed(vc_ptr), _borrowed(vc_r), _borrowed(vc_l),
-                                     _borrowed(vref), _borrowed(tile_u), _borrowed(tile_v),
-                                     _borrowed(vcorr))
+                                     _borrowed(vref), _borrowed(tile_uv[0]),
+                                     _borrowed(tile_uv[1]), _borrowed(vcorr))
         if failed:
             return
