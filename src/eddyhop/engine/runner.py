@@ -33,7 +33,7 @@ from .noise import pack_noise
 from .rng import split_seed
 from .schedule import MIN_CHECK_BATCH, Schedule, build_schedule
 from .step_advice import STATIC_ADVECTIVE_LIMIT, _peak_speed, step_size_warnings  # noqa: F401
-from .stepcheck import CHECK_COLUMNS, run_step_check
+from .stepcheck import CHECK_COLUMNS, check_scratch, run_step_check
 from .streamline import scheme_parameters
 from .velocity_pairs import VELOCITY_COLUMNS
 
@@ -170,10 +170,13 @@ def _run_check_batch(ctx: _Context, stream_offset: int, first: int, x0, y0):
     s = ctx.schedule
     coarse = np.zeros((s.out_steps.size, len(CHECK_COLUMNS)))
     status = np.full(2, -1, dtype=np.int64)
+    w = check_scratch()  # this call's own (threads run check batches at once)
+    # no fine path (None): the ensemble's own block sums are the fine path's
     run_step_check(CompiledCode(ctx.fcode), ctx.fp, CompiledCode(ctx.ncode), ctx.nq,
                    CompiledCode(ctx.scheme), ctx.dt, ctx.key[0],
-                   ctx.key[1], x0, y0, first, stream_offset, s.out_steps, False,
-                   np.zeros((0, len(CHECK_COLUMNS))), coarse, status)
+                   ctx.key[1], x0, y0, first, stream_offset, s.out_steps, None, coarse, status,
+                   w["xs"], w["ys"], w["x_new"], w["y_new"], w["xc"], w["yc"], w["xc_new"],
+                   w["yc_new"], w["work"], w["words"], w["z"], w["zc"])
     return coarse, status
 
 
