@@ -363,6 +363,78 @@ def tile_scratch(aging_refs: int, hops: bool, velocity_refs: int) -> dict:
     }
 
 
+# The moment plan, a compile-time code (CompiledCode) of the kernel: the power pass of the
+# integer orders — their highest n rounded up to an even count, PLAN_POWERS[n] (0: none) — plus
+# PLAN_POW when some order is not a product (computed with ``pow``).  The six default orders
+# (1 … 6) compile one pass of six powers and no ``pow`` code; a study with other orders
+# compiles its own kernel.  The pass counts are those the kernel chose at run time before.
+PLAN_POW = 16
+PLAN_POWERS = (0, 2, 2, 4, 4, 6, 6, 8, 8)  # by the highest product order n = 0 … 8
+
+
+def moment_plan(products) -> int:
+    """The moment plan (see ``PLAN_POW``) of :func:`product_orders` ``products``."""
+    products = np.asarray(products, dtype=np.int64)
+    most = int(products.max()) if products.size else 0
+    return PLAN_POWERS[most] + (PLAN_POW if bool(np.any(products == 0)) else 0)
+
+
+def _power_pass(plan, row, start, end, totals):
+    raise NotImplementedError("compiled only")
+
+
+def _pow_orders(plan, moments, slot, lo, m, block_size, orders, products, rows):
+    raise NotImplementedError("compiled only")
+
+
+def _product_order_sums(plan, moments, slot, ax, ay, ar, lo, m, block_size, products, totals):
+    raise NotImplementedError("compiled only")
+
+
+def _plan(plan):
+    code = specialised_code(plan)
+    if code is None:
+        raise TypeError("the moment plan must be a compile-time code (CompiledCode)")
+    return code % PLAN_POW, code >= PLAN_POW
+
+
+@overload(_power_pass, **_SELECT)
+def _overload_power_pass(plan, row, start, end, totals):
+    count, _ = _plan(plan)
+    if count == 2:  # powers up to the next even count: at most 32 lane vectors in registers
+        return lambda plan, row, start, end, totals: _power_totals(row, start, end, 2, totals)
+    if count == 4:
+        return lambda plan, row, start, end, totals: _power_totals(row, start, end, 4, totals)
+    if count == 6:
+        return lambda plan, row, start, end, totals: _power_totals(row, start, end, 6, totals)
+    return lambda plan, row, start, end, totals: _power_totals(row, start, end, 8, totals)
+
+
+@overload(_pow_orders, **_SELECT)
+def _overload_pow_orders(plan, moments, slot, lo, m, block_size, orders, products, rows):
+    if not _plan(plan)[1]:
+        return lambda plan, moments, slot, lo, m, block_size, orders, products, rows: None
+
+    def add(plan, moments, slot, lo, m, block_size, orders, products, rows):
+        _add_pow_orders(moments, slot, lo, m, block_size, orders, products, rows)
+    return add
+
+
+@overload(_product_order_sums, **_SELECT)
+def _overload_product_order_sums(plan, moments, slot, ax, ay, ar, lo, m, block_size, products,
+                             totals):
+    if _plan(plan)[0] == 0:
+        def nothing(plan, moments, slot, ax, ay, ar, lo, m, block_size, products, totals):
+            pass
+        return nothing
+
+    def add(plan, moments, slot, ax, ay, ar, lo, m, block_size, products, totals):
+        _add_powers(moments, slot, 0, ax, lo, m, block_size, products, plan, totals)
+        _add_powers(moments, slot, 1, ay, lo, m, block_size, products, plan, totals)
+        _add_powers(moments, slot, 2, ar, lo, m, block_size, products, plan, totals)
+    return add
+
+
 def _emit_lane_totals(context, builder, rows, start, end, values, count):
     """LLVM code of ``count`` lane sums (see ``LANES``) over entries ``start .. end - 1``:
     ``values(inputs)`` maps the input vectors (eight consecutive entries of each row of
@@ -594,24 +666,16 @@ def _add_row(moments, slot, column, row, lo, m, block_size):
 
 
 @callee
-def _add_powers(moments, slot, family, row, lo, m, block_size, products, most, totals):
+def _add_powers(moments, slot, family, row, lo, m, block_size, products, plan, totals):
     """Add row^n (tile particles ``0 .. m-1``, chunk particles ``lo ..``) to the columns of
     the integer orders n = ``products[q]`` of ``family`` (0: |Δx|, 1: |Δy|, 2: |ΔX|), one
-    :func:`_power_totals` pass per block segment (``most``: the highest n)."""
+    :func:`_power_totals` pass per block segment (of the power count of ``plan``)."""
     block = lo // block_size
     s = 0
     e = (block + 1) * block_size - lo
     e = e if e < m else m
     while s < m:
-        # powers up to the next even count: at most 32 lane vectors, all in registers
-        if most <= 2:
-            _power_totals(row, s, e, 2, totals)
-        elif most <= 4:
-            _power_totals(row, s, e, 4, totals)
-        elif most <= 6:
-            _power_totals(row, s, e, 6, totals)
-        else:
-            _power_totals(row, s, e, 8, totals)
+        _power_pass(plan, row, s, e, totals)
         for q in range(products.size):
             if products[q] > 0:
                 moments[block, slot, N_BASE + 3 * q + family] += totals[products[q] - 1]
@@ -621,7 +685,30 @@ def _add_powers(moments, slot, family, row, lo, m, block_size, products, most, t
 
 
 @callee
-def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, products, rows):
+def _add_pow_orders(moments, slot, lo, m, block_size, orders, products, rows):
+    """Add |Δx|^q, |Δy|^q, |ΔX|^q (rows ``_AX``, ``_AY``, ``_AR`` of ``rows``) of the orders
+    that are not products (``products[q]`` = 0), by ``pow``, one lane sum per block segment
+    (:func:`_add_row`)."""
+    ax = rows[_AX]
+    ay = rows[_AY]
+    ar = rows[_AR]
+    v0 = rows[_V0]
+    v1 = rows[_V1]
+    for q in range(orders.size):
+        if products[q] == 0:
+            for g in range(m):
+                v0[g] = ax[g] ** orders[q]
+                v1[g] = ay[g] ** orders[q]
+            _add_row(moments, slot, N_BASE + 3 * q, v0, lo, m, block_size)
+            _add_row(moments, slot, N_BASE + 3 * q + 1, v1, lo, m, block_size)
+            for g in range(m):
+                v0[g] = ar[g] ** orders[q]
+            _add_row(moments, slot, N_BASE + 3 * q + 2, v0, lo, m, block_size)
+
+
+@callee
+def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, products, plan,
+                 rows):
     """Add the displacements of tile particles ``0 .. m-1`` (chunk particles ``lo ..``) to the
     sums ``moments[block, slot]`` (columns: module docstring).
 
@@ -657,39 +744,25 @@ def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, produ
     ax = rows[_AX]
     ay = rows[_AY]
     ar = rows[_AR]
-    v0 = rows[_V0]
-    v1 = rows[_V1]
     for g in range(m):
         ax[g] = abs(dx[g])
         ay[g] = abs(dy[g])
         ar[g] = math.sqrt(dx[g] * dx[g] + dy[g] * dy[g])
-    most = 0
-    for q in range(orders.size):
-        most = products[q] if products[q] > most else most
-        if products[q] == 0:  # pow for the other orders
-            for g in range(m):
-                v0[g] = ax[g] ** orders[q]
-                v1[g] = ay[g] ** orders[q]
-            _add_row(moments, slot, N_BASE + 3 * q, v0, lo, m, block_size)
-            _add_row(moments, slot, N_BASE + 3 * q + 1, v1, lo, m, block_size)
-            for g in range(m):
-                v0[g] = ar[g] ** orders[q]
-            _add_row(moments, slot, N_BASE + 3 * q + 2, v0, lo, m, block_size)
-    if most > 0:
-        _add_powers(moments, slot, 0, ax, lo, m, block_size, products, most, totals)
-        _add_powers(moments, slot, 1, ay, lo, m, block_size, products, most, totals)
-        _add_powers(moments, slot, 2, ar, lo, m, block_size, products, most, totals)
+    # the parts of the moment plan (compile-time): pow for the orders that are not products,
+    # running products for the others
+    _pow_orders(plan, moments, slot, lo, m, block_size, orders, products, rows)
+    _product_order_sums(plan, moments, slot, ax, ay, ar, lo, m, block_size, products, totals)
 
 
 @callee
 def _record_event(e, lo, m, block_size, xs, ys, x0, y0, ref,
-                  ev_out, ev_track, ev_ref, aged_ptr, aged_a, aged_l, orders, products,
+                  ev_out, ev_track, ev_ref, aged_ptr, aged_a, aged_l, orders, products, plan,
                   moment_rows, moments, aged, tracks, n_tracked_here):
     """Everything event ``e`` asks of tile particles ``lo .. lo + m - 1`` (moments: lane sums
     per block segment, see ``LANES``; aged sums: ascending particle order)."""
     slot = ev_out[e]
     if slot >= 0:
-        _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, products,
+        _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, products, plan,
                      moment_rows)
     tslot = ev_track[e]
     if tslot >= 0:
@@ -756,7 +829,7 @@ def _record_velocity(e, lo, m, block_size, xs, ys, t, fcode, fp, ev_vref, vc_ptr
 def run_particles(
     fcode, fp, ncode, nq, scheme, dt, key0, key1,
     x0, y0, first_index, stream_offset, block_size,
-    events, ev_out, ev_track, ev_ref, aged_ptr, aged_a, aged_l, orders, products,
+    events, ev_out, ev_track, ev_ref, aged_ptr, aged_a, aged_l, orders, products, plan,
     moments, aged, tracks, n_tracked_here,
     hop, cell, margin, gap_steps, res_log_low, res_inv_width, fl_log_low, fl_inv_width,
     residence_hist, flight_hist, hop_count,
@@ -768,13 +841,15 @@ def run_particles(
     ``stream_offset`` separates the random streams of different start regions.  ``status`` is
     set to (global particle, step) of the lowest-numbered particle whose position became
     non-finite or ran away (at its first such step), else left at -1.  ``products``:
-    :func:`product_orders` of ``orders``.  ``hop`` … ``moment_rows`` (and ``vref``,
-    ``tile_uv``): scratch from :func:`tile_scratch`, one set per concurrent call.
+    :func:`product_orders` of ``orders``; ``plan``: ``CompiledCode(moment_plan(products))``.
+    ``hop`` … ``moment_rows`` (and ``vref``, ``tile_uv``): scratch from :func:`tile_scratch`,
+    one set per concurrent call.
 
     Specialised per study: ``fcode``, ``scheme`` and ``ncode`` are compile-time constants
     (``flows.compiled.CompiledCode``), so each combination is its own compiled (and cached)
     kernel that contains only that family's flow, that scheme and that noise model
-    (``flows/compiled.py``).  The optional work is specialised by type too: ``hop`` (the
+    (``flows/compiled.py``); so is the moment plan (which power pass, whether any order needs
+    ``pow``: :func:`moment_plan`).  The optional work is specialised by type too: ``hop`` (the
     cell-hop state) is None when ``[hopping]`` is off, ``vref`` and ``tile_uv`` are None when
     no velocity correlation is scheduled; numba prunes the branches ``if hop is not None``
     and ``if vref is not None`` before typing (dead-branch pruning on None arguments), so
@@ -850,7 +925,8 @@ def run_particles(
                               _borrowed(x0), _borrowed(y0), _borrowed(ref), _borrowed(ev_out),
                               _borrowed(ev_track), _borrowed(ev_ref), _borrowed(aged_ptr),
                               _borrowed(aged_a), _borrowed(aged_l), _borrowed(orders),
-                              _borrowed(products), _borrowed(moment_rows), _borrowed(moments),
+                              _borrowed(products), plan, _borrowed(moment_rows),
+                              _borrowed(moments),
                               _borrowed(aged), _borrowed(tracks), n_tracked_here)
                 if vref is not None and (ev_vref[e] >= 0 or vc_ptr[e] < vc_ptr[e + 1]):
                     _record_velocity(e, lo, m, block_size, _borrowed(xs), _borrowed(ys),

@@ -25,6 +25,7 @@ from .kernel import (
     AGED_COLUMNS,
     MOMENT_COLUMNS,
     N_BASE,
+    moment_plan,
     product_orders,
     run_particles,
     tile_scratch,
@@ -119,9 +120,11 @@ class _Context:
     residence_edges: np.ndarray
     flight_edges: np.ndarray
     products: np.ndarray = field(init=False)  # kernel.product_orders(orders)
+    plan: int = field(init=False)  # kernel.moment_plan(products), a compile-time code
 
     def __post_init__(self):
         self.products = product_orders(self.orders)
+        self.plan = moment_plan(self.products)
 
 
 def _log_binning(edges):
@@ -156,7 +159,7 @@ def _run_chunk(ctx: _Context, stream_offset: int, first: int, x0, y0):
         CompiledCode(ctx.scheme), ctx.dt, ctx.key[0], ctx.key[1],
         x0, y0, first, stream_offset, ctx.block_size,
         s.events, s.ev_out, s.ev_track, s.ev_ref, s.aged_ptr, s.aged_a, s.aged_l, ctx.orders,
-        ctx.products, moments, aged, tracks, n_tracked_here,
+        ctx.products, CompiledCode(ctx.plan), moments, aged, tracks, n_tracked_here,
         scratch["hop"], ctx.cell, ctx.margin, ctx.gap_steps, res_low, res_inv, fl_low, fl_inv,
         residence, flights, hops, status, s.ev_vref, s.vc_ptr, s.vc_r, s.vc_l, vcorr,
         scratch["vref"], scratch["tile_uv"], scratch["xs"], scratch["ys"], scratch["x_new"],
