@@ -334,13 +334,32 @@ def product_orders(orders) -> np.ndarray:
     return products
 
 
+SCRATCH_ALIGNMENT = 64  # bytes: a cache line, a whole 8-double vector per load
+
+
+def aligned_array(shape, dtype=np.float64, zero: bool = False) -> np.ndarray:
+    """A C-contiguous NumPy array whose data starts on a ``SCRATCH_ALIGNMENT`` boundary
+    (zero-filled when ``zero``, else uninitialised).
+
+    NumPy's allocator guarantees only 16 bytes; the kernels' tile loops load and store whole
+    vectors of the scratch rows, which then straddle cache lines (measured 1–3 % slower per
+    particle-step than with numba's own 32-byte-aligned ``np.empty``).
+    """
+    dtype = np.dtype(dtype)
+    nbytes = int(np.prod(shape, dtype=np.int64)) * dtype.itemsize
+    raw = (np.zeros if zero else np.empty)(nbytes + SCRATCH_ALIGNMENT, dtype=np.uint8)
+    start = -raw.ctypes.data % SCRATCH_ALIGNMENT
+    return raw[start:start + nbytes].view(dtype).reshape(shape)
+
+
 def tile_scratch(aging_refs: int, hops: bool, velocity_refs: int) -> dict:
     """The per-call scratch of :func:`run_particles`, by argument name: fresh NumPy arrays
     of O(``TILE``) size, for one call at a time (threads running chunks at once each need
     their own).
 
     Allocated by the caller, so that the kernel compiles no array allocation of its own (six
-    ``np.empty``/``np.zeros`` variants were ≈ 0.4 s of a cold start).  ``hop`` is None
+    ``np.empty``/``np.zeros`` variants were ≈ 0.4 s of a cold start); cache-line aligned
+    (:func:`aligned_array`).  ``hop`` is None
     unless ``hops`` (cell-hop bookkeeping), ``vref`` and ``tile_uv`` are None unless
     ``velocity_refs`` > 0 (velocity-correlation references): the kernel's branches on them
     are pruned at compile time (see :func:`run_particles`).  The arrays the kernel reads
@@ -348,18 +367,18 @@ def tile_scratch(aging_refs: int, hops: bool, velocity_refs: int) -> dict:
     padding of ``moment_rows``); the others are only written before they are read.
     """
     return {
-        "xs": np.empty(TILE),
-        "ys": np.empty(TILE),
-        "x_new": np.empty(TILE),
-        "y_new": np.empty(TILE),
-        "work": np.empty((max(TILE_WORK_ROWS, PROJECTED_WORK_ROWS), TILE)),
-        "ref": np.empty((TILE, max(aging_refs, 1), 2)),
-        "words": np.empty((4, TILE), dtype=np.uint64),
-        "z": np.zeros((4, TILE)),
-        "moment_rows": np.zeros((MOMENT_ROWS, TILE + LANES)),
-        "hop": np.zeros((HOP_ROWS, TILE)) if hops else None,
-        "vref": np.empty((velocity_refs, 2, TILE)) if velocity_refs > 0 else None,
-        "tile_uv": np.empty((2, TILE)) if velocity_refs > 0 else None,
+        "xs": aligned_array(TILE),
+        "ys": aligned_array(TILE),
+        "x_new": aligned_array(TILE),
+        "y_new": aligned_array(TILE),
+        "work": aligned_array((max(TILE_WORK_ROWS, PROJECTED_WORK_ROWS), TILE)),
+        "ref": aligned_array((TILE, max(aging_refs, 1), 2)),
+        "words": aligned_array((4, TILE), dtype=np.uint64),
+        "z": aligned_array((4, TILE), zero=True),
+        "moment_rows": aligned_array((MOMENT_ROWS, TILE + LANES), zero=True),
+        "hop": aligned_array((HOP_ROWS, TILE), zero=True) if hops else None,
+        "vref": aligned_array((velocity_refs, 2, TILE)) if velocity_refs > 0 else None,
+        "tile_uv": aligned_array((2, TILE)) if velocity_refs > 0 else None,
     }
 
 

@@ -35,7 +35,7 @@ from .._jit import jit
 from ..flows.compiled import confine, has_walls
 from .callee import callee
 from .integrators import STRANG_RK2, TILE_WORK_ROWS
-from .kernel import BLOWUP_LIMIT, TILE, _step_tile, normal_pairs_per_step
+from .kernel import BLOWUP_LIMIT, TILE, _step_tile, aligned_array, normal_pairs_per_step
 from .rng import fill_normals
 
 CHECK_COLUMNS = ("dx", "dy", "dx2", "dy2", "dxdy")
@@ -53,15 +53,16 @@ def _add(sums, slot, dx, dy):
 
 def check_scratch() -> dict:
     """The per-call scratch of :func:`run_step_check`, by argument name: fresh NumPy arrays of
-    O(``TILE``) size for one call at a time (the caller allocates them, so the kernel compiles
-    no array allocation of its own).  ``z`` and ``zc`` are zero (rows a scheme does not draw
-    are read); the others are written before they are read."""
-    return {name: np.empty(TILE) for name in ("xs", "ys", "x_new", "y_new", "xc", "yc",
-                                              "xc_new", "yc_new")} | {
-        "work": np.empty((TILE_WORK_ROWS, TILE)),
-        "words": np.empty((4, TILE), dtype=np.uint64),
-        "z": np.zeros((4, TILE)),
-        "zc": np.zeros((4, TILE)),
+    O(``TILE``) size for one call at a time (the caller allocates them, cache-line aligned —
+    ``kernel.aligned_array`` — so the kernel compiles no array allocation of its own).  ``z``
+    and ``zc`` are zero (rows a scheme does not draw are read); the others are written before
+    they are read."""
+    return {name: aligned_array(TILE) for name in ("xs", "ys", "x_new", "y_new", "xc", "yc",
+                                                   "xc_new", "yc_new")} | {
+        "work": aligned_array((TILE_WORK_ROWS, TILE)),
+        "words": aligned_array((4, TILE), dtype=np.uint64),
+        "z": aligned_array((4, TILE), zero=True),
+        "zc": aligned_array((4, TILE), zero=True),
     }
 
 
