@@ -35,6 +35,7 @@ multiplication, others by ``pow``).  Aged columns: Σ|ΔX|², ΣΔx², ΣΔy², 
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -43,7 +44,7 @@ from numba import types
 from numba.core import cgutils
 from numba.extending import intrinsic, overload
 
-from .._jit import jit
+from .._jit import inline_only, jit
 from ..flows.compiled import confine, has_walls, specialised_code
 from .callee import callee
 from .integrators import (
@@ -135,7 +136,19 @@ _SELECT = {"inline": "always", "prefer_literal": True,
            "jit_options": {"error_model": "numpy", "fastmath": False}}
 
 
-@overload(_step_tile, **_SELECT)
+def _selector(target):
+    """``@overload(target, **_SELECT)`` whose implementations are :func:`_jit.inline_only`:
+    numba types and inlines them without compiling each on its own."""
+    def decorate(overload_function):
+        @functools.wraps(overload_function)
+        def select(*args):
+            implementation = overload_function(*args)
+            return None if implementation is None else inline_only(implementation)
+        return overload(target, **_SELECT)(select)
+    return decorate
+
+
+@_selector(_step_tile)
 def _overload_step_tile(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new,
                         y_new, work):
     code = specialised_code(scheme)
@@ -175,7 +188,7 @@ def _overload_step_tile(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z,
     return step
 
 
-@overload(_start_tile, **_SELECT)
+@_selector(_start_tile)
 def _overload_start_tile(scheme, fcode, fp, xs, ys, dt, m, work):
     code = specialised_code(scheme)
     if code is not None and code != PROJECTED_RK45:
@@ -417,7 +430,7 @@ def _plan(plan):
     return code % PLAN_POW, code >= PLAN_POW
 
 
-@overload(_power_pass, **_SELECT)
+@_selector(_power_pass)
 def _overload_power_pass(plan, row, start, end, totals):
     count, _ = _plan(plan)
     if count == 2:  # powers up to the next even count: at most 32 lane vectors in registers
@@ -429,7 +442,7 @@ def _overload_power_pass(plan, row, start, end, totals):
     return lambda plan, row, start, end, totals: _power_totals(row, start, end, 8, totals)
 
 
-@overload(_pow_orders, **_SELECT)
+@_selector(_pow_orders)
 def _overload_pow_orders(plan, moments, slot, lo, m, block_size, orders, products, rows):
     if not _plan(plan)[1]:
         return lambda plan, moments, slot, lo, m, block_size, orders, products, rows: None
@@ -439,7 +452,7 @@ def _overload_pow_orders(plan, moments, slot, lo, m, block_size, orders, product
     return add
 
 
-@overload(_product_order_sums, **_SELECT)
+@_selector(_product_order_sums)
 def _overload_product_order_sums(plan, moments, slot, ax, ay, ar, lo, m, block_size, products,
                              totals):
     if _plan(plan)[0] == 0:
