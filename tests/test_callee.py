@@ -55,6 +55,6 @@ def test_kernel_helpers_are_callees():
     for helper in (kernel._record_event, kernel._add_moments, kernel._add_powers,
                    kernel._add_row, kernel._record_velocity, kernel._check_hop,
                    kernel._mark_hops, kernel._start_hops, kernel._tile_length,
-                   kernel._log_bin, kernel._product_orders, kernel.normal_pairs_per_step,
+                   kernel._log_bin, kernel.normal_pairs_per_step,
                    stepcheck._add):
         assert isinstance(helper, Callee), helper

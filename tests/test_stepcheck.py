@@ -116,7 +116,7 @@ def test_fine_path_of_the_check_is_the_runs_own_path(integrator):
     only the order of summation differs (the ensemble folds block sums into batches)."""
     from eddyhop.engine.runner import _make_context
     from eddyhop.engine.schedule import build_schedule
-    from eddyhop.engine.stepcheck import CHECK_COLUMNS, run_step_check
+    from eddyhop.engine.stepcheck import CHECK_COLUMNS, check_scratch, run_step_check
     from eddyhop.starts import sample_starts
 
     study = make_study(noise={"peclet": 30.0},
@@ -130,8 +130,11 @@ def test_fine_path_of_the_check_is_the_runs_own_path(integrator):
     fine = np.zeros((schedule.out_steps.size, len(CHECK_COLUMNS)))
     coarse = np.zeros_like(fine)
     status = np.full(2, -1, dtype=np.int64)
+    w = check_scratch()
     run_step_check(ctx.fcode, ctx.fp, ctx.ncode, ctx.nq, ctx.scheme, ctx.dt, ctx.key[0],
-                   ctx.key[1], x0, y0, 0, 0, schedule.out_steps, True, fine, coarse, status)
+                   ctx.key[1], x0, y0, 0, 0, schedule.out_steps, fine, coarse, status,
+                   w["xs"], w["ys"], w["x_new"], w["y_new"], w["xc"], w["yc"], w["xc_new"],
+                   w["yc_new"], w["work"], w["words"], w["z"], w["zc"])
     ds, _ = _simulate(study)
     assert status[0] == -1
     for column, name in ((0, "mean_dx"), (2, "msd_x"), (3, "msd_y"), (4, "msd_xy")):

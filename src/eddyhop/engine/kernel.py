@@ -35,6 +35,7 @@ multiplication, others by ``pow``).  Aged columns: Σ|ΔX|², ΣΔx², ΣΔy², 
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -43,7 +44,7 @@ from numba import types
 from numba.core import cgutils
 from numba.extending import intrinsic, overload
 
-from .._jit import jit
+from .._jit import inline_only, jit
 from ..flows.compiled import confine, has_walls, specialised_code
 from .callee import callee
 from .integrators import (
@@ -135,7 +136,19 @@ _SELECT = {"inline": "always", "prefer_literal": True,
            "jit_options": {"error_model": "numpy", "fastmath": False}}
 
 
-@overload(_step_tile, **_SELECT)
+def _selector(target):
+    """``@overload(target, **_SELECT)`` whose implementations are :func:`_jit.inline_only`:
+    numba types and inlines them without compiling each on its own."""
+    def decorate(overload_function):
+        @functools.wraps(overload_function)
+        def select(*args):
+            implementation = overload_function(*args)
+            return None if implementation is None else inline_only(implementation)
+        return overload(target, **_SELECT)(select)
+    return decorate
+
+
+@_selector(_step_tile)
 def _overload_step_tile(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z, m, x_new,
                         y_new, work):
     code = specialised_code(scheme)
@@ -175,7 +188,7 @@ def _overload_step_tile(scheme, fcode, fp, ncode, nq, xs, ys, t, dt, sqrt_dt, z,
     return step
 
 
-@overload(_start_tile, **_SELECT)
+@_selector(_start_tile)
 def _overload_start_tile(scheme, fcode, fp, xs, ys, dt, m, work):
     code = specialised_code(scheme)
     if code is not None and code != PROJECTED_RK45:
@@ -232,25 +245,31 @@ def _tile_length(lo, n, block_size):
     ``k·block_size // pieces`` from its start, one tile each.  Positions never depend on the
     tiling, only the segments of the moment sums do.
     """
+    # conditional expressions, not min(): typing the builtin's generic overload costs compile
+    # time (here and in the other helpers of the kernel)
+    left = n - lo
     if block_size <= TILE:
-        return min((TILE // block_size) * block_size, n - lo)
+        whole = (TILE // block_size) * block_size
+        return whole if whole < left else left
     pieces = -(-block_size // TILE)
     start = (lo // block_size) * block_size
     for k in range(1, pieces + 1):
         end = start + (k * block_size) // pieces
         if end > lo:
-            return min(end, n) - lo
-    return min(TILE, n - lo)
+            return (end if end < n else n) - lo
+    return TILE if TILE < left else left
 
 
 @jit(inline="always")
 def _hop_due(fx, fy, nx, ny, cx, cy, margin):
     """Whether a tracer at (fx, fy) cells, in cell (nx, ny) = floor, counts a hop from its
     counted cell (cx, cy): it changed cell and is ``margin`` deep in the new one along every
-    axis it crossed.  Non-short-circuit operators, so that the tile loop vectorises."""
+    axis it crossed.  Non-short-circuit operators, so that the tile loop vectorises; the depth
+    test min(a, b) > margin written as (a > margin) & (b > margin) (the same for the finite
+    positions tested here), without the ``min`` builtin."""
     return ((nx != cx) | (ny != cy)) & (
-        (min(fx - nx, nx + 1.0 - fx) > margin) | (nx == cx)
-    ) & ((min(fy - ny, ny + 1.0 - fy) > margin) | (ny == cy))
+        ((fx - nx > margin) & (nx + 1.0 - fx > margin)) | (nx == cx)
+    ) & (((fy - ny > margin) & (ny + 1.0 - fy > margin)) | (ny == cy))
 
 
 @callee
@@ -316,15 +335,137 @@ def _check_hop(hop, g, x, y, step, dt, cell, margin, gap_steps, block,
         hop[_ENTERED, g] = step
 
 
-@callee
-def _product_orders(orders):
-    """For each order, the integer n if it is computed as a product of n factors, else 0."""
+def product_orders(orders) -> np.ndarray:
+    """For each moment order (float64 array), the integer n if its power is computed as a
+    product of n factors (:func:`_abs_power`), else 0 (``pow``); int64, the kernel's
+    ``products`` argument."""
+    orders = np.asarray(orders, dtype=np.float64)
     products = np.zeros(orders.size, dtype=np.int64)
-    for q in range(orders.size):
-        order = orders[q]
+    for q, order in enumerate(orders):
         if order == math.floor(order) and 1.0 <= order <= MAX_PRODUCT_ORDER:
-            products[q] = np.int64(order)  # as int(), without compiling numba's int overload
+            products[q] = int(order)
     return products
+
+
+SCRATCH_ALIGNMENT = 64  # bytes: a cache line, a whole 8-double vector per load
+
+
+def aligned_array(shape, dtype=np.float64, zero: bool = False) -> np.ndarray:
+    """A C-contiguous NumPy array whose data starts on a ``SCRATCH_ALIGNMENT`` boundary
+    (zero-filled when ``zero``, else uninitialised).
+
+    NumPy's allocator guarantees only 16 bytes, numba's own ``np.empty`` 32; the kernels'
+    tile loops load and store whole 8-double vectors of the scratch rows, which then never
+    straddle a cache line, whatever the allocator returns.  (Measured A B against numba's
+    allocation, the difference was within the ±2 % that separates one process from the next.)
+    """
+    dtype = np.dtype(dtype)
+    nbytes = int(np.prod(shape, dtype=np.int64)) * dtype.itemsize
+    raw = (np.zeros if zero else np.empty)(nbytes + SCRATCH_ALIGNMENT, dtype=np.uint8)
+    start = -raw.ctypes.data % SCRATCH_ALIGNMENT
+    return raw[start:start + nbytes].view(dtype).reshape(shape)
+
+
+def tile_scratch(aging_refs: int, hops: bool, velocity_refs: int) -> dict:
+    """The per-call scratch of :func:`run_particles`, by argument name: fresh NumPy arrays
+    of O(``TILE``) size, for one call at a time (threads running chunks at once each need
+    their own).
+
+    Allocated by the caller, so that the kernel compiles no array allocation of its own (six
+    ``np.empty``/``np.zeros`` variants were ≈ 0.4 s of a cold start); cache-line aligned
+    (:func:`aligned_array`).  ``hop`` is None unless ``hops`` (cell-hop bookkeeping), ``vref``
+    and ``tile_uv`` are None unless ``velocity_refs`` > 0 (velocity-correlation references):
+    the kernel's branches on them are pruned at compile time (see :func:`run_particles`).
+    The arrays the kernel reads before it writes them are zero (``z`` rows a scheme does not
+    draw, the lane sums' padding of ``moment_rows``); the others are only written before
+    they are read.
+    """
+    return {
+        "xs": aligned_array(TILE),
+        "ys": aligned_array(TILE),
+        "x_new": aligned_array(TILE),
+        "y_new": aligned_array(TILE),
+        "work": aligned_array((max(TILE_WORK_ROWS, PROJECTED_WORK_ROWS), TILE)),
+        "ref": aligned_array((TILE, max(aging_refs, 1), 2)),
+        "words": aligned_array((4, TILE), dtype=np.uint64),
+        "z": aligned_array((4, TILE), zero=True),
+        "moment_rows": aligned_array((MOMENT_ROWS, TILE + LANES), zero=True),
+        "hop": aligned_array((HOP_ROWS, TILE), zero=True) if hops else None,
+        "vref": aligned_array((velocity_refs, 2, TILE)) if velocity_refs > 0 else None,
+        "tile_uv": aligned_array((2, TILE)) if velocity_refs > 0 else None,
+    }
+
+
+# The moment plan, a compile-time code (CompiledCode) of the kernel: the power pass of the
+# integer orders — their highest n rounded up to an even count, PLAN_POWERS[n] (0: none) — plus
+# PLAN_POW when some order is not a product (computed with ``pow``).  The six default orders
+# (1 … 6) compile one pass of six powers and no ``pow`` code; a study with other orders
+# compiles its own kernel.  The pass counts are those the kernel chose at run time before.
+PLAN_POW = 16
+PLAN_POWERS = (0, 2, 2, 4, 4, 6, 6, 8, 8)  # by the highest product order n = 0 … 8
+
+
+def moment_plan(products) -> int:
+    """The moment plan (see ``PLAN_POW``) of :func:`product_orders` ``products``."""
+    products = np.asarray(products, dtype=np.int64)
+    most = int(products.max()) if products.size else 0
+    return PLAN_POWERS[most] + (PLAN_POW if bool(np.any(products == 0)) else 0)
+
+
+def _power_pass(plan, row, start, end, totals):
+    raise NotImplementedError("compiled only")
+
+
+def _pow_orders(plan, moments, slot, lo, m, block_size, orders, products, rows):
+    raise NotImplementedError("compiled only")
+
+
+def _product_order_sums(plan, moments, slot, ax, ay, ar, lo, m, block_size, products, totals):
+    raise NotImplementedError("compiled only")
+
+
+def _plan(plan):
+    code = specialised_code(plan)
+    if code is None:
+        raise TypeError("the moment plan must be a compile-time code (CompiledCode)")
+    return code % PLAN_POW, code >= PLAN_POW
+
+
+@_selector(_power_pass)
+def _overload_power_pass(plan, row, start, end, totals):
+    count, _ = _plan(plan)
+    if count == 2:  # powers up to the next even count: at most 32 lane vectors in registers
+        return lambda plan, row, start, end, totals: _power_totals(row, start, end, 2, totals)
+    if count == 4:
+        return lambda plan, row, start, end, totals: _power_totals(row, start, end, 4, totals)
+    if count == 6:
+        return lambda plan, row, start, end, totals: _power_totals(row, start, end, 6, totals)
+    return lambda plan, row, start, end, totals: _power_totals(row, start, end, 8, totals)
+
+
+@_selector(_pow_orders)
+def _overload_pow_orders(plan, moments, slot, lo, m, block_size, orders, products, rows):
+    if not _plan(plan)[1]:
+        return lambda plan, moments, slot, lo, m, block_size, orders, products, rows: None
+
+    def add(plan, moments, slot, lo, m, block_size, orders, products, rows):
+        _add_pow_orders(moments, slot, lo, m, block_size, orders, products, rows)
+    return add
+
+
+@_selector(_product_order_sums)
+def _overload_product_order_sums(plan, moments, slot, ax, ay, ar, lo, m, block_size,
+                                 products, totals):
+    if _plan(plan)[0] == 0:
+        def nothing(plan, moments, slot, ax, ay, ar, lo, m, block_size, products, totals):
+            pass
+        return nothing
+
+    def add(plan, moments, slot, ax, ay, ar, lo, m, block_size, products, totals):
+        _add_powers(moments, slot, 0, ax, lo, m, block_size, products, plan, totals)
+        _add_powers(moments, slot, 1, ay, lo, m, block_size, products, plan, totals)
+        _add_powers(moments, slot, 2, ar, lo, m, block_size, products, plan, totals)
+    return add
 
 
 def _emit_lane_totals(context, builder, rows, start, end, values, count):
@@ -548,42 +689,59 @@ def _add_row(moments, slot, column, row, lo, m, block_size):
     ``column`` of their blocks' sums: one lane sum per block segment (see ``LANES``)."""
     block = lo // block_size
     s = 0
-    e = min((block + 1) * block_size - lo, m)
+    e = (block + 1) * block_size - lo
+    e = e if e < m else m
     while s < m:
         moments[block, slot, column] += _lane_total(row, s, e)
         block += 1
         s = e
-        e = min(e + block_size, m)
+        e = e + block_size if e + block_size < m else m
 
 
 @callee
-def _add_powers(moments, slot, family, row, lo, m, block_size, products, most, totals):
+def _add_powers(moments, slot, family, row, lo, m, block_size, products, plan, totals):
     """Add row^n (tile particles ``0 .. m-1``, chunk particles ``lo ..``) to the columns of
     the integer orders n = ``products[q]`` of ``family`` (0: |Δx|, 1: |Δy|, 2: |ΔX|), one
-    :func:`_power_totals` pass per block segment (``most``: the highest n)."""
+    :func:`_power_totals` pass per block segment (of the power count of ``plan``)."""
     block = lo // block_size
     s = 0
-    e = min((block + 1) * block_size - lo, m)
+    e = (block + 1) * block_size - lo
+    e = e if e < m else m
     while s < m:
-        # powers up to the next even count: at most 32 lane vectors, all in registers
-        if most <= 2:
-            _power_totals(row, s, e, 2, totals)
-        elif most <= 4:
-            _power_totals(row, s, e, 4, totals)
-        elif most <= 6:
-            _power_totals(row, s, e, 6, totals)
-        else:
-            _power_totals(row, s, e, 8, totals)
+        _power_pass(plan, row, s, e, totals)
         for q in range(products.size):
             if products[q] > 0:
                 moments[block, slot, N_BASE + 3 * q + family] += totals[products[q] - 1]
         block += 1
         s = e
-        e = min(e + block_size, m)
+        e = e + block_size if e + block_size < m else m
 
 
 @callee
-def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, products, rows):
+def _add_pow_orders(moments, slot, lo, m, block_size, orders, products, rows):
+    """Add |Δx|^q, |Δy|^q, |ΔX|^q (rows ``_AX``, ``_AY``, ``_AR`` of ``rows``) of the orders
+    that are not products (``products[q]`` = 0), by ``pow``, one lane sum per block segment
+    (:func:`_add_row`)."""
+    ax = rows[_AX]
+    ay = rows[_AY]
+    ar = rows[_AR]
+    v0 = rows[_V0]
+    v1 = rows[_V1]
+    for q in range(orders.size):
+        if products[q] == 0:
+            for g in range(m):
+                v0[g] = ax[g] ** orders[q]
+                v1[g] = ay[g] ** orders[q]
+            _add_row(moments, slot, N_BASE + 3 * q, v0, lo, m, block_size)
+            _add_row(moments, slot, N_BASE + 3 * q + 1, v1, lo, m, block_size)
+            for g in range(m):
+                v0[g] = ar[g] ** orders[q]
+            _add_row(moments, slot, N_BASE + 3 * q + 2, v0, lo, m, block_size)
+
+
+@callee
+def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, products, plan,
+                 rows):
     """Add the displacements of tile particles ``0 .. m-1`` (chunk particles ``lo ..``) to the
     sums ``moments[block, slot]`` (columns: module docstring).
 
@@ -602,7 +760,8 @@ def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, produ
         dy[g] = ys[g] - y0[lo + g]
     block = lo // block_size
     s = 0
-    e = min((block + 1) * block_size - lo, m)
+    e = (block + 1) * block_size - lo
+    e = e if e < m else m
     while s < m:
         _base_totals(dx, dy, s, e, 0, totals)
         for c in range(5):
@@ -612,49 +771,36 @@ def _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, produ
             moments[block, slot, 5 + c] += totals[c]
         block += 1
         s = e
-        e = min(e + block_size, m)
+        e = e + block_size if e + block_size < m else m
     if orders.size == 0:
         return
     ax = rows[_AX]
     ay = rows[_AY]
     ar = rows[_AR]
-    v0 = rows[_V0]
-    v1 = rows[_V1]
     for g in range(m):
         ax[g] = abs(dx[g])
         ay[g] = abs(dy[g])
         ar[g] = math.sqrt(dx[g] * dx[g] + dy[g] * dy[g])
-    most = 0
-    for q in range(orders.size):
-        most = max(most, products[q])
-        if products[q] == 0:  # pow for the other orders
-            for g in range(m):
-                v0[g] = ax[g] ** orders[q]
-                v1[g] = ay[g] ** orders[q]
-            _add_row(moments, slot, N_BASE + 3 * q, v0, lo, m, block_size)
-            _add_row(moments, slot, N_BASE + 3 * q + 1, v1, lo, m, block_size)
-            for g in range(m):
-                v0[g] = ar[g] ** orders[q]
-            _add_row(moments, slot, N_BASE + 3 * q + 2, v0, lo, m, block_size)
-    if most > 0:
-        _add_powers(moments, slot, 0, ax, lo, m, block_size, products, most, totals)
-        _add_powers(moments, slot, 1, ay, lo, m, block_size, products, most, totals)
-        _add_powers(moments, slot, 2, ar, lo, m, block_size, products, most, totals)
+    # the parts of the moment plan (compile-time): pow for the orders that are not products,
+    # running products for the others
+    _pow_orders(plan, moments, slot, lo, m, block_size, orders, products, rows)
+    _product_order_sums(plan, moments, slot, ax, ay, ar, lo, m, block_size, products, totals)
 
 
 @callee
 def _record_event(e, lo, m, block_size, xs, ys, x0, y0, ref,
-                  ev_out, ev_track, ev_ref, aged_ptr, aged_a, aged_l, orders, products,
+                  ev_out, ev_track, ev_ref, aged_ptr, aged_a, aged_l, orders, products, plan,
                   moment_rows, moments, aged, tracks, n_tracked_here):
     """Everything event ``e`` asks of tile particles ``lo .. lo + m - 1`` (moments: lane sums
     per block segment, see ``LANES``; aged sums: ascending particle order)."""
     slot = ev_out[e]
     if slot >= 0:
-        _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, products,
+        _add_moments(moments, slot, lo, m, block_size, xs, ys, x0, y0, orders, products, plan,
                      moment_rows)
     tslot = ev_track[e]
     if tslot >= 0:
-        for g in range(min(m, n_tracked_here - lo)):
+        tracked = n_tracked_here - lo
+        for g in range(m if m < tracked else tracked):
             tracks[lo + g, tslot, 0] = xs[g]
             tracks[lo + g, tslot, 1] = ys[g]
     a_ref = ev_ref[e]
@@ -719,42 +865,36 @@ def _record_velocity(e, lo, m, block_size, xs, ys, t, fcode, fp, ev_vref, vc_ptr
 def run_particles(
     fcode, fp, ncode, nq, scheme, dt, key0, key1,
     x0, y0, first_index, stream_offset, block_size,
-    events, ev_out, ev_track, ev_ref, aged_ptr, aged_a, aged_l, orders,
+    events, ev_out, ev_track, ev_ref, aged_ptr, aged_a, aged_l, orders, products, plan,
     moments, aged, tracks, n_tracked_here,
-    hop_on, cell, margin, gap_steps, res_log_low, res_inv_width, fl_log_low, fl_inv_width,
+    hop, cell, margin, gap_steps, res_log_low, res_inv_width, fl_log_low, fl_inv_width,
     residence_hist, flight_hist, hop_count,
-    status, ev_vref, vc_ptr, vc_r, vc_l, vcorr,
+    status, ev_vref, vc_ptr, vc_r, vc_l, vcorr, vref, tile_uv,
+    xs, ys, x_new, y_new, work, ref, words, z, moment_rows,
 ):
     """Integrate particles ``first_index + i`` from (x0[i], y0[i]); see the module docstring.
 
     ``stream_offset`` separates the random streams of different start regions.  ``status`` is
     set to (global particle, step) of the lowest-numbered particle whose position became
-    non-finite or ran away (at its first such step), else left at -1.
+    non-finite or ran away (at its first such step), else left at -1.  ``products``:
+    :func:`product_orders` of ``orders``; ``plan``: ``CompiledCode(moment_plan(products))``.
+    ``hop`` … ``moment_rows`` (and ``vref``, ``tile_uv``): scratch from :func:`tile_scratch`,
+    one set per concurrent call.
 
     Specialised per study: ``fcode``, ``scheme`` and ``ncode`` are compile-time constants
     (``flows.compiled.CompiledCode``), so each combination is its own compiled (and cached)
     kernel that contains only that family's flow, that scheme and that noise model
-    (``flows/compiled.py``).
+    (``flows/compiled.py``); so is the moment plan (which power pass, whether any order needs
+    ``pow``: :func:`moment_plan`).  The optional work is specialised by type too: ``hop`` (the
+    cell-hop state) is None when ``[hopping]`` is off, ``vref`` and ``tile_uv`` are None when
+    no velocity correlation is scheduled; numba prunes the branches ``if hop is not None``
+    and ``if vref is not None`` before typing (dead-branch pruning on None arguments), so
+    such a kernel never types, lowers or optimises that work.
     """
     sqrt_dt = math.sqrt(dt)
     n_pairs = normal_pairs_per_step(scheme)
     fp = _borrowed(fp)
     nq = _borrowed(nq)
-    # per-tile scratch, allocated once per call
-    xs = np.empty(TILE)
-    ys = np.empty(TILE)
-    x_new = np.empty(TILE)
-    y_new = np.empty(TILE)
-    work = np.empty((max(TILE_WORK_ROWS, PROJECTED_WORK_ROWS), TILE))
-    ref = np.empty((TILE, max(aged.shape[1], 1), 2))
-    vref = np.empty((max(vcorr.shape[1], 1), 2, TILE))
-    tile_u = np.empty(TILE)
-    tile_v = np.empty(TILE)
-    hop = np.zeros((HOP_ROWS, TILE))
-    words = np.empty((4, TILE), dtype=np.uint64)
-    z = np.zeros((4, TILE))
-    products = _product_orders(orders)
-    moment_rows = np.zeros((MOMENT_ROWS, TILE + LANES))
     walls = has_walls(fcode)
     n = x0.size
     lo = 0
@@ -765,7 +905,7 @@ def run_particles(
         for g in range(m):
             xs[g] = x0[lo + g]
             ys[g] = y0[lo + g]
-            if hop_on:
+            if hop is not None:
                 _start_hops(hop, g, xs[g], ys[g], cell)
         _start_tile(scheme, fcode, fp, xs, ys, dt, m, work)
         failed = False
@@ -795,7 +935,8 @@ def run_particles(
                     ys[g] = y
                     runaway |= not ((abs(x) < BLOWUP_LIMIT) & (abs(y) < BLOWUP_LIMIT))
                 if not runaway:
-                    if hop_on and not failed and _mark_hops(hop, xs, ys, m, cell, margin):
+                    if hop is not None and not failed and _mark_hops(hop, xs, ys, m, cell,
+                                                                     margin):
                         for g in range(m):  # only the marked particles: same counts as a
                             # call of _check_hop for every particle (it tests the same)
                             if hop[_HOP_DUE, g] != 0.0:
@@ -814,7 +955,7 @@ def run_particles(
                         xs[g] = x0[lo + g]
                         ys[g] = y0[lo + g]
                         failed = True
-                    elif hop_on and not failed:
+                    elif hop is not None and not failed:
                         _check_hop(hop, g, xs[g], ys[g], step, dt, cell, margin, gap_steps,
                                    (lo + g) // block_size, res_log_low, res_inv_width,
                                    fl_log_low, fl_inv_width, residence_hist, flight_hist,
@@ -826,13 +967,14 @@ def run_particles(
                               _borrowed(x0), _borrowed(y0), _borrowed(ref), _borrowed(ev_out),
                               _borrowed(ev_track), _borrowed(ev_ref), _borrowed(aged_ptr),
                               _borrowed(aged_a), _borrowed(aged_l), _borrowed(orders),
-                              _borrowed(products), _borrowed(moment_rows), _borrowed(moments),
+                              _borrowed(products), plan, _borrowed(moment_rows),
+                              _borrowed(moments),
                               _borrowed(aged), _borrowed(tracks), n_tracked_here)
-                if ev_vref[e] >= 0 or vc_ptr[e] < vc_ptr[e + 1]:  # velocity work due
+                if vref is not None and (ev_vref[e] >= 0 or vc_ptr[e] < vc_ptr[e + 1]):
                     _record_velocity(e, lo, m, block_size, _borrowed(xs), _borrowed(ys),
                                      step * dt, fcode, fp, _borrowed(ev_vref),
                                      _borrowed(vc_ptr), _borrowed(vc_r), _borrowed(vc_l),
-                                     _borrowed(vref), _borrowed(tile_u), _borrowed(tile_v),
-                                     _borrowed(vcorr))
+                                     _borrowed(vref), _borrowed(tile_uv[0]),
+                                     _borrowed(tile_uv[1]), _borrowed(vcorr))
         if failed:
             return

@@ -21,12 +21,20 @@ from ..errors import BlowUpError
 from ..flows.compiled import CompiledCode
 from ..starts import area_fraction, sample_starts
 from .integrators import SCHEME_CODES
-from .kernel import AGED_COLUMNS, MOMENT_COLUMNS, N_BASE, run_particles
+from .kernel import (
+    AGED_COLUMNS,
+    MOMENT_COLUMNS,
+    N_BASE,
+    moment_plan,
+    product_orders,
+    run_particles,
+    tile_scratch,
+)
 from .noise import pack_noise
 from .rng import split_seed
 from .schedule import MIN_CHECK_BATCH, Schedule, build_schedule
 from .step_advice import STATIC_ADVECTIVE_LIMIT, _peak_speed, step_size_warnings  # noqa: F401
-from .stepcheck import CHECK_COLUMNS, run_step_check
+from .stepcheck import CHECK_COLUMNS, check_scratch, run_step_check
 from .streamline import scheme_parameters
 from .velocity_pairs import VELOCITY_COLUMNS
 
@@ -111,6 +119,12 @@ class _Context:
     gap_steps: int
     residence_edges: np.ndarray
     flight_edges: np.ndarray
+    products: np.ndarray = field(init=False)  # kernel.product_orders(orders)
+    plan: int = field(init=False)  # kernel.moment_plan(products), a compile-time code
+
+    def __post_init__(self):
+        self.products = product_orders(self.orders)
+        self.plan = moment_plan(self.products)
 
 
 def _log_binning(edges):
@@ -135,15 +149,22 @@ def _run_chunk(ctx: _Context, stream_offset: int, first: int, x0, y0):
     status = np.full(2, -1, dtype=np.int64)
     res_low, res_inv = _log_binning(ctx.residence_edges)
     fl_low, fl_inv = _log_binning(ctx.flight_edges)
-    # family, noise model and scheme as compile-time constants: a kernel specialised per study
+    # the kernel's scratch, this call's own (threads run chunks at once); no hop state or
+    # velocity buffers (None) when the study has no hops or velocity correlations
+    scratch = tile_scratch(s.aging_steps.size, ctx.hop_on, s.vc_ref_steps.size)
+    # family, noise model and scheme as compile-time constants, the optional work by the
+    # None-or-array type of its scratch: a kernel specialised per study
     run_particles(
         CompiledCode(ctx.fcode), ctx.fp, CompiledCode(ctx.ncode), ctx.nq,
         CompiledCode(ctx.scheme), ctx.dt, ctx.key[0], ctx.key[1],
         x0, y0, first, stream_offset, ctx.block_size,
         s.events, s.ev_out, s.ev_track, s.ev_ref, s.aged_ptr, s.aged_a, s.aged_l, ctx.orders,
-        moments, aged, tracks, n_tracked_here,
-        ctx.hop_on, ctx.cell, ctx.margin, ctx.gap_steps, res_low, res_inv, fl_low, fl_inv,
+        ctx.products, CompiledCode(ctx.plan), moments, aged, tracks, n_tracked_here,
+        scratch["hop"], ctx.cell, ctx.margin, ctx.gap_steps, res_low, res_inv, fl_low, fl_inv,
         residence, flights, hops, status, s.ev_vref, s.vc_ptr, s.vc_r, s.vc_l, vcorr,
+        scratch["vref"], scratch["tile_uv"], scratch["xs"], scratch["ys"], scratch["x_new"],
+        scratch["y_new"], scratch["work"], scratch["ref"], scratch["words"], scratch["z"],
+        scratch["moment_rows"],
     )
     return moments, aged, tracks, residence, flights, hops, vcorr, status
 
@@ -152,10 +173,13 @@ def _run_check_batch(ctx: _Context, stream_offset: int, first: int, x0, y0):
     s = ctx.schedule
     coarse = np.zeros((s.out_steps.size, len(CHECK_COLUMNS)))
     status = np.full(2, -1, dtype=np.int64)
+    w = check_scratch()  # this call's own (threads run check batches at once)
+    # no fine path (None): the ensemble's own block sums are the fine path's
     run_step_check(CompiledCode(ctx.fcode), ctx.fp, CompiledCode(ctx.ncode), ctx.nq,
                    CompiledCode(ctx.scheme), ctx.dt, ctx.key[0],
-                   ctx.key[1], x0, y0, first, stream_offset, s.out_steps, False,
-                   np.zeros((0, len(CHECK_COLUMNS))), coarse, status)
+                   ctx.key[1], x0, y0, first, stream_offset, s.out_steps, None, coarse, status,
+                   w["xs"], w["ys"], w["x_new"], w["y_new"], w["xc"], w["yc"], w["xc_new"],
+                   w["yc_new"], w["work"], w["words"], w["z"], w["zc"])
     return coarse, status
 
 

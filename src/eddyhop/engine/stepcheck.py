@@ -35,7 +35,7 @@ from .._jit import jit
 from ..flows.compiled import confine, has_walls
 from .callee import callee
 from .integrators import STRANG_RK2, TILE_WORK_ROWS
-from .kernel import BLOWUP_LIMIT, TILE, _step_tile, normal_pairs_per_step
+from .kernel import BLOWUP_LIMIT, TILE, _step_tile, aligned_array, normal_pairs_per_step
 from .rng import fill_normals
 
 CHECK_COLUMNS = ("dx", "dy", "dx2", "dy2", "dxdy")
@@ -51,12 +51,30 @@ def _add(sums, slot, dx, dy):
     sums[slot, 4] += dx * dy
 
 
+def check_scratch() -> dict:
+    """The per-call scratch of :func:`run_step_check`, by argument name: fresh NumPy arrays of
+    O(``TILE``) size for one call at a time (the caller allocates them, cache-line aligned —
+    ``kernel.aligned_array`` — so the kernel compiles no array allocation of its own).  ``z``
+    and ``zc`` are zero (rows a scheme does not draw are read); the others are written before
+    they are read."""
+    return {name: aligned_array(TILE) for name in ("xs", "ys", "x_new", "y_new", "xc", "yc",
+                                                   "xc_new", "yc_new")} | {
+        "work": aligned_array((TILE_WORK_ROWS, TILE)),
+        "words": aligned_array((4, TILE), dtype=np.uint64),
+        "z": aligned_array((4, TILE), zero=True),
+        "zc": aligned_array((4, TILE), zero=True),
+    }
+
+
 @jit
 def run_step_check(fcode, fp, ncode, nq, scheme, dt, key0, key1, x0, y0, first_index,
-                   stream_offset, out_steps, with_fine, fine, coarse, status):
+                   stream_offset, out_steps, fine, coarse, status,
+                   xs, ys, x_new, y_new, xc, yc, xc_new, yc_new, work, words, z, zc):
     """Integrate particles ``first_index + i`` from (x0[i], y0[i]) at 2·dt (and at dt too when
-    ``with_fine``: the ensemble kernel's paths, recomputed — the runner takes them from the
-    ensemble's own block sums instead, so the check costs only the coarse path and the draws).
+    ``fine`` is an array, not None: the ensemble kernel's paths, recomputed — the runner takes
+    them from the ensemble's own block sums instead, so the check costs only the coarse path
+    and the draws; with ``fine`` None numba prunes the fine path before typing, so that kernel
+    does not contain it).  ``xs`` … ``zc``: scratch from :func:`check_scratch`.
 
     ``fine``, ``coarse``: [T, 5] sums (columns ``CHECK_COLUMNS``) at the output steps
     ``out_steps`` (increasing, > 0), added in ascending particle order.  ``status`` is set to
@@ -71,24 +89,12 @@ def run_step_check(fcode, fp, ncode, nq, scheme, dt, key0, key1, x0, y0, first_i
     sqrt_coarse_dt = math.sqrt(coarse_dt)
     n_pairs = normal_pairs_per_step(scheme)
     splitting = scheme == STRANG_RK2
-    xs = np.empty(TILE)
-    ys = np.empty(TILE)
-    x_new = np.empty(TILE)
-    y_new = np.empty(TILE)
-    xc = np.empty(TILE)
-    yc = np.empty(TILE)
-    xc_new = np.empty(TILE)
-    yc_new = np.empty(TILE)
-    work = np.empty((TILE_WORK_ROWS, TILE))
-    words = np.empty((4, TILE), dtype=np.uint64)
-    z = np.zeros((4, TILE))
-    zc = np.zeros((4, TILE))
     walls = has_walls(fcode)
     n = x0.size
     n_out = out_steps.size
     last = out_steps[n_out - 1]
     for lo in range(0, n, TILE):
-        m = min(TILE, n - lo)
+        m = TILE if TILE < n - lo else n - lo  # not min(): its typing costs compile time
         particle0 = stream_offset + first_index + lo
         for g in range(m):
             xs[g] = x0[lo + g]
@@ -99,7 +105,7 @@ def run_step_check(fcode, fp, ncode, nq, scheme, dt, key0, key1, x0, y0, first_i
         failed = False
         for step in range(last):
             fill_normals(key0, key1, particle0, m, step, n_pairs, words, z)
-            if with_fine:
+            if fine is not None:
                 _step_tile(scheme, fcode, fp, ncode, nq, xs, ys, step * dt, dt, sqrt_dt, z, m,
                            x_new, y_new, work)
                 if walls:
@@ -142,7 +148,7 @@ def run_step_check(fcode, fp, ncode, nq, scheme, dt, key0, key1, x0, y0, first_i
                     break
             done = step + 1
             while k < n_out and out_steps[k] == done:
-                if with_fine:
+                if fine is not None:
                     for g in range(m):
                         _add(fine, k, xs[g] - x0[lo + g], ys[g] - y0[lo + g])
                 if odd:

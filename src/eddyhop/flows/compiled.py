@@ -25,7 +25,7 @@ from numba import types
 from numba.core import cgutils
 from numba.extending import NativeValue, models, overload, register_model, typeof_impl, unbox
 
-from .._jit import jit
+from .._jit import inline_only, jit
 from . import registry
 
 # The generated switches are inlined into their callers (numba IR inlining) and compiled with
@@ -144,7 +144,7 @@ def _generate(kind: str, code_type=None):
         lines.append(f"    return {fallback}")
     source = "\n".join([*lines, ""])
     exec(compile(source, f"<eddyhop.flows.compiled: {kind} switch>", "exec"), namespace)
-    return namespace["switch"]
+    return inline_only(namespace["switch"])  # typed and inlined, never compiled on its own
 
 
 def _switch_velocity(code, x, y, t, p):
