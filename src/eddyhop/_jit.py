@@ -392,6 +392,8 @@ def jit(function=None, *, before_first_use=None, loop_interleave=None, inline_in
     ``inline_in_llvm``: LLVM inlines the function into the ``llvm_inlines`` kernels that
     call it, directly or not (see :func:`_install_llvm_inlining`; numba's own
     ``inline="always"`` re-types the body in each caller, which costs compile time).
+    ``llvm_inlines``: the function is such a kernel (its module is the only place the
+    ``inline_in_llvm`` functions are inlined).
     """
     settings = {"cache": True, "error_model": "numpy", "nogil": True, "fastmath": False}
     settings.update(options)
