@@ -50,6 +50,17 @@ def test_tile_scratch_is_fresh_aligned_and_none_for_unused_work():
         assert not full[name].any()
     # one set per call: concurrent chunks never share a buffer
     assert not any(np.shares_memory(plain[n], full[n]) for n in plain if plain[n] is not None)
+    # the arrays of one set are carved from one buffer: none overlaps another
+    carved = [a for a in full.values() if a is not None]
+    assert not any(np.shares_memory(a, b) for i, a in enumerate(carved) for b in carved[i + 1:])
+
+
+def test_step_check_scratch_is_aligned_zeroed_and_disjoint():
+    from eddyhop.engine.stepcheck import check_scratch
+
+    scratch = list(check_scratch().values())
+    assert all(a.ctypes.data % SCRATCH_ALIGNMENT == 0 and not a.any() for a in scratch)
+    assert not any(np.shares_memory(a, b) for i, a in enumerate(scratch) for b in scratch[i + 1:])
 
 
 def _argument_type(signature, name):

@@ -350,20 +350,33 @@ def product_orders(orders) -> np.ndarray:
 SCRATCH_ALIGNMENT = 64  # bytes: a cache line, a whole 8-double vector per load
 
 
-def aligned_array(shape, dtype=np.float64, zero: bool = False) -> np.ndarray:
-    """A C-contiguous NumPy array whose data starts on a ``SCRATCH_ALIGNMENT`` boundary
-    (zero-filled when ``zero``, else uninitialised).
+def aligned_arrays(layout: dict) -> dict:
+    """Zero-filled C-contiguous NumPy arrays, by name, carved from one fresh buffer, each
+    starting on a ``SCRATCH_ALIGNMENT`` boundary; ``layout`` maps a name to ``(shape,
+    dtype)``, or to None (then the name maps to None).
 
     NumPy's allocator guarantees only 16 bytes, numba's own ``np.empty`` 32; the kernels'
     tile loops load and store whole 8-double vectors of the scratch rows, which then never
     straddle a cache line, whatever the allocator returns.  (Measured A B against numba's
     allocation, the difference was within the ±2 % that separates one process from the next.)
+    One buffer per call, not one per array: the runner makes a set for every chunk and
+    step-check batch (a dozen arrays each), and separate allocations cost ≈ 5 µs an array.
     """
-    dtype = np.dtype(dtype)
-    nbytes = int(np.prod(shape, dtype=np.int64)) * dtype.itemsize
-    raw = (np.zeros if zero else np.empty)(nbytes + SCRATCH_ALIGNMENT, dtype=np.uint8)
-    start = -raw.ctypes.data % SCRATCH_ALIGNMENT
-    return raw[start:start + nbytes].view(dtype).reshape(shape)
+    offsets, total = {}, 0
+    for name, spec in layout.items():
+        if spec is not None:
+            shape, dtype = spec
+            shape = shape if isinstance(shape, tuple) else (shape,)
+            dtype = np.dtype(dtype)
+            nbytes = math.prod(shape) * dtype.itemsize
+            offsets[name] = (total, nbytes, shape, dtype)
+            total += -(-nbytes // SCRATCH_ALIGNMENT) * SCRATCH_ALIGNMENT
+    raw = np.zeros(total + SCRATCH_ALIGNMENT, dtype=np.uint8)
+    base = -raw.ctypes.data % SCRATCH_ALIGNMENT
+    arrays = dict.fromkeys(layout)
+    for name, (start, nbytes, shape, dtype) in offsets.items():
+        arrays[name] = raw[base + start:base + start + nbytes].view(dtype).reshape(shape)
+    return arrays
 
 
 def tile_scratch(aging_refs: int, hops: bool, velocity_refs: int) -> dict:
@@ -373,27 +386,28 @@ def tile_scratch(aging_refs: int, hops: bool, velocity_refs: int) -> dict:
 
     Allocated by the caller, so that the kernel compiles no array allocation of its own (six
     ``np.empty``/``np.zeros`` variants were ≈ 0.4 s of a cold start); cache-line aligned
-    (:func:`aligned_array`).  ``hop`` is None unless ``hops`` (cell-hop bookkeeping), ``vref``
-    and ``tile_uv`` are None unless ``velocity_refs`` > 0 (velocity-correlation references):
-    the kernel's branches on them are pruned at compile time (see :func:`run_particles`).
-    The arrays the kernel reads before it writes them are zero (``z`` rows a scheme does not
-    draw, the lane sums' padding of ``moment_rows``); the others are only written before
-    they are read.
+    (:func:`aligned_arrays`, one zero-filled buffer).  ``hop`` is None unless ``hops``
+    (cell-hop bookkeeping), ``vref`` and ``tile_uv`` are None unless ``velocity_refs`` > 0
+    (velocity-correlation references): the kernel's branches on them are pruned at compile
+    time (see :func:`run_particles`).  The arrays the kernel reads before it writes them
+    must be zero (``z`` rows a scheme does not draw, the lane sums' padding of
+    ``moment_rows``, ``hop``); all are.
     """
-    return {
-        "xs": aligned_array(TILE),
-        "ys": aligned_array(TILE),
-        "x_new": aligned_array(TILE),
-        "y_new": aligned_array(TILE),
-        "work": aligned_array((max(TILE_WORK_ROWS, PROJECTED_WORK_ROWS), TILE)),
-        "ref": aligned_array((TILE, max(aging_refs, 1), 2)),
-        "words": aligned_array((4, TILE), dtype=np.uint64),
-        "z": aligned_array((4, TILE), zero=True),
-        "moment_rows": aligned_array((MOMENT_ROWS, TILE + LANES), zero=True),
-        "hop": aligned_array((HOP_ROWS, TILE), zero=True) if hops else None,
-        "vref": aligned_array((velocity_refs, 2, TILE)) if velocity_refs > 0 else None,
-        "tile_uv": aligned_array((2, TILE)) if velocity_refs > 0 else None,
-    }
+    f8 = np.float64
+    return aligned_arrays({
+        "xs": (TILE, f8),
+        "ys": (TILE, f8),
+        "x_new": (TILE, f8),
+        "y_new": (TILE, f8),
+        "work": ((max(TILE_WORK_ROWS, PROJECTED_WORK_ROWS), TILE), f8),
+        "ref": ((TILE, max(aging_refs, 1), 2), f8),
+        "words": ((4, TILE), np.uint64),
+        "z": ((4, TILE), f8),
+        "moment_rows": ((MOMENT_ROWS, TILE + LANES), f8),
+        "hop": ((HOP_ROWS, TILE), f8) if hops else None,
+        "vref": ((velocity_refs, 2, TILE), f8) if velocity_refs > 0 else None,
+        "tile_uv": ((2, TILE), f8) if velocity_refs > 0 else None,
+    })
 
 
 # The moment plan, a compile-time code (CompiledCode) of the kernel: the power pass of the

@@ -35,7 +35,7 @@ from .._jit import jit
 from ..flows.compiled import confine, has_walls
 from .callee import callee
 from .integrators import STRANG_RK2, TILE_WORK_ROWS
-from .kernel import BLOWUP_LIMIT, TILE, _step_tile, aligned_array, normal_pairs_per_step
+from .kernel import BLOWUP_LIMIT, TILE, _step_tile, aligned_arrays, normal_pairs_per_step
 from .rng import fill_normals
 
 CHECK_COLUMNS = ("dx", "dy", "dx2", "dy2", "dxdy")
@@ -54,16 +54,18 @@ def _add(sums, slot, dx, dy):
 def check_scratch() -> dict:
     """The per-call scratch of :func:`run_step_check`, by argument name: fresh NumPy arrays of
     O(``TILE``) size for one call at a time (the caller allocates them, cache-line aligned —
-    ``kernel.aligned_array`` — so the kernel compiles no array allocation of its own).  ``z``
+    ``kernel.aligned_arrays`` — so the kernel compiles no array allocation of its own).  ``z``
     and ``zc`` are zero (rows a scheme does not draw are read); the others are written before
     they are read."""
-    return {name: aligned_array(TILE) for name in ("xs", "ys", "x_new", "y_new", "xc", "yc",
-                                                   "xc_new", "yc_new")} | {
-        "work": aligned_array((TILE_WORK_ROWS, TILE)),
-        "words": aligned_array((4, TILE), dtype=np.uint64),
-        "z": aligned_array((4, TILE), zero=True),
-        "zc": aligned_array((4, TILE), zero=True),
-    }
+    f8 = np.float64
+    return aligned_arrays({
+        **{name: (TILE, f8) for name in ("xs", "ys", "x_new", "y_new", "xc", "yc", "xc_new",
+                                         "yc_new")},
+        "work": ((TILE_WORK_ROWS, TILE), f8),
+        "words": ((4, TILE), np.uint64),
+        "z": ((4, TILE), f8),
+        "zc": ((4, TILE), f8),
+    })
 
 
 @jit
