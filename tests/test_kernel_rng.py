@@ -31,6 +31,15 @@ def _density(x):
     return np.exp(-0.5 * x * x)
 
 
+def test_the_stored_r_is_the_bisection_s_and_gives_the_same_tables():
+    """The kernels' tables are built from rng.R_256 at import (no bisection per process):
+    it must be exactly what the bisection finds, and the tables bit for bit the same."""
+    solved = ziggurat_tables()
+    assert solved[0] == rng.R_256
+    for stored, fresh in zip((rng._R, rng._AREA, rng._ZX, rng._ZF, rng._ZK, rng._ZW), solved):
+        assert np.array_equal(stored, fresh)
+
+
 def test_ziggurat_layers_have_equal_area():
     """Marsaglia & Tsang (2000), J. Stat. Softw. 5(8), §2: layer i ≥ 1 is the rectangle
     [0, x_i] × [f(x_i), f(x_{i+1})] of area v; the base layer r·f(r) + ∫_r^∞ f = v; the top

@@ -83,23 +83,25 @@ def _top_mismatch(r: float, layers: int) -> float:
     return _density(edges[-1]) + area / edges[-1] - 1.0
 
 
-def ziggurat_tables(layers: int = 256):
-    """(r, v, X, F, K, W) of the normal ziggurat, solved to double precision by bisection.
+def ziggurat_tables(layers: int = 256, r: float | None = None):
+    """(r, v, X, F, K, W) of the normal ziggurat, ``r`` solved to double precision by
+    bisection unless given.
 
     ``X[0] = v/f(r)`` (the base layer's width including the tail), ``X[1] = r``, ...,
     ``X[layers] = 0``; ``F = f(X)``; ``K[i] = floor(2**53 X[i+1]/X[i])`` is the integer
     acceptance threshold of layer i and ``W[i] = X[i] 2**-53`` its scale.
     """
-    low, high = 2.0, 5.0
-    for _ in range(200):
-        middle = 0.5 * (low + high)
-        if middle in (low, high):
-            break
-        if _top_mismatch(middle, layers) > 0.0:
-            low = middle
-        else:
-            high = middle
-    r = high
+    if r is None:
+        low, high = 2.0, 5.0
+        for _ in range(200):
+            middle = 0.5 * (low + high)
+            if middle in (low, high):
+                break
+            if _top_mismatch(middle, layers) > 0.0:
+                low = middle
+            else:
+                high = middle
+        r = high
     edges, area = _layer_edges(r, layers)
     x = np.zeros(layers + 1)
     x[0] = area / _density(r)
@@ -110,7 +112,10 @@ def ziggurat_tables(layers: int = 256):
     return r, area, x, f, k, w
 
 
-_R, _AREA, _ZX, _ZF, _ZK, _ZW = ziggurat_tables()
+# r of the 256-layer tables as the bisection above finds it (tests/test_kernel_rng.py checks
+# that it still does): every process imports this module, and the bisection costs ≈ 3 ms
+R_256 = 3.6541528853610092
+_R, _AREA, _ZX, _ZF, _ZK, _ZW = ziggurat_tables(256, R_256)
 
 
 # ---- Philox ---------------------------------------------------------------------------------
