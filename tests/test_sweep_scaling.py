@@ -167,6 +167,21 @@ def test_crossover_fits_match_transitions_not_indices():
     assert "diffusive" in nearest_scale(0.97, 0.9, 1.05)
 
 
+def test_a_sweep_without_any_crossover_gets_the_diffusivity_fits_and_no_crossover_fit():
+    """Short points may find no crossover at all: the merged crossover dimension then has
+    length 0 (this once stopped the sweep's merge with an internal error)."""
+    pe = np.array([5.0, 50.0, 500.0])
+    ds = merged_like(pe)
+    empty = np.empty((pe.size, 2, 0))
+    ds["crossover_time"] = (("peclet", "start", "crossover"), empty)
+    ds["crossover_time_se"] = (("peclet", "start", "crossover"), empty)
+    ds["crossover_from"] = (("peclet", "start", "crossover"), empty.astype(str))
+    ds["crossover_to"] = (("peclet", "start", "crossover"), empty.astype(str))
+    summary = scaling_summary(ds)
+    assert "crossover_time_exponent" not in summary
+    assert np.allclose(summary["D_eff_exponent"].values, 0.5, atol=1e-12)
+
+
 def test_summary_needs_a_peclet_dimension():
     ds = merged_like([1.0, 2.0, 3.0]).rename({"peclet": "epsilon"})
     with pytest.raises(InputDataError, match=r"noise\.peclet"):

@@ -346,6 +346,8 @@ def _crossover_fits(ds, out, pe_dim, pe, keep, confidence, arrays):
     se = ds["crossover_time_se"] if "crossover_time_se" in ds.data_vars else None
     if "crossover_from" not in ds.data_vars or "crossover_to" not in ds.data_vars:
         return
+    if time.sizes["crossover"] == 0:  # no point found any crossover: nothing to fit
+        return
     other = [d for d in time.dims if d not in (pe_dim, "crossover")]
     order = (*other, pe_dim, "crossover")
     times = time.transpose(*order).values.astype(float)
