@@ -7,8 +7,9 @@ time stepping) and arranged like the engine's Dataset with particle batches
 times are those the same code finds on the closed-form MSD (noise-free, no batches), so the
 tests compare one estimator on exact and sampled data; the closed-form crossover condition
 is checked alongside (it differs from the code's value only by the smoothing of the local
-exponent over ``window`` decades).  Tolerances: 4 jackknife standard errors (two-sided
-normal 4σ; the jackknife calibration is tested in test_analysis_exponents.py).
+exponent over ``window`` decades).  Tolerances: 4 standard errors (two-sided normal 4σ;
+crossover times: jackknife, calibrated in test_analysis_exponents.py; regime exponents:
+bootstrap with the regimes re-chosen, calibrated below).
 """
 
 from __future__ import annotations
@@ -26,7 +27,7 @@ from eddyhop.analysis import ShortRunWarning, analyse, crossover_times, regimes
 from eddyhop.analysis.regimes import LABELS
 from eddyhop.reference import moment_evolution
 from tests.conftest import make_study
-from tests.test_analysis_exponents import ensemble_dataset
+from tests.test_analysis_exponents import LOG_T, brownian_paths, ensemble_dataset
 
 TAU = 1.0
 TIMES = np.geomspace(1e-3, 1e3, 97)  # 6 decades, 16 per decade
@@ -191,6 +192,60 @@ def test_an_intermediate_power_law_is_a_regime_but_a_passage_is_not():
     assert _table(_exact_dataset(TIMES + TIMES**2))[0] == ["diffusive", "ballistic"]
 
 
+# ---- the standard error of a regime's exponent ----------------------------------------------
+@pytest.mark.slow
+def test_regime_exponent_errors_match_the_spread_between_independent_ensembles():
+    """regime_alpha_se (bootstrap over the particle batches, the regimes re-chosen on every
+    resample) against the spread of the exponent over independent ensembles of
+    X = v t + B(t) (diffusive → ballistic at t* = 2D/σ², tolerances 0.5): 30 ensembles of
+    2000 particles in 20 batches, 40 resamples each.  The standard deviation over 30
+    ensembles is itself uncertain by 1/√58 ≈ 13 %, so SD / rms(se) must lie in [0.6, 1.5]
+    (3 of those standard errors, plus room for the bootstrap's own small bias; measured
+    with 60 ensembles: 1.09 and 1.06).  The interval that decides the label (GLS under the
+    batch covariance with the breakpoints held) is several times narrower than that spread
+    here, which is why the standard error is no longer taken from it or from a jackknife
+    with the breakpoints held: both miss that where a regime ends moves with the sample."""
+    rng = np.random.default_rng(11)
+    found = {"diffusive": [], "ballistic": []}
+    for _ in range(30):
+        dx, dy = brownian_paths(rng, 2000, LOG_T, 0.5, velocity_spread=0.5)
+        table = regimes(ensemble_dataset(dx, dy, LOG_T), ballistic_tolerance=0.5,
+                        diffusive_tolerance=0.5, regime_resamples=40)
+        assert list(table["regime_label"].values) == ["diffusive", "ballistic"]
+        for i, label in enumerate(table["regime_label"].values):
+            found[str(label)].append((float(table["regime_alpha"][i]),
+                                      float(table["regime_alpha_se"][i]),
+                                      float(table["regime_support"][i]),
+                                      float(table["regime_alpha_upper"][i]
+                                            - table["regime_alpha_lower"][i]) / 2 / 1.96))
+    for label, rows in found.items():
+        alpha, se, support, label_se = np.array(rows).T
+        ratio = alpha.std(ddof=1) / math.sqrt(np.mean(se**2))
+        assert 0.6 <= ratio <= 1.5, (label, ratio)
+        assert support.mean() > 0.9, (label, support.mean())  # both regimes are robust
+        assert alpha.std(ddof=1) > 3 * math.sqrt(np.mean(label_se**2)), label
+
+
+def test_regime_errors_are_reproducible_and_can_be_skipped():
+    """The resamples come from a fixed seed: the same Dataset gives the same errors; with
+    regime_resamples = 0 they are skipped (NaN, and so are the support shares); a noise-free
+    curve (no batches) has none."""
+    rng = np.random.default_rng(3)
+    dx, dy = brownian_paths(rng, 400, LOG_T, 0.5, velocity_spread=0.5)
+    ds = ensemble_dataset(dx, dy, LOG_T)
+    first = regimes(ds, regime_resamples=20)
+    again = regimes(ds, regime_resamples=20)
+    assert np.array_equal(first["regime_alpha_se"].values, again["regime_alpha_se"].values)
+    assert np.isfinite(first["regime_alpha_se"].values).all()
+    assert first["regime_alpha_se"].attrs["resamples"] == 20
+    skipped = regimes(ds, regime_resamples=0)
+    assert np.isnan(skipped["regime_alpha_se"].values).all()
+    assert np.isnan(skipped["regime_support"].values).all()
+    assert np.array_equal(skipped["regime_alpha"].values, first["regime_alpha"].values)
+    exact = regimes(_exact_dataset(0.5 * TIMES**2 + 2.0 * TIMES))
+    assert np.isnan(exact["regime_alpha_se"].values).all()
+
+
 # ---- the cellular flow at Pe = 100: Monte Carlo against the noise-free moment evolution ----
 def _cellular_study(particles, starts):
     """The README worked example (Pe = 100, dt = 0.05, t_end = 1500, 90 output times,
@@ -288,6 +343,11 @@ def test_readme_worked_example_prints_its_regime_sequence():
     assert abs(float(edges["regime_alpha"][2]) - 0.65) < 0.05  # trapped in the eddies
     assert abs(float(cores["regime_alpha"][0]) - 1.0) < 0.05  # diffusion at the cores
     assert abs(float(cores["regime_alpha"][1]) - 2.0) < 0.05  # the ballistic transient
+    # its standard error "± 0.05" and that of the edges' ballistic spreading "± 0.02" (the
+    # README's rounding: within 0.01); every regime is found again in ≥ 95 % of resamples
+    assert abs(float(cores["regime_alpha_se"][1]) - 0.05) < 0.01
+    assert abs(float(edges["regime_alpha_se"][1]) - 0.02) < 0.01
+    assert (ds["regime_support"].values[ds["regime_label"].values != ""] >= 0.95).all()
     edge_times = edges["crossover_time_advective"].values
     core_times = cores["crossover_time_advective"].values
     assert 0.25 < edge_times[0] < 0.4 and 4.0 < edge_times[1] < 5.5

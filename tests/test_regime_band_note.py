@@ -40,14 +40,30 @@ def test_summary_and_report_mark_the_same_regimes_and_explain_once():
                 ["diffusive", "subdiffusive", "diffusive"])
     lines = _regime_lines(ds)
     marked = [line for line in lines if line.endswith(" *")]
-    assert len(marked) == 1 and "1.238 [1.155, 1.321]" in marked[0]
+    assert len(marked) == 1 and "1.238 (label interval [1.155, 1.321])" in marked[0]
     notes = [line for line in lines if line.lstrip().startswith("* ")]
     assert len(notes) == 1 and "diffusive |alpha-1| <= 0.2" in notes[0]
     page = regimes_html(ds)
-    assert page.count("diffusive *") == 1 and page.count("the interval excludes 1") == 1
+    assert page.count("diffusive *") == 1 and page.count("the label interval excludes 1") == 1
 
 
 def test_no_note_when_every_interval_contains_its_exponent():
     ds = _table([1.01, 1.95], [0.97, 1.9], [1.05, 2.02], ["diffusive", "ballistic"])
     assert not any("*" in line for line in _regime_lines(ds))
     assert "interval excludes" not in regimes_html(ds)
+
+
+def test_sampled_regimes_show_their_standard_error_and_a_weak_support():
+    """With batch-resampling errors: every exponent ± its standard error (the label interval
+    only beside a mark), and "found in N % of batch resamples" for a regime found again in
+    fewer than 95 % of them; the report shows the same error and the share."""
+    ds = _table([1.238, 0.632, 1.01], [1.155, 0.608, 0.97], [1.321, 0.655, 1.05],
+                ["diffusive", "subdiffusive", "diffusive"])
+    ds["regime_alpha_se"] = ("regime", np.array([0.061, 0.02, 0.03]))
+    ds["regime_support"] = ("regime", np.array([0.97, 0.62, 1.0]))
+    lines = _regime_lines(ds)
+    assert "alpha = 1.238 ± 0.061 (label interval [1.155, 1.321]) *" in lines[1]
+    assert lines[2].endswith("alpha = 0.632 ± 0.02; found in 62% of batch resamples")
+    assert lines[3].endswith("alpha = 1.010 ± 0.03")
+    page = regimes_html(ds)
+    assert "1.238 ± 0.061" in page and "62%" in page and "found again in batch resamples" in page

@@ -35,7 +35,7 @@ from __future__ import annotations
 import numpy as np
 import xarray as xr
 
-from ._stats import batch_replicates
+from ._stats import _BATCH_SOURCES, batch_replicates, pooled_replicates
 
 COMPONENTS = ("total", "x", "y", "xy")
 # component → the raw-moment variable it is built from, and the mean displacements it needs
@@ -117,3 +117,48 @@ def transport_moment_variable(ds) -> xr.DataArray:
         return xr.DataArray(np.array([value] * ds.sizes["start"]), dims=("start",),
                             coords={"start": ds["start"].values}, attrs=attrs)
     return xr.DataArray(value, attrs=attrs)
+
+
+
+class BatchResampler:
+    """The curve of :func:`transport_curve` for ensembles made of chosen particle batches
+    (indices into ``batch``, repeats allowed, as in a bootstrap resample), with its
+    delete-one-batch replicates: the same moments, pooled as count-weighted means of the
+    chosen batches (the weighting of the replicates) and centred in the same way, in NumPy
+    alone (a resample costs ≈ 0.2 ms, not the ≈ 5 ms of a Dataset).
+    ``available`` is False when ``part`` lacks the batch variables."""
+
+    def __init__(self, part, component: str = "total"):
+        source, mean_names = _SOURCES[component]
+        self.component = component
+        self.centred = is_centred(part)
+        names = [source] + (list(mean_names) if self.centred else [])
+        self.available = "batch_count" in part.variables and all(
+            all(s in part.variables for s in _BATCH_SOURCES[n]) for n in names)
+        if not self.available:
+            return
+        self.counts = np.asarray(part["batch_count"].values, dtype=np.float64)
+
+        def stacked(name):
+            return sum(np.asarray(part[s].transpose("batch", ...).values, dtype=np.float64)
+                       for s in _BATCH_SOURCES[name])
+
+        self.raw = stacked(source)
+        self.means = [stacked(m) for m in mean_names] if self.centred else []
+
+    def filled(self) -> np.ndarray:
+        """Indices of the batches holding particles."""
+        return np.flatnonzero(self.counts > 0)
+
+    def curve(self, batches):
+        """(values (T,), delete-one replicates (len(batches), T)) for the chosen batches."""
+        counts = self.counts[batches]
+        raw = self.raw[batches]
+        values = counts @ raw / counts.sum()
+        replicates = pooled_replicates(counts, raw)
+        if not self.centred:
+            return values, replicates
+        means = [m[batches] for m in self.means]
+        return (_centre(values, [counts @ m / counts.sum() for m in means], self.component),
+                _centre(replicates, [pooled_replicates(counts, m) for m in means],
+                        self.component))

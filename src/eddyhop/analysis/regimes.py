@@ -61,10 +61,14 @@ last output time and the exponent fitted to its later half in log time alone get
 label: the latest data on their own support the regime the run ends in.  Every other regime
 is transient (0).
 
-Standard errors: ``regime_alpha_se`` is the jackknife over particle batches of the segment
-exponent (the whole fit repeated on every delete-one-batch ensemble with the breakpoints
-held; NaN without batches) — the sampling error alone; ``regime_alpha_lower``/``_upper``
-are the interval above, which also carries the floor.
+Standard errors: ``regime_alpha_se`` is the spread of the exponent over bootstrap resamples
+of the particle batches with the whole segmentation repeated on each, so that it includes
+where the regime's ends fall (:func:`resampled_spread`; ``regime_resamples`` resamples,
+default 100); ``regime_support`` is the share of those resamples that find a regime of the
+same label over the regime's middle.  ``regime_alpha_lower``/``_upper`` are the interval
+above, which decides the label: it holds the breakpoints where this sample put them, and
+on sampled data it can be several times narrower than the standard error (measured in
+``tests/test_analysis_regimes.py``), so it is shown only where it explains a label.
 """
 
 from __future__ import annotations
@@ -76,8 +80,7 @@ import numpy as np
 import xarray as xr
 
 from ._common import check_range, per_start, require, var
-from ._stats import jackknife_se
-from .centring import transport_curve
+from .centring import BatchResampler, transport_curve
 
 LABELS = ("bounded", "subdiffusive", "diffusive", "superdiffusive", "ballistic",
           "super_ballistic", "undetermined")
@@ -89,7 +92,10 @@ DEFAULT_MIN_SPAN = 0.5
 DEFAULT_MIN_POINTS = 3
 DEFAULT_MISFIT_FLOOR = 0.05
 DEFAULT_CONFIDENCE = 0.95
+DEFAULT_RESAMPLES = 100
 MAX_BREAKPOINTS = 12
+# seed of the batch resampling: fixed, so the same file always gives the same errors
+RESAMPLE_SEED = 20261205
 
 
 @dataclass(frozen=True)
@@ -103,6 +109,7 @@ class Options:
     min_points: int = DEFAULT_MIN_POINTS
     misfit_floor: float = DEFAULT_MISFIT_FLOOR
     confidence: float = DEFAULT_CONFIDENCE
+    resamples: int = DEFAULT_RESAMPLES
 
     @property
     def z(self) -> float:
@@ -121,7 +128,7 @@ class Options:
 def check_options(ballistic_tolerance=DEFAULT_TOLERANCE, diffusive_tolerance=DEFAULT_TOLERANCE,
                   bounded_tolerance=DEFAULT_BOUNDED_TOLERANCE, min_span=DEFAULT_MIN_SPAN,
                   min_points=DEFAULT_MIN_POINTS, misfit_floor=DEFAULT_MISFIT_FLOOR,
-                  confidence=DEFAULT_CONFIDENCE) -> Options:
+                  confidence=DEFAULT_CONFIDENCE, resamples=DEFAULT_RESAMPLES) -> Options:
     """:class:`Options` from raw values; out-of-range values raise AnalysisOptionError.
     Tolerances are at most 0.5 so that the bands of 0, 1 and 2 do not overlap."""
     return Options(
@@ -131,7 +138,8 @@ def check_options(ballistic_tolerance=DEFAULT_TOLERANCE, diffusive_tolerance=DEF
         check_range("min_span", min_span, 0.0, 10.0, low_open=True),
         check_range("min_points", min_points, 2, 10**6, integer=True),
         check_range("misfit_floor", misfit_floor, 0.0, 10.0, low_open=True),
-        check_range("confidence", confidence, 0.0, 1.0, low_open=True, high_open=True))
+        check_range("confidence", confidence, 0.0, 1.0, low_open=True, high_open=True),
+        check_range("regime_resamples", resamples, 0, 100000, integer=True))
 
 
 def class_edges(options: Options):
@@ -270,19 +278,16 @@ def choose_breakpoints(x, whiten, min_ln, min_points):
     return list(fits[best]), scored
 
 
-def _broken_line(whiten, replicates, breaks):
-    """Exponents of the segments of the GLS broken line (k + 1,), their GLS standard errors
-    under Σ, and their delete-one-batch replicates (B, k + 1) or None."""
+def _broken_line(whiten, breaks):
+    """Exponents of the segments of the GLS broken line (k + 1,) and their GLS standard
+    errors under Σ."""
     xw = whiten.design(breaks)
     pinv = np.linalg.pinv(xw)
     cumulative = np.tril(np.ones((len(breaks) + 1,) * 2))
     slopes = cumulative @ (pinv @ whiten.y)[1:]
     covariance = np.linalg.inv(xw.T @ xw)[1:, 1:]
     se = np.sqrt(np.diag(cumulative @ covariance @ cumulative.T))
-    reps = None
-    if replicates is not None:
-        reps = (cumulative @ (pinv @ whiten.solve(replicates.T))[1:]).T
-    return slopes, se, reps
+    return slopes, se
 
 
 def _line(x, sigma, y, index):
@@ -339,13 +344,13 @@ def _passage(x, sigma, y, first, last, p, q) -> bool:
 @dataclass(frozen=True)
 class Segment:
     """One regime: class ``code`` (index in :data:`LABELS`), samples first…last (indices
-    into the start's time axis, inclusive), exponent with its errors, final flag."""
+    into the start's time axis, inclusive), exponent, the ends of the interval that decided
+    its label, final flag (the standard error comes from :func:`resampled_spread`)."""
 
     code: int
     first: int
     last: int
     alpha: float = math.nan
-    alpha_se: float = math.nan
     lower: float = math.nan
     upper: float = math.nan
     final: bool = False
@@ -386,11 +391,11 @@ def segment_curve(t, values, replicates, options: Options):
     z = options.z
 
     def fitted(breaks):
-        slopes, model_se, slope_reps = _broken_line(whiten, reps, breaks)
+        slopes, model_se = _broken_line(whiten, breaks)
         codes = [label_code(a, a - z * s, a + z * s, options) for a, s in zip(slopes, model_se)]
-        return slopes, model_se, slope_reps, codes
+        return slopes, model_se, codes
 
-    slopes, model_se, slope_reps, codes = fitted(breaks)
+    slopes, model_se, codes = fitted(breaks)
     # adjacent segments with one label are one regime
     while True:
         same = [j for j in range(len(codes) - 1) if codes[j] == codes[j + 1]
@@ -398,7 +403,7 @@ def segment_curve(t, values, replicates, options: Options):
         if not same:
             break
         del breaks[same[0]]
-        slopes, model_se, slope_reps, codes = fitted(breaks)
+        slopes, model_se, codes = fitted(breaks)
     bounds = [(0 if j == 0 else breaks[j - 1] + 1, breaks[j] if j < len(breaks) else x.size - 1)
               for j in range(len(breaks) + 1)]
     # interior segments passing through a class between their neighbours are crossovers
@@ -423,9 +428,8 @@ def segment_curve(t, values, replicates, options: Options):
     for j, (first, last) in enumerate(bounds):
         if j in passing:
             continue
-        se = math.nan if slope_reps is None else float(jackknife_se(slope_reps[:, j]))
         out.append(Segment(codes[j], int(index[first]), int(index[last]), float(slopes[j]),
-                           se, float(slopes[j] - z * model_se[j]),
+                           float(slopes[j] - z * model_se[j]),
                            float(slopes[j] + z * model_se[j])))
     if out and out[-1].last == index[-1]:
         first = int(np.searchsorted(index, out[-1].first))
@@ -435,8 +439,8 @@ def segment_curve(t, values, replicates, options: Options):
             if label_code(late, late - z * late_se, late + z * late_se, options) == \
                     out[-1].code:
                 last = out[-1]
-                out[-1] = Segment(last.code, last.first, last.last, last.alpha, last.alpha_se,
-                                  last.lower, last.upper, True)
+                out[-1] = Segment(last.code, last.first, last.last, last.alpha, last.lower,
+                                  last.upper, True)
     return out, info
 
 
@@ -447,17 +451,62 @@ def regime_segments(part, options: Options):
     return segments, info, name
 
 
+def resampled_spread(part, segments, options: Options):
+    """Per regime of ``segments`` (from :func:`regime_segments`): the standard error of its
+    exponent over bootstrap resamples of the particle batches with the whole segmentation
+    repeated on each (breakpoints re-chosen), and its support, the share of resamples in
+    which a regime of the same label covers its middle (in ln t).
+
+    Each resample draws as many batches as there are, with replacement (Efron & Tibshirani
+    1993, *An Introduction to the Bootstrap*, Chapman & Hall, ch. 6: the bootstrap standard
+    error), from a generator seeded with :data:`RESAMPLE_SEED`, so a file always gives the
+    same errors.  The standard error is the spread of the exponents of the matched regimes
+    (those of the same label; ``ddof`` 1); NaN without batches, with ``resamples`` = 0 or
+    when fewer than two resamples find the regime.  Why not the delete-one jackknife: where
+    a regime ends moves with the sample, a discontinuous choice, and the jackknife, which
+    perturbs the sample by one batch at a time, misses that movement (Efron & Tibshirani
+    1993, §11.6: the jackknife fails for non-smooth statistics such as the median)."""
+    count = len(segments)
+    nan = np.full(count, np.nan)
+    resampler = BatchResampler(part)
+    if count == 0 or options.resamples == 0 or not resampler.available:
+        return nan, nan.copy()
+    filled = resampler.filled()
+    if filled.size < 2:
+        return nan, nan.copy()
+    t = np.asarray(part["time"].values, dtype=np.float64)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        log_t = np.log(t)
+    middles = [0.5 * (log_t[s.first] + log_t[s.last]) for s in segments]
+    generator = np.random.default_rng(RESAMPLE_SEED)
+    found = [[] for _ in segments]
+    for _ in range(options.resamples):
+        batches = filled[generator.integers(0, filled.size, filled.size)]
+        trial, _ = segment_curve(t, *resampler.curve(batches), options)
+        for j, (segment, middle) in enumerate(zip(segments, middles)):
+            for other in trial:
+                if other.code == segment.code and \
+                        log_t[other.first] <= middle <= log_t[other.last]:
+                    found[j].append(other.alpha)
+                    break
+    spread = np.array([np.std(a, ddof=1) if len(a) >= 2 else np.nan for a in found])
+    support = np.array([len(a) / options.resamples for a in found])
+    return spread, support
+
+
 def regimes(ds: xr.Dataset, *, ballistic_tolerance: float = DEFAULT_TOLERANCE,
             diffusive_tolerance: float = DEFAULT_TOLERANCE,
             bounded_tolerance: float = DEFAULT_BOUNDED_TOLERANCE,
             min_span: float = DEFAULT_MIN_SPAN, min_points: int = DEFAULT_MIN_POINTS,
             misfit_floor: float = DEFAULT_MISFIT_FLOOR,
-            confidence: float = DEFAULT_CONFIDENCE) -> xr.Dataset:
+            confidence: float = DEFAULT_CONFIDENCE,
+            regime_resamples: int = DEFAULT_RESAMPLES) -> xr.Dataset:
     """The regime table on a ``regime`` dimension (see the module docstring for the method,
-    criterion, labels and the meaning of every option).  Times in the Dataset's time units;
-    exponents dimensionless."""
+    criterion, labels and the meaning of every option; ``regime_resamples``: the batch
+    resamples behind ``regime_alpha_se`` and ``regime_support``, 0 to skip them, see
+    :func:`resampled_spread`).  Times in the Dataset's time units; exponents dimensionless."""
     options = check_options(ballistic_tolerance, diffusive_tolerance, bounded_tolerance,
-                            min_span, min_points, misfit_floor, confidence)
+                            min_span, min_points, misfit_floor, confidence, regime_resamples)
     require(ds, ["time", "msd"], "regimes")
     units = str(ds["time"].attrs.get("units", "1"))
     criterion = ("segmented power-law regression of ln MSD on ln t, breakpoints by BIC "
@@ -467,6 +516,7 @@ def regimes(ds: xr.Dataset, *, ballistic_tolerance: float = DEFAULT_TOLERANCE,
         t = part["time"].values
         segments, info, moment = regime_segments(part, options)
         n = len(segments)
+        spread, support = resampled_spread(part, segments, options)
 
         def column(name):
             return np.array([getattr(s, name) for s in segments], dtype=np.float64)
@@ -483,9 +533,15 @@ def regimes(ds: xr.Dataset, *, ballistic_tolerance: float = DEFAULT_TOLERANCE,
                               "last sample time of the regime", units),
             "regime_alpha": var(dims, column("alpha"), "exponent of the power law fitted over "
                                 "the regime (segmented regression of ln MSD on ln t)", "1"),
-            "regime_alpha_se": var(dims, column("alpha_se"), "standard error of regime_alpha "
-                                   "from sampling (jackknife over particle batches, "
-                                   "breakpoints held; NaN without batches)", "1"),
+            "regime_alpha_se": var(dims, spread, "standard error of regime_alpha from "
+                                   "sampling, where the regime ends included (bootstrap over "
+                                   "particle batches, breakpoints re-chosen on every "
+                                   "resample; NaN without batches)", "1",
+                                   resamples=options.resamples),
+            "regime_support": var(dims, support, "share of the batch resamples in which a "
+                                  "regime of the same label covers this regime's middle "
+                                  "(in ln t); NaN without batches", "1",
+                                  resamples=options.resamples),
             "regime_alpha_lower": var(dims, column("lower"), f"lower end of the "
                                       f"{options.confidence:g} interval of regime_alpha "
                                       "(sampling covariance plus misfit floor); decides the "

@@ -369,6 +369,7 @@ def regimes_html(ds) -> str:
     rows = []
     footnote = False
     bounds = "regime_alpha_lower" in ds.variables and "regime_alpha_upper" in ds.variables
+    supported = "regime_support" in ds.variables
     for start in _starts(ds):
         part = _part(ds, start)
         labels = np.atleast_1d(part["regime_label"].values)
@@ -380,16 +381,22 @@ def regimes_html(ds) -> str:
                 str(label), np.atleast_1d(part["regime_alpha_lower"].values)[i],
                 np.atleast_1d(part["regime_alpha_upper"].values)[i])
             footnote = footnote or marked
-            rows.append((_e(_start_name(ds, start)), _e(label) + (" *" if marked else ""),
-                         _number(part["regime_start"].values[i]),
-                         _number(part["regime_end"].values[i]),
-                         _with_error(part["regime_alpha"].values[i], se)))
+            row = (_e(_start_name(ds, start)), _e(label) + (" *" if marked else ""),
+                   _number(part["regime_start"].values[i]),
+                   _number(part["regime_end"].values[i]),
+                   _with_error(part["regime_alpha"].values[i], se))
+            if supported:
+                share = float(part["regime_support"].values[i])
+                row += (f"{share:.0%}" if np.isfinite(share) else "n/a",)
+            rows.append(row)
     if not rows:
         return "<h3>Regimes</h3><p>No regime was identified.</p>"
     units = _units(ds, "regime_start")
     note = str(ds["regime_label"].attrs.get("tolerances", ""))
-    return ("<h3>Regimes</h3>" + _table(("start region", "regime", f"from t{units}",
-                                         f"to t{units}", "mean α (± SE)"), rows, 2)
+    header = ("start region", "regime", f"from t{units}", f"to t{units}", "mean α (± SE)")
+    if supported:
+        header += ("found again in batch resamples",)
+    return ("<h3>Regimes</h3>" + _table(header, rows, 2)
             + (f"<p class='meta'>Classes by the local exponent α: {_e(note)}.</p>"
                if note else "")
             + (f"<p class='meta'>{_e(band_footnote(''))}.</p>" if footnote else ""))

@@ -1,7 +1,7 @@
 """The summary that opens every HTML report, and the summary/sweep tables for papers.
 
 The summary is the same text `eddyhop analyse` prints (:mod:`eddyhop.presentation`, so the
-numbers are formatted once): per start region the regime sequence with α and its interval,
+numbers are formatted once): per start region the regime sequence with α ± its standard error,
 crossover times ± SE in model time and in the natural units t·Uk, t·κk², t·κk²Pe^½, the D_eff
 tensor with confidence intervals, D/κ and D/(κ Pe^½), the cell-problem reference and the
 distance from it in standard errors, the step check, hopping numbers and the aging and tail
@@ -125,18 +125,15 @@ def sweep_tables_html(ds) -> str:
         for dim, value, start, part in _points(ds):
             labels = [str(v) for v in np.atleast_1d(part["regime_label"].values)]
             alphas = np.atleast_1d(part["regime_alpha"].values).astype(float)
-            lower = np.atleast_1d(part["regime_alpha_lower"].values).astype(float) \
-                if "regime_alpha_lower" in part.variables else np.full(alphas.size, np.nan)
-            upper = np.atleast_1d(part["regime_alpha_upper"].values).astype(float) \
-                if "regime_alpha_upper" in part.variables else np.full(alphas.size, np.nan)
+            errors = np.atleast_1d(part["regime_alpha_se"].values).astype(float) \
+                if "regime_alpha_se" in part.variables else np.full(alphas.size, np.nan)
             sequence = " → ".join(
-                f"{_e(lab)} (α = {a:.2f}" + (f" [{lo:.2f}, {hi:.2f}]" if np.isfinite(lo)
-                                            else "") + ")"
-                for lab, a, lo, hi in zip(labels, alphas, lower, upper) if lab)
+                f"{_e(lab)} (α = {a:.2f}" + (f" ± {se:.2g}" if np.isfinite(se) else "") + ")"
+                for lab, a, se in zip(labels, alphas, errors) if lab)
             rows.append((f"{_e(dim)} = {float(value):.4g}", _e(start or ""),
                          sequence or "<strong class='alert'>no regime identified</strong>"))
         blocks.append("<h3>Regimes at each swept point</h3>"
-                      + _table(("point", "start", "regime sequence (α [interval])"), rows))
+                      + _table(("point", "start", "regime sequence (α ± SE)"), rows))
     if "crossover_time" in ds.variables:
         rows = []
         for dim, value, start, part in _points(ds):

@@ -171,9 +171,22 @@ def band_footnote(tolerances: str) -> str:
     """The note for regimes marked by :func:`misses_centre` (``tolerances``: the
     ``regime_label`` attribute of that name, quoted when present)."""
     rule = tolerances.split(";")[0].strip().removeprefix("bands:").strip()
-    return ("* the interval excludes 1 (diffusive) or 2 (ballistic): a class is given by the "
+    return ("* the label interval excludes 1 (diffusive) or 2 (ballistic): a class is given by the "
             "band its interval meets" + (f" ({rule})" if rule else "")
             + ", not by containing the exponent")
+
+
+# a regime found again (same label, over its middle) in fewer batch resamples than this is
+# flagged beside its exponent
+SUPPORT_SHOWN_BELOW = 0.95
+
+
+def _item(part, name, i):
+    """Element ``i`` of a per-regime variable, or NaN when the file lacks it."""
+    if name not in part.variables:
+        return np.nan
+    values = np.atleast_1d(part[name].values)
+    return float(values[i]) if i < values.size else np.nan
 
 
 def _regime_lines(part):
@@ -198,17 +211,22 @@ def _regime_lines(part):
         last = float(np.atleast_1d(part["regime_end"].values)[i])
         alpha = np.atleast_1d(part["regime_alpha"].values)[i]
         text = f"    {label:<{width}}  t = {_g(first)} … {_g(last)}{shown}  alpha = "
-        if "regime_alpha_lower" in part.variables and "regime_alpha_upper" in part.variables:
-            low = np.atleast_1d(part["regime_alpha_lower"].values)[i]
-            high = np.atleast_1d(part["regime_alpha_upper"].values)[i]
-            text += f"{_alpha(alpha)} [{_alpha(low)}, {_alpha(high)}]"
-            if misses_centre(label, low, high):
-                text += " *"
-                marked = True
-        else:
-            se = np.atleast_1d(part["regime_alpha_se"].values)[i] \
-                if "regime_alpha_se" in part.variables else np.nan
-            text += _alpha(alpha) + (f" ± {_g(se, 2)}" if _finite(se) else "")
+        text += _alpha(alpha)
+        se = _item(part, "regime_alpha_se", i)
+        if _finite(se):
+            text += f" ± {_g(se, 2)}"
+        low, high = _item(part, "regime_alpha_lower", i), _item(part, "regime_alpha_upper", i)
+        marked_here = misses_centre(label, low, high)
+        if _finite(low) and _finite(high) and (marked_here or not _finite(se)):
+            # the interval that decided the label: shown where it matters (the mark) or
+            # where no sampling error exists (a noise-free result)
+            text += f" (label interval [{_alpha(low)}, {_alpha(high)}])"
+        if marked_here:
+            text += " *"
+            marked = True
+        support = _item(part, "regime_support", i)
+        if _finite(support) and support < SUPPORT_SHOWN_BELOW:
+            text += f"; found in {support:.0%} of batch resamples"
         out.append(text)
     if marked:
         out.append("    " + band_footnote(str(part["regime_label"].attrs.get("tolerances", ""))))
