@@ -158,3 +158,21 @@ def test_an_edited_merged_file_or_point_gives_a_fresh_merge(serial, tmp_path):
     # the recomputed file has its own checksum (its provenance records when it was written)
     assert merge_key(Manifest.read(out)) != key
     assert_same_numbers(merge_sweep(out, analyse=False), serial["merged"])
+
+
+def test_points_compute_with_blas_on_one_thread_and_the_setting_comes_back():
+    """While points compute, each written point is analysed beside the kernels' threads:
+    every BLAS library loaded (NumPy's and SciPy's) runs on one thread in that phase, and
+    its thread count is restored afterwards (sweeps.execute._blas_on_one_thread)."""
+    from threadpoolctl import threadpool_info
+
+    from eddyhop.sweeps.execute import _blas_on_one_thread
+
+    before = {i["filepath"]: i["num_threads"] for i in threadpool_info()
+              if i["user_api"] == "blas"}
+    with _blas_on_one_thread():
+        inside = [i for i in threadpool_info() if i["user_api"] == "blas"]
+        assert inside and all(i["num_threads"] == 1 for i in inside)
+    after = {i["filepath"]: i["num_threads"] for i in threadpool_info()
+             if i["user_api"] == "blas"}
+    assert all(after[path] == count for path, count in before.items())

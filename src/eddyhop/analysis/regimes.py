@@ -64,7 +64,7 @@ is transient (0).
 Standard errors: ``regime_alpha_se`` is the spread of the exponent over bootstrap resamples
 of the particle batches with the whole segmentation repeated on each, so that it includes
 where the regime's ends fall (:func:`resampled_spread`; ``regime_resamples`` resamples,
-default 100); ``regime_support`` is the share of those resamples that find a regime of the
+default 50); ``regime_support`` is the share of those resamples that find a regime of the
 same label over the regime's middle.  ``regime_alpha_lower``/``_upper`` are the interval
 above, which decides the label: it holds the breakpoints where this sample put them, and
 on sampled data it can be several times narrower than the standard error (measured in
@@ -73,6 +73,7 @@ on sampled data it can be several times narrower than the standard error (measur
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -92,7 +93,7 @@ DEFAULT_MIN_SPAN = 0.5
 DEFAULT_MIN_POINTS = 3
 DEFAULT_MISFIT_FLOOR = 0.05
 DEFAULT_CONFIDENCE = 0.95
-DEFAULT_RESAMPLES = 100
+DEFAULT_RESAMPLES = 50
 MAX_BREAKPOINTS = 12
 # seed of the batch resampling: fixed, so the same file always gives the same errors
 RESAMPLE_SEED = 20261205
@@ -111,7 +112,7 @@ class Options:
     confidence: float = DEFAULT_CONFIDENCE
     resamples: int = DEFAULT_RESAMPLES
 
-    @property
+    @functools.cached_property
     def z(self) -> float:
         from scipy import stats
 
@@ -189,8 +190,10 @@ class _Whitener:
     columns 1 and x, and hinge (x − x_c)₊ of every candidate breakpoint c, computed once."""
 
     def __init__(self, x, y, replicates, floor):
-        from scipy.linalg import solve_triangular
+        from scipy.linalg import lapack, solve_triangular
 
+        self._lapack = lapack
+        self._compatible = None
         n = y.size
         cov = np.zeros((n, n))
         if replicates is not None:
@@ -199,7 +202,7 @@ class _Whitener:
             cov = (b - 1) / b * deviation.T @ deviation
         self.sigma = cov + floor**2 * np.eye(n)
         factor = np.linalg.cholesky(self.sigma)
-        self.solve = lambda a: solve_triangular(factor, a, lower=True)
+        self.solve = lambda a: solve_triangular(factor, a, lower=True, check_finite=False)
         self.base = self.solve(np.stack([np.ones(n), x], axis=1))
         self.hinges = self.solve(np.maximum(x[:, None] - x[None, :], 0.0))
         self.y = self.solve(y)
@@ -208,36 +211,51 @@ class _Whitener:
         """Whitened design of the continuous broken line with the given breakpoints."""
         return np.concatenate([self.base, self.hinges[:, list(breaks)]], axis=1)
 
+    def orthonormal(self, breaks):
+        """Q of the reduced QR decomposition of :meth:`design` (LAPACK dgeqrf and dorgqr,
+        which ``numpy.linalg.qr`` calls too, without its per-call checks: a segmentation
+        makes dozens of these, and every bootstrap resample repeats it)."""
+        design = self.design(breaks)
+        factored, tau, _, _ = self._lapack.dgeqrf(design)
+        q, _, _ = self._lapack.dorgqr(factored, tau)
+        return q[:, :design.shape[1]]
 
-def _residual_norm(xw, yw):
-    q, _ = np.linalg.qr(xw)
-    r = yw - q @ (q.T @ yw)
+    def allowed(self, x, breaks, min_ln, min_points):
+        """Output-time indices where a further breakpoint keeps every segment ≥ the minimum
+        span (ln t) and ≥ min_points times (a breakpoint time ends its left segment); the
+        pairwise table is built once per whitener."""
+        if self._compatible is None or self._compatible[0] != (min_ln, min_points):
+            index = np.arange(x.size)
+            free = (x - x[0] >= min_ln) & (x[-1] - x >= min_ln)
+            free &= (index >= min_points - 1) & (index <= x.size - 1 - min_points)
+            pairs = (np.abs(x[:, None] - x[None, :]) >= min_ln) & (
+                np.abs(index[:, None] - index[None, :]) >= min_points)
+            self._compatible = ((min_ln, min_points), free, pairs)
+        _, free, pairs = self._compatible
+        if not breaks:
+            return free
+        return free & pairs[list(breaks)].all(axis=0)
+
+
+def _residual_norm(whiten, breaks):
+    q = whiten.orthonormal(breaks)
+    r = whiten.y - q @ (q.T @ whiten.y)
     return float(r @ r)
-
-
-def _allowed(x, breaks, min_ln, min_points):
-    """Output-time indices where a further breakpoint keeps every segment ≥ the minimum span
-    (ln t) and ≥ min_points times (a breakpoint time ends its left segment)."""
-    index = np.arange(x.size)
-    ok = (x - x[0] >= min_ln) & (x[-1] - x >= min_ln)
-    ok &= (index >= min_points - 1) & (index <= x.size - 1 - min_points)
-    for c in breaks:
-        ok &= (np.abs(x - x[c]) >= min_ln) & (np.abs(index - c) >= min_points)
-    return ok
 
 
 def _best_addition(x, whiten, breaks, min_ln, min_points):
     """(index, χ²) of the single breakpoint whose addition lowers χ² most, or (None, inf)."""
-    candidates = np.flatnonzero(_allowed(x, breaks, min_ln, min_points))
+    candidates = np.flatnonzero(whiten.allowed(x, breaks, min_ln, min_points))
     if candidates.size == 0:
         return None, math.inf
-    q, _ = np.linalg.qr(whiten.design(breaks))
+    q = whiten.orthonormal(breaks)
     residual = whiten.y - q @ (q.T @ whiten.y)
     hinges = whiten.hinges[:, candidates]
     hinges = hinges - q @ (q.T @ hinges)
     norm = (hinges * hinges).sum(axis=0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        gain = np.where(norm > 1e-300, (residual @ hinges) ** 2 / norm, 0.0)
+    projected = residual @ hinges
+    gain = np.zeros_like(norm)
+    np.divide(projected * projected, norm, out=gain, where=norm > 1e-300)
     best = int(np.argmax(gain))
     return int(candidates[best]), float(residual @ residual - gain[best])
 
@@ -245,7 +263,7 @@ def _best_addition(x, whiten, breaks, min_ln, min_points):
 def _refine(x, whiten, breaks, min_ln, min_points, passes=10):
     """Move each breakpoint to its best position given the others, until none moves."""
     breaks = sorted(breaks)
-    current = _residual_norm(whiten.design(breaks), whiten.y)
+    current = _residual_norm(whiten, breaks)
     for _ in range(passes):
         moved = False
         for j in range(len(breaks)):
@@ -261,18 +279,24 @@ def _refine(x, whiten, breaks, min_ln, min_points, passes=10):
 
 
 def choose_breakpoints(x, whiten, min_ln, min_points):
-    """(breakpoint indices, table of (k, χ², BIC)) minimising BIC over k = 0 … 12."""
+    """(breakpoint indices, table of (k, χ², BIC)) minimising BIC over k = 0 … 12 (the
+    search stops at the first k whose penalty alone, (2 + 2k) ln n, reaches the lowest BIC
+    so far: with χ² ≥ 0 no larger k can win, so the choice is the same)."""
     n = x.size
     breaks: list[int] = []
-    table = [(0, _residual_norm(whiten.design(breaks), whiten.y))]
+    table = [(0, _residual_norm(whiten, breaks))]
     fits = {0: []}
+    lowest = table[0][1] + 2 * math.log(n)
     for k in range(1, MAX_BREAKPOINTS + 1):
+        if (2 + 2 * k) * math.log(n) >= lowest:
+            break  # χ² ≥ 0: the penalty alone already exceeds the best BIC, for every k on
         index, _ = _best_addition(x, whiten, breaks, min_ln, min_points)
         if index is None:
             break
         breaks, chi2 = _refine(x, whiten, [*breaks, index], min_ln, min_points)
         table.append((k, chi2))
         fits[k] = breaks
+        lowest = min(lowest, chi2 + (2 + 2 * k) * math.log(n))
     scored = [(k, chi2, chi2 + (2 + 2 * k) * math.log(n)) for k, chi2 in table]
     best = min(scored, key=lambda row: row[2])[0]
     return list(fits[best]), scored
@@ -328,13 +352,15 @@ def _passage(x, sigma, y, first, last, p, q) -> bool:
     xs, ys = x[index], y[index]
     line = solve_triangular(factor, np.stack([np.ones(index.size), xs], axis=1), lower=True)
     target = solve_triangular(factor, ys, lower=True)
-    power_law = _residual_norm(line, target)
+    basis, _ = np.linalg.qr(line)
+    rest = target - basis @ (basis.T @ target)
+    power_law = float(rest @ rest)
 
     def residual(params):
         low, high = params[0] + p * xs, params[1] + q * xs  # ln A t^p, ln B t^q
         top = np.maximum(low, high)
         model = top + np.log(np.exp(low - top) + np.exp(high - top))
-        return solve_triangular(factor, model - ys, lower=True)
+        return solve_triangular(factor, model - ys, lower=True, check_finite=False)
 
     start = np.array([ys[0] - p * xs[0], ys[-1] - q * xs[-1]])
     crossover = least_squares(residual, start, method="lm").fun

@@ -36,7 +36,7 @@ def _default_out(result: str) -> str:
 @click.option("--regime-resamples", type=int, default=None,
               help="Bootstrap resamples of the particle batches behind each regime "
               "exponent's standard error and its 'found again' share (the regimes are "
-              "re-chosen on every resample); 0 skips them. [default: 100]")
+              "re-chosen on every resample); 0 skips them. [default: 50]")
 @click.option("--fit-decades", type=float, default=None,
               help="Late-time window for D_eff and nu(q), in decades. [default: 0.5]")
 @click.option("--fit-start", type=float, default=None,
