@@ -66,4 +66,5 @@ def test_sampled_regimes_show_their_standard_error_and_a_weak_support():
     assert lines[2].endswith("alpha = 0.632 ± 0.02; found in 62% of batch resamples")
     assert lines[3].endswith("alpha = 1.010 ± 0.03")
     page = regimes_html(ds)
-    assert "1.238 ± 0.061" in page and "62%" in page and "found again in batch resamples" in page
+    assert "1.238 ± 0.061 (label interval [1.155, 1.321])" in page
+    assert "62%" in page and "found again in batch resamples" in page

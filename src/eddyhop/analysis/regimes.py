@@ -486,9 +486,12 @@ def resampled_spread(part, segments, options: Options):
     Each resample draws as many batches as there are, with replacement (Efron & Tibshirani
     1993, *An Introduction to the Bootstrap*, Chapman & Hall, ch. 6: the bootstrap standard
     error), from a generator seeded with :data:`RESAMPLE_SEED`, so a file always gives the
-    same errors.  The standard error is the spread of the exponents of the matched regimes
-    (those of the same label; ``ddof`` 1); NaN without batches, with ``resamples`` = 0 or
-    when fewer than two resamples find the regime.  Why not the delete-one jackknife: where
+    same errors.  The standard error is the spread (``ddof`` 1) of the exponent of the
+    resample's regime over the regime's middle, whatever its label: a regime whose label the
+    resamples do not keep (an exponent near the edge of a band) has the spread of the
+    exponent fitted there, not only that of the resamples that agree.  NaN without batches,
+    with ``resamples`` = 0, or when fewer than two resamples have a regime there (a passage
+    in most of them).  Why not the delete-one jackknife: where
     a regime ends moves with the sample, a discontinuous choice, and the jackknife, which
     perturbs the sample by one batch at a time, misses that movement (Efron & Tibshirani
     1993, §11.6: the jackknife fails for non-smooth statistics such as the median)."""
@@ -505,19 +508,19 @@ def resampled_spread(part, segments, options: Options):
         log_t = np.log(t)
     middles = [0.5 * (log_t[s.first] + log_t[s.last]) for s in segments]
     generator = np.random.default_rng(RESAMPLE_SEED)
-    found = [[] for _ in segments]
+    exponents = [[] for _ in segments]
+    same_label = np.zeros(count)
     for _ in range(options.resamples):
         batches = filled[generator.integers(0, filled.size, filled.size)]
         trial, _ = segment_curve(t, *resampler.curve(batches), options)
         for j, (segment, middle) in enumerate(zip(segments, middles)):
             for other in trial:
-                if other.code == segment.code and \
-                        log_t[other.first] <= middle <= log_t[other.last]:
-                    found[j].append(other.alpha)
+                if log_t[other.first] <= middle <= log_t[other.last]:
+                    exponents[j].append(other.alpha)
+                    same_label[j] += other.code == segment.code
                     break
-    spread = np.array([np.std(a, ddof=1) if len(a) >= 2 else np.nan for a in found])
-    support = np.array([len(a) / options.resamples for a in found])
-    return spread, support
+    spread = np.array([np.std(a, ddof=1) if len(a) >= 2 else np.nan for a in exponents])
+    return spread, same_label / options.resamples
 
 
 def regimes(ds: xr.Dataset, *, ballistic_tolerance: float = DEFAULT_TOLERANCE,

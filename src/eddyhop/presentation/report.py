@@ -381,10 +381,14 @@ def regimes_html(ds) -> str:
                 str(label), np.atleast_1d(part["regime_alpha_lower"].values)[i],
                 np.atleast_1d(part["regime_alpha_upper"].values)[i])
             footnote = footnote or marked
+            alpha = _with_error(part["regime_alpha"].values[i], se)
+            if marked:  # the interval the mark is about, as the printed summary shows it
+                alpha += (" (label interval ["
+                          + _number(np.atleast_1d(part["regime_alpha_lower"].values)[i]) + ", "
+                          + _number(np.atleast_1d(part["regime_alpha_upper"].values)[i]) + "])")
             row = (_e(_start_name(ds, start)), _e(label) + (" *" if marked else ""),
                    _number(part["regime_start"].values[i]),
-                   _number(part["regime_end"].values[i]),
-                   _with_error(part["regime_alpha"].values[i], se))
+                   _number(part["regime_end"].values[i]), alpha)
             if supported:
                 share = float(part["regime_support"].values[i])
                 row += (f"{share:.0%}" if np.isfinite(share) else "n/a",)
