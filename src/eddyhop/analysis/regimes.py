@@ -216,6 +216,8 @@ class _Whitener:
         which ``numpy.linalg.qr`` calls too, without its per-call checks: a segmentation
         makes dozens of these, and every bootstrap resample repeats it)."""
         design = self.design(breaks)
+        if design.shape[0] < design.shape[1]:  # fewer times than columns: dorgqr needs m ≥ n
+            return np.linalg.qr(design)[0]
         factored, tau, _, _ = self._lapack.dgeqrf(design)
         q, _, _ = self._lapack.dorgqr(factored, tau)
         return q[:, :design.shape[1]]
