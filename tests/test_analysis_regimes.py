@@ -372,3 +372,33 @@ def test_bad_regime_options_name_the_option_and_the_range():
                         ("confidence", 1.0)):
         with pytest.raises(AnalysisOptionError, match=f"option {name} = .* is outside"):
             regimes(exact, **{name: value})
+
+
+@pytest.mark.slow
+def test_the_worked_example_printout_in_the_docs_is_this_study_s_verbatim():
+    """docs/analysis.md's worked example prints the summary of its study (two releases,
+    2000 particles, 20 batches, seed 0) and calls it verbatim: every line must be what
+    `eddyhop analyse` prints for that study now, the cell-problem solve time aside."""
+    import re
+    from pathlib import Path
+
+    from eddyhop.presentation.text import analysis_lines
+    from eddyhop.study.spec import parse_study_text
+
+    text = (Path(__file__).resolve().parent.parent / "docs" / "analysis.md").read_text(
+        encoding="utf-8")
+    section = text[text.index("## Worked example"):]
+    source = section[section.index("```toml") + len("```toml"):]
+    source = source[:source.index("```")]
+    printout = section[section.index("verbatim"):]
+    printout = printout[printout.index("```\n") + 4:]
+    printout = printout[:printout.index("```")].splitlines()
+    study = parse_study_text(source.replace("[run]", "[run]\nprogress = false"))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        lines = analysis_lines(analyse(eddyhop.simulate(study, progress=False)))
+
+    def timeless(line):
+        return re.sub(r"solved in [0-9.]+ s", "solved in … s", line)
+
+    assert [timeless(line) for line in lines] == [timeless(line) for line in printout]
