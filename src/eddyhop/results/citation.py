@@ -222,6 +222,9 @@ METHODS = (
            ("aris1956",), lambda a: _attr("eddyhop_kind")(a) == "reference"),
     Method("regimes: segmented power-law fit, breakpoints by the Bayesian information "
            "criterion", "analyse: regimes", ("schwarz1978",), _step("regimes")),
+    Method("regime exponent errors: bootstrap over particle batches, the segmentation "
+           "repeated on every resample", "analyse: regime_alpha_se, regime_support",
+           ("efron1993",), _step("regimes")),
     Method("jackknife / batch-means standard errors", "analyse: every error bar",
            ("efron1993",), lambda a: bool(_attr("analysis_steps")(a))),
     Method("step check: coupled coarse/fine paths on one Brownian path", "run.step_check",
