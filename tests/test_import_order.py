@@ -20,7 +20,8 @@ PACKAGE = Path(__file__).resolve().parents[1] / "src" / "eddyhop"
 
 # Lowest first.  A stage is a module or package path under ``eddyhop``; "" is the package root.
 STAGES = (
-    ("core", ("", "errors", "_jit", "_kernel_loading", "_kernel_sources", "atomic", "demo")),
+    ("core", ("", "errors", "_jit", "_kernel_loading", "_kernel_sources", "atomic", "demo",
+              "_blas")),
     ("flows", ("flows",)),
     ("starts", ("starts",)),
     ("engine", ("engine",)),

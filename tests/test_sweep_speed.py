@@ -163,14 +163,15 @@ def test_an_edited_merged_file_or_point_gives_a_fresh_merge(serial, tmp_path):
 def test_points_compute_with_blas_on_one_thread_and_the_setting_comes_back():
     """While points compute, each written point is analysed beside the kernels' threads:
     every BLAS library loaded (NumPy's and SciPy's) runs on one thread in that phase, and
-    its thread count is restored afterwards (sweeps.execute._blas_on_one_thread)."""
+    its thread count is restored afterwards (eddyhop._blas.one_blas_thread, which
+    sweeps.execute sets for that phase)."""
     from threadpoolctl import threadpool_info
 
-    from eddyhop.sweeps.execute import _blas_on_one_thread
+    from eddyhop._blas import one_blas_thread
 
     before = {i["filepath"]: i["num_threads"] for i in threadpool_info()
               if i["user_api"] == "blas"}
-    with _blas_on_one_thread():
+    with one_blas_thread():
         inside = [i for i in threadpool_info() if i["user_api"] == "blas"]
         assert inside and all(i["num_threads"] == 1 for i in inside)
     after = {i["filepath"]: i["num_threads"] for i in threadpool_info()

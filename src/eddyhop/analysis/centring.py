@@ -119,7 +119,6 @@ def transport_moment_variable(ds) -> xr.DataArray:
     return xr.DataArray(value, attrs=attrs)
 
 
-
 class BatchResampler:
     """The curve of :func:`transport_curve` for ensembles made of chosen particle batches
     (indices into ``batch``, repeats allowed, as in a bootstrap resample), with its

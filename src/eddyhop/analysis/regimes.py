@@ -80,6 +80,7 @@ from dataclasses import dataclass
 import numpy as np
 import xarray as xr
 
+from .._blas import one_blas_thread
 from ._common import check_range, per_start, require, var
 from .centring import BatchResampler, transport_curve
 
@@ -512,12 +513,7 @@ def resampled_spread(part, segments, options: Options):
     generator = np.random.default_rng(RESAMPLE_SEED)
     exponents = [[] for _ in segments]
     same_label = np.zeros(count)
-    import scipy.linalg  # noqa: F401  (its BLAS loaded, so that the limit below reaches it)
-    from threadpoolctl import threadpool_limits
-
-    # the matrices are tiny: BLAS threads only busy-wait (measured: the README example's
-    # regimes took 0.62 s of CPU for 0.31 s of wall time with them, 0.41 s with one)
-    with threadpool_limits(limits=1, user_api="blas"):
+    with one_blas_thread():  # tiny matrices: BLAS threads would only busy-wait
         for _ in range(options.resamples):
             batches = filled[generator.integers(0, filled.size, filled.size)]
             trial, _ = segment_curve(t, *resampler.curve(batches), options)

@@ -26,6 +26,7 @@ import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from .._blas import one_blas_thread
 from ..errors import EddyhopError
 from .manifest import MANIFEST_NAME, Manifest, _refuse_foreign, folder_lock, sha256_file
 
@@ -225,7 +226,7 @@ def run_sweep(study, out, *, backend: str = "auto", jobs: int | None = None,
                 # each point is analysed for the merge as soon as it is written, while the
                 # other points compute (its file is read back, as merge_sweep would)
                 prepared = {} if merge_to is not None else None
-                with _blas_on_one_thread():
+                with one_blas_thread():  # the analysis of written points runs beside kernels
                     _dispatch(pool, queue, spec, study, manifest, report, threads, show,
                               step_size_warnings, prepared)
             finally:
@@ -290,18 +291,6 @@ def _write_point(ds, point, manifest, seconds: float, messages: list) -> Path:
     _test_pause("renamed", point.id)
     manifest.mark_done(point.id, path)
     return path
-
-
-def _blas_on_one_thread():
-    """Context in which NumPy's BLAS uses one thread, for the phase in which points compute:
-    each written point is analysed in this thread while the pool's threads run the next
-    points' kernels, and the analysis' small matrix products gain nothing from BLAS threads,
-    whose busy-waiting took CPU from the kernels (a 4-point sweep at -j 2, measured: 14.0–14.6
-    s wall and 27–28 s CPU with the default BLAS threads, 13.05 s and 24.5 s with one)."""
-    import scipy.linalg  # noqa: F401  (loads SciPy's own BLAS: a limit reaches loaded ones only)
-    from threadpoolctl import threadpool_limits
-
-    return threadpool_limits(limits=1, user_api="blas")
 
 
 def _dispatch(pool, queue, spec, study, manifest, report, threads, show, step_warnings,
