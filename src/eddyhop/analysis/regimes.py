@@ -494,10 +494,10 @@ def resampled_spread(part, segments, options: Options):
     resamples do not keep (an exponent near the edge of a band) has the spread of the
     exponent fitted there, not only that of the resamples that agree.  NaN without batches,
     with ``resamples`` = 0, or when fewer than two resamples have a regime there (a passage
-    in most of them).  Why not the delete-one jackknife: where
-    a regime ends moves with the sample, a discontinuous choice, and the jackknife, which
-    perturbs the sample by one batch at a time, misses that movement (Efron & Tibshirani
-    1993, §11.6: the jackknife fails for non-smooth statistics such as the median)."""
+    in most of them).  Why not the delete-one jackknife: where a regime ends moves with the
+    sample, a discontinuous choice, and the jackknife, which perturbs the sample by one batch
+    at a time, misses that movement (Efron & Tibshirani 1993, §11.6: the jackknife fails for
+    non-smooth statistics such as the median)."""
     count = len(segments)
     nan = np.full(count, np.nan)
     resampler = BatchResampler(part)
