@@ -13,6 +13,8 @@ import netCDF4
 import pytest
 import xarray as xr
 
+from .test_interrupts import CTRL_C_STATUSES
+
 SMALL = """
 title = "cli check"
 [flow]
@@ -140,10 +142,46 @@ def test_ctrl_c_leaves_no_file(tmp_path):
     assert "integrating" in seen, seen
     process.send_signal(signal.SIGINT)
     _, stderr = process.communicate(timeout=240)
-    assert process.returncode == 130, stderr
-    assert "interrupted" in stderr
+    assert process.returncode in CTRL_C_STATUSES, stderr  # 130, or SIGINT under python -m
+    assert "interrupted" in stderr and "Traceback" not in stderr
     assert out.read_bytes() == b"an earlier result that must survive"
     assert not list(tmp_path.glob(".*part")) and not list(tmp_path.glob("*.part"))
+
+
+def test_ctrl_c_while_the_command_line_is_imported_exits_130(monkeypatch, capsys):
+    """A Ctrl-C that lands while ``entry`` imports its helpers, or while the console script
+    imports the command line, is an interrupted command: the line "interrupted" and status
+    130, no traceback."""
+    import builtins
+
+    import eddyhop.__main__ as doors
+    import eddyhop.cli as cli
+
+    real_import = builtins.__import__
+
+    def interrupted_import(victim):
+        def fake(name, *args, **kwargs):
+            if name == victim:
+                raise KeyboardInterrupt
+            return real_import(name, *args, **kwargs)
+        return fake
+
+    # entry ends by ignoring SIGINT and freezing the heap at exit: not in the test process
+    monkeypatch.setattr(cli, "_skip_final_collection", lambda: None)
+    monkeypatch.setattr(builtins, "__import__", interrupted_import("_jit"))
+    handler = signal.getsignal(signal.SIGINT)
+    try:
+        with pytest.raises(SystemExit) as stop:
+            cli.entry(["families"])
+    finally:
+        signal.signal(signal.SIGINT, handler)
+    assert stop.value.code == 130
+    monkeypatch.setattr(builtins, "__import__", interrupted_import("eddyhop.cli"))
+    with pytest.raises(SystemExit) as stop:
+        doors.console()
+    assert stop.value.code == 130
+    monkeypatch.setattr(builtins, "__import__", real_import)
+    assert capsys.readouterr().err == "interrupted\ninterrupted\n"
 
 
 def test_demo_study_is_valid():

@@ -107,6 +107,7 @@ class LazyDispatcher:
                         use_light_loading(dispatcher)  # cache hits skip numba's full start-up
                     _compile_without_literals(dispatcher)
                     _compile_with_rare_full_collections(dispatcher)
+                    _hold_interrupts_while_llvm_emits()
                     if _LLVM_INLINING_KERNELS:
                         _install_llvm_inlining()
                     if self._loop_interleave:
@@ -309,6 +310,35 @@ def _compile_with_rare_full_collections(dispatcher) -> None:
             return compile_default(sig)
 
     dispatcher.compile = compile_collecting_rarely
+
+
+def _hold_interrupts_while_llvm_emits() -> None:
+    """Hold Ctrl-C while LLVM emits a module's machine code or loads it from the cache
+    (numba's ``JITCodeLibrary._finalize_specific``; installed once per process).
+
+    LLVM calls back into Python when it has emitted a module or looks for one in the cache
+    (llvmlite's object-cache hooks), and that callback is the first Python code to run after
+    the C call: a Ctrl-C that came during the call is raised inside it, where ctypes prints
+    "Exception ignored on calling ctypes callback function" and drops it, and the command
+    then runs on to the end as if never interrupted.  Held here
+    (:func:`eddyhop.atomic.interrupts_deferred`), it is raised as soon as the call returns —
+    no later than before, since Python code cannot run during the call anyway.
+    """
+    from numba.core import codegen
+
+    from .atomic import interrupts_deferred
+
+    library_class = codegen.JITCodeLibrary
+    if getattr(library_class, "_eddyhop_interrupt_hold", False):
+        return
+    finalize_specific = library_class._finalize_specific
+
+    def _finalize_specific(self):
+        with interrupts_deferred():
+            finalize_specific(self)
+
+    library_class._finalize_specific = _finalize_specific
+    library_class._eddyhop_interrupt_hold = True
 
 
 def _module_attribute(module: str, qualname: str):

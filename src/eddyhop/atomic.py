@@ -69,6 +69,64 @@ def interrupts_deferred():
             raise KeyboardInterrupt
 
 
+class _RememberedCtrlC:
+    """Whether the command line's SIGINT handler has seen a Ctrl-C not yet re-raised."""
+
+    seen = False
+
+
+def remember_ctrl_c() -> None:
+    """Install the command line's SIGINT handler (main thread; a command's first act).
+
+    Like Python's own handler it raises KeyboardInterrupt, and it also remembers the Ctrl-C.
+    Python drops a KeyboardInterrupt that is raised where exceptions cannot propagate — in a
+    ``__del__`` or in a callback from C (llvmlite's finalisers and object-cache hooks while
+    kernels load), after which the command ran on to the end.  A remembered Ctrl-C is raised
+    again by :func:`raise_lost_ctrl_c` where the work goes on.  Only the command line
+    installs it: in a notebook Ctrl-C keeps Python's handler, and nothing is remembered."""
+    import signal
+    import sys
+
+    _RememberedCtrlC.seen = False
+
+    def remembering_handler(signum, frame):
+        _RememberedCtrlC.seen = True
+        raise KeyboardInterrupt
+
+    def quiet_about_dropped_ctrl_c(unraisable):
+        # Python would print "Exception ignored in …" and a traceback; the Ctrl-C is
+        # remembered and ends the command at the next check instead
+        if not isinstance(unraisable.exc_value, KeyboardInterrupt):
+            sys.__unraisablehook__(unraisable)
+
+    signal.signal(signal.SIGINT, remembering_handler)
+    sys.unraisablehook = quiet_about_dropped_ctrl_c
+
+
+def ctrl_c_remembered() -> bool:
+    """Whether :func:`remember_ctrl_c`'s handler has seen a Ctrl-C not yet re-raised: an
+    error that follows one is reported as the interruption it is (a KeyboardInterrupt inside
+    an import made by C code arrives as an ImportError)."""
+    return _RememberedCtrlC.seen
+
+
+def raise_lost_ctrl_c() -> None:
+    """Raise KeyboardInterrupt (once) if :func:`remember_ctrl_c`'s handler saw a Ctrl-C whose
+    KeyboardInterrupt was dropped.  Called where work goes on: before each chunk's output is
+    folded, before a written file is renamed into place.
+
+    Does nothing outside the main thread, and nothing while an exception is being handled: a
+    KeyboardInterrupt that propagated normally is then on its way out, and the clean-up it
+    runs (a sweep saving its manifest) must not be interrupted a second time."""
+    import sys
+    import threading
+
+    if (_RememberedCtrlC.seen and sys.exc_info()[1] is None
+            and threading.current_thread() is threading.main_thread()):
+        _RememberedCtrlC.seen = False
+        raise KeyboardInterrupt
+
+
 def _pid_alive(pid: int) -> bool:
     """True unless no process ``pid`` exists (a process of another user counts as alive)."""
     if pid <= 0:
@@ -134,6 +192,7 @@ def atomic_path(path, suffix: str = ".part"):
         try:
             yield temporary
             interrupt.check()  # Ctrl-C during the write: abandon it before the rename
+            raise_lost_ctrl_c()  # and one Python dropped earlier (a command line's Ctrl-C)
             with open(temporary, "rb+") as stream:
                 os.fsync(stream.fileno())
             mask = os.umask(0)

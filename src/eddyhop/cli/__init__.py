@@ -44,12 +44,16 @@ def entry(argv=None):
     the signal.  Here Ctrl-C before the end is status 130; after the command has ended it is
     ignored, so a finished command keeps its own status.
     """
-    import signal
     import sys
 
-    from .._jit import rare_full_collections
+    try:  # the imports too: a Ctrl-C during them is an interrupted command like any other
+        import signal
 
-    try:
+        from .._jit import rare_full_collections
+        from ..atomic import remember_ctrl_c
+
+        remember_ctrl_c()  # no Ctrl-C lost where Python drops exceptions (see there)
+
         # a command is one short process: its start-up imports (numba, xarray, pandas) build
         # ≈ 10⁵ long-lived objects, and every full collection meanwhile walks them all
         with rare_full_collections():
@@ -63,6 +67,8 @@ def entry(argv=None):
         code = exc.exit_code
     except SystemExit as exc:
         code = exc.code
+    import signal  # bound already unless the Ctrl-C came during its own import
+
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     _skip_final_collection()
     sys.exit(code)

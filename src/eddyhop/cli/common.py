@@ -45,6 +45,7 @@ def friendly_errors(function):
 
     @functools.wraps(function)
     def wrapper(*args, **kwargs):
+        from ..atomic import ctrl_c_remembered
         from ..errors import EddyhopError
 
         previous = warnings.showwarning
@@ -53,7 +54,12 @@ def friendly_errors(function):
             with warnings.catch_warnings():
                 warnings.simplefilter("once")
                 warnings.showwarning = _show_warning
-                return function(*args, **kwargs)
+                try:
+                    return function(*args, **kwargs)
+                except Exception:
+                    if ctrl_c_remembered():  # a consequence of the Ctrl-C, not a failure
+                        raise KeyboardInterrupt from None
+                    raise
         except EddyhopError as exc:
             click.secho(f"error: {exc}", fg="red", err=True)
             sys.exit(1 if _is_failed_computation(exc) else 2)

@@ -17,6 +17,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..atomic import raise_lost_ctrl_c
 from ..errors import BlowUpError
 from ..flows.compiled import CompiledCode
 from ..starts import area_fraction, sample_starts
@@ -641,6 +642,7 @@ class EnsemblePlan:
 
     def fold(self, output) -> None:
         """Fold the output of the next task (in the order of ``tasks()``)."""
+        raise_lost_ctrl_c()  # a Ctrl-C Python dropped (while kernels loaded) ends the run here
         item = self._expected.pop(0)
         if item[0] == "region":  # the first output of a start region
             _, region, offset, x0, y0, edges = item

@@ -27,6 +27,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from .._blas import one_blas_thread
+from ..atomic import raise_lost_ctrl_c
 from ..errors import EddyhopError
 from .manifest import MANIFEST_NAME, Manifest, _refuse_foreign, folder_lock, sha256_file
 
@@ -371,6 +372,7 @@ def _dispatch(pool, queue, spec, study, manifest, report, threads, show, step_wa
                 pool.submit((point.index, point.id), compute_point, payload(point))
             (_, point_id), outcome = pool.next_done()
             record(running[point_id], outcome)
+            raise_lost_ctrl_c()  # a Ctrl-C Python dropped ends the sweep here
     except BaseException:
         # interrupted (Ctrl-C, an I/O error): running points go back to pending
         pool.cancel()
