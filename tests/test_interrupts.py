@@ -384,3 +384,74 @@ def test_ctrl_c_is_held_while_llvm_emits_machine_code(monkeypatch):
         add_one(1.0)
     assert handlers and signal.default_int_handler not in handlers
     assert signal.getsignal(signal.SIGINT) is signal.default_int_handler
+
+
+def test_ctrl_c_is_held_while_a_result_is_read(tmp_path, monkeypatch):
+    """A Ctrl-C inside xarray's read could leave its netCDF lock taken, and the close then
+    waited for it for ever (a sweep interrupted while it read back a finished point hung).
+    The read holds Ctrl-C and delivers it once the file is closed; the file reads again."""
+    from eddyhop.results.io import open_result
+
+    path = tmp_path / "r.nc"
+    write_netcdf(small_dataset(), path)
+    original = xr.Dataset.load
+    handlers = []
+
+    def interrupted_load(self, *args, **kwargs):
+        handlers.append(signal.getsignal(signal.SIGINT))
+        os.kill(os.getpid(), signal.SIGINT)
+        time.sleep(0.05)
+        return original(self, *args, **kwargs)
+
+    monkeypatch.setattr(xr.Dataset, "load", interrupted_load)
+    with pytest.raises(KeyboardInterrupt):
+        open_result(path)
+    assert handlers and handlers[0] is not signal.default_int_handler
+    monkeypatch.setattr(xr.Dataset, "load", original)
+    np.testing.assert_array_equal(open_result(path)["msd"].values, np.arange(5.0))
+
+
+@pytest.mark.slow
+def test_sweep_interrupted_at_random_moments_resumes_to_the_same_result(tmp_path):
+    """``eddyhop sweep`` (console script, threads) is sent SIGINT at random moments (fixed
+    seed, 4 trials over the span of a whole sweep, point read-backs and the merge included):
+    each time it exits 130 within 5 s with "interrupted" and no traceback (or 0 if it had
+    finished), and the resumed sweep's merged numbers equal an uninterrupted sweep's."""
+    from .test_sweep_run import assert_same_numbers, study_text, write_study
+
+    path = write_study(tmp_path, study_text(particles=400, t_end=4.0))
+    door = console_command()
+    statuses = (130,) if len(door) == 1 else CTRL_C_STATUSES
+
+    def command(out):
+        return [*door, "sweep", str(path), "--out", str(out), "--no-progress"]
+
+    reference = tmp_path / "reference"
+    subprocess.run(command(reference), check=True, capture_output=True, timeout=600)
+    started = time.monotonic()
+    subprocess.run(command(tmp_path / "timed"), check=True, capture_output=True, timeout=600)
+    span = time.monotonic() - started
+    with xr.open_dataset(reference / "sweep.nc") as ds:
+        expected = ds.load()
+
+    rng = random.Random(41)
+    for trial in range(4):
+        out = tmp_path / f"trial{trial}"
+        process = subprocess.Popen(command(out), stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+        time.sleep(rng.uniform(0.1, span))
+        sent = time.monotonic()
+        process.send_signal(signal.SIGINT)
+        try:
+            code = process.wait(timeout=30)
+        except subprocess.TimeoutExpired:
+            process.kill()
+            process.wait()
+            pytest.fail(f"trial {trial}: no exit within 30 s of SIGINT (deadlock)")
+        stderr = process.stderr.read().decode()
+        if code != 0:
+            assert code in statuses, stderr[-2000:]
+            assert "interrupted" in stderr and "Traceback" not in stderr, stderr[-2000:]
+            assert time.monotonic() - sent < 5.0, f"trial {trial}"
+        subprocess.run(command(out), check=True, capture_output=True, timeout=600)
+        with xr.open_dataset(out / "sweep.nc") as ds:
+            assert_same_numbers(ds.load(), expected)

@@ -199,7 +199,18 @@ def _coordinate(ds, dim, where):
 
 def read_grid_field(path, stream_function=None, velocity=None, closure_tolerance=1e-6,
                     where=None) -> GridField:
-    """Read and check a periodic field file; see the module docstring for the rules."""
+    """Read and check a periodic field file; see the module docstring for the rules.
+
+    Ctrl-C is held while the file is read (:func:`eddyhop.atomic.interrupts_deferred`): one
+    raised inside xarray's read can leave its netCDF lock taken, and the close that follows
+    then waits for it for ever."""
+    from ..atomic import interrupts_deferred
+
+    with interrupts_deferred():
+        return _read_grid_field(path, stream_function, velocity, closure_tolerance, where)
+
+
+def _read_grid_field(path, stream_function, velocity, closure_tolerance, where) -> GridField:
     import xarray as xr
 
     from ._spectral import _wavenumbers, stream_function_from_velocity

@@ -126,7 +126,8 @@ def write_netcdf(ds, path) -> Path:
 
 
 def open_result(path):
-    """Open a result file fully into memory (the file is closed afterwards).
+    """Open a result file fully into memory (the file is closed afterwards; Ctrl-C waits
+    until it is).
 
     Anything that is not a readable netCDF file (missing, empty, truncated, a study's TOML
     text, a directory) raises :class:`~eddyhop.errors.InputDataError` whose one-line message
@@ -156,7 +157,10 @@ def open_result(path):
             if path.suffix.lower() == ".toml" else
             "give a netCDF file written by eddyhop (run, analyse, merge or reference)")
     try:
-        with xr.open_dataset(path, engine="netcdf4") as ds:
+        # Ctrl-C held while reading: one raised inside xarray's read can leave its netCDF lock
+        # taken, and the close then waits for it for ever (seen: a sweep interrupted while it
+        # read back a finished point)
+        with interrupts_deferred(), xr.open_dataset(path, engine="netcdf4") as ds:
             return ds.load()
     except (OSError, ValueError, RuntimeError, KeyError, IndexError) as exc:
         # netCDF4/HDF5 report a wrong or damaged file as OSError ("Unknown file format",
