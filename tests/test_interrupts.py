@@ -45,6 +45,23 @@ def console_command() -> list[str]:
     return [script] if script else [sys.executable, "-m", "eddyhop"]
 
 
+def signal_after(command, delay: float, sig=signal.SIGINT, env=None):
+    """Start ``command``, send it ``sig`` after ``delay`` seconds; return its status, the
+    seconds from the signal to its exit, and its stderr.  No exit within 30 s fails the
+    test (a deadlock)."""
+    process = subprocess.Popen(command, stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env)
+    time.sleep(delay)
+    sent = time.monotonic()
+    process.send_signal(sig)
+    try:
+        code = process.wait(timeout=30)
+    except subprocess.TimeoutExpired:
+        process.kill()
+        process.wait()
+        pytest.fail(f"{command}: no exit within 30 s of signal {sig!r} (deadlock)")
+    return code, time.monotonic() - sent, process.stderr.read().decode()
+
+
 def dead_pid() -> int:
     """The id of a process that has exited (and was reaped)."""
     child = subprocess.Popen([sys.executable, "-c", "pass"])
@@ -249,20 +266,8 @@ def test_run_killed_at_random_moments_loses_nothing(tmp_path):
     for trial, sig in enumerate([signal.SIGINT, signal.SIGKILL] * 2):
         out = tmp_path / f"trial{trial}" / "result.nc"
         out.parent.mkdir()
-        process = subprocess.Popen(command(out), stdout=subprocess.PIPE, stderr=subprocess.PIPE,
-                                   env=env)
-        time.sleep(rng.uniform(0.1, span))
-        sent = time.monotonic()
-        process.send_signal(sig)
-        try:
-            code = process.wait(timeout=30)
-        except subprocess.TimeoutExpired:
-            process.kill()
-            process.wait()
-            pytest.fail(f"trial {trial}: no exit within 30 s of signal {sig!r}")
-        waited = time.monotonic() - sent
+        code, waited, stderr = signal_after(command(out), rng.uniform(0.1, span), sig, env)
         if sig == signal.SIGINT and code != 0:  # 0: the run had already finished
-            stderr = process.stderr.read().decode()
             assert code in statuses, stderr[-2000:]
             assert "interrupted" in stderr and "Traceback" not in stderr, stderr[-2000:]
             assert waited < 3.0, f"trial {trial}: exit {waited:.2f} s after SIGINT"
@@ -437,21 +442,11 @@ def test_sweep_interrupted_at_random_moments_resumes_to_the_same_result(tmp_path
     rng = random.Random(41)
     for trial in range(4):
         out = tmp_path / f"trial{trial}"
-        process = subprocess.Popen(command(out), stdout=subprocess.PIPE, stderr=subprocess.PIPE)
-        time.sleep(rng.uniform(0.1, span))
-        sent = time.monotonic()
-        process.send_signal(signal.SIGINT)
-        try:
-            code = process.wait(timeout=30)
-        except subprocess.TimeoutExpired:
-            process.kill()
-            process.wait()
-            pytest.fail(f"trial {trial}: no exit within 30 s of SIGINT (deadlock)")
-        stderr = process.stderr.read().decode()
-        if code != 0:
+        code, waited, stderr = signal_after(command(out), rng.uniform(0.1, span))
+        if code != 0:  # 0: the sweep had already finished
             assert code in statuses, stderr[-2000:]
             assert "interrupted" in stderr and "Traceback" not in stderr, stderr[-2000:]
-            assert time.monotonic() - sent < 5.0, f"trial {trial}"
+            assert waited < 5.0, f"trial {trial}: exit {waited:.2f} s after SIGINT"
         subprocess.run(command(out), check=True, capture_output=True, timeout=600)
         with xr.open_dataset(out / "sweep.nc") as ds:
             assert_same_numbers(ds.load(), expected)
