@@ -25,7 +25,7 @@ from .. import __version__
 from ..analysis.verdicts import flag_meaning
 from ..errors import EddyhopError
 from ..results.io import atomic_write_text
-from .text import band_footnote, misses_centre, transition_words
+from .text import band_footnote, misses_centre, regime_item, transition_words
 
 CAUTION = ("Research estimate from an idealised model flow. These numbers are not a validated "
            "engineering correlation and are not for the design of real equipment: for heat or "
@@ -368,7 +368,6 @@ def regimes_html(ds) -> str:
         return ""
     rows = []
     footnote = False
-    bounds = "regime_alpha_lower" in ds.variables and "regime_alpha_upper" in ds.variables
     supported = "regime_support" in ds.variables
     for start in _starts(ds):
         part = _part(ds, start)
@@ -377,20 +376,18 @@ def regimes_html(ds) -> str:
             if not str(label):
                 continue
             se = part["regime_alpha_se"].values[i] if "regime_alpha_se" in part else None
-            marked = bounds and misses_centre(
-                str(label), np.atleast_1d(part["regime_alpha_lower"].values)[i],
-                np.atleast_1d(part["regime_alpha_upper"].values)[i])
+            low = regime_item(part, "regime_alpha_lower", i)
+            high = regime_item(part, "regime_alpha_upper", i)
+            marked = misses_centre(str(label), low, high)
             footnote = footnote or marked
             alpha = _with_error(part["regime_alpha"].values[i], se)
             if marked:  # the interval the mark is about, as the printed summary shows it
-                alpha += (" (label interval ["
-                          + _number(np.atleast_1d(part["regime_alpha_lower"].values)[i]) + ", "
-                          + _number(np.atleast_1d(part["regime_alpha_upper"].values)[i]) + "])")
+                alpha += f" (label interval [{_number(low)}, {_number(high)}])"
             row = (_e(_start_name(ds, start)), _e(label) + (" *" if marked else ""),
                    _number(part["regime_start"].values[i]),
                    _number(part["regime_end"].values[i]), alpha)
             if supported:
-                share = float(part["regime_support"].values[i])
+                share = regime_item(part, "regime_support", i)
                 row += (f"{share:.0%}" if np.isfinite(share) else "n/a",)
             rows.append(row)
     if not rows:

@@ -181,7 +181,7 @@ def band_footnote(tolerances: str) -> str:
 SUPPORT_SHOWN_BELOW = 0.95
 
 
-def _item(part, name, i):
+def regime_item(part, name, i) -> float:
     """Element ``i`` of a per-regime variable, or NaN when the file lacks it."""
     if name not in part.variables:
         return np.nan
@@ -212,10 +212,11 @@ def _regime_lines(part):
         alpha = np.atleast_1d(part["regime_alpha"].values)[i]
         text = f"    {label:<{width}}  t = {_g(first)} … {_g(last)}{shown}  alpha = "
         text += _alpha(alpha)
-        se = _item(part, "regime_alpha_se", i)
+        se = regime_item(part, "regime_alpha_se", i)
         if _finite(se):
             text += f" ± {_g(se, 2)}"
-        low, high = _item(part, "regime_alpha_lower", i), _item(part, "regime_alpha_upper", i)
+        low = regime_item(part, "regime_alpha_lower", i)
+        high = regime_item(part, "regime_alpha_upper", i)
         marked_here = misses_centre(label, low, high)
         if _finite(low) and _finite(high) and (marked_here or not _finite(se)):
             # the interval that decided the label: shown where it matters (the mark) or
@@ -224,7 +225,7 @@ def _regime_lines(part):
         if marked_here:
             text += " *"
             marked = True
-        support = _item(part, "regime_support", i)
+        support = regime_item(part, "regime_support", i)
         if _finite(support) and support < SUPPORT_SHOWN_BELOW:
             text += f"; found in {support:.0%} of batch resamples"
         out.append(text)
